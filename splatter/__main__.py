@@ -1,0 +1,5 @@
+import sys
+
+from splatter.cli import main
+
+sys.exit(main())

@@ -1,0 +1,260 @@
+"""The ``splatter`` command line: render, check, simulate, pack.
+
+Exit codes: 0 done, 2 bad input (the message names the file, the key, what
+was expected and what arrived), 1 internal failure, 130 interrupted.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import warnings
+from pathlib import Path
+from typing import List, Optional, Sequence
+
+from splatter.errors import LookError, LookWarning
+
+EXIT_OK, EXIT_INTERNAL, EXIT_BAD_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
+
+_EPILOG = """\
+examples:
+  splatter check looks/harbour_chimney.toml
+  splatter render looks/harbour_chimney.toml
+  splatter render looks/quay_vent.toml --seed 7 --set clip.frames=32 --out renders/vent-{seed}
+  splatter render looks/quay_dust.toml --frames 0:8 --threads 1
+  splatter simulate looks/quay_vent.toml --out vent.npz
+  splatter pack renders/harbour_chimney --columns 8
+
+The look file format is described in docs/look-reference.md.
+"""
+
+
+class _UsageError(Exception):
+    """Bad command-line arguments (exit 2, like argparse's own errors)."""
+
+
+def _parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(
+        prog="splatter",
+        description="Render smoke, steam, dust and mist flipbook textures from a look file (TOML).",
+        epilog=_EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    from splatter import __version__
+
+    p.add_argument("--version", action="version", version=f"splatter {__version__}")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND")
+    sub.required = True
+
+    def look_options(sp, *, out_help):
+        sp.add_argument("look", metavar="LOOK", help="the look file (TOML)")
+        sp.add_argument("--out", metavar="DIR" if "folder" in out_help else "FILE", help=out_help)
+        sp.add_argument("--seed", type=int, metavar="N", help="replace the look's seed (an integer >= 0)")
+        sp.add_argument(
+            "--set",
+            dest="overrides",
+            action="append",
+            default=[],
+            metavar="KEY=VALUE",
+            help="override a value of the look, e.g. --set source.0.rate=80 --set clip.frames=32 "
+            "(dotted path, array index as a number, value in TOML syntax); repeatable",
+        )
+
+    r = sub.add_parser(
+        "render",
+        help="render frames, sheets, previews and maps",
+        description="Render the look and write the files its [output] table asks for.",
+    )
+    look_options(r, out_help="output folder, replacing output.dir ({name} and {seed} are filled in)")
+    r.add_argument(
+        "--frames",
+        metavar="A:B",
+        help="render frames A to B-1 only (A:B, A: or a single frame A); may run past the clip's end",
+    )
+    r.add_argument("--threads", type=int, metavar="N", help="number of compute threads (default: all cores)")
+    r.add_argument("--quiet", action="store_true", help="no progress bar and no summary line")
+
+    c = sub.add_parser(
+        "check",
+        help="validate a look and say what it would render",
+        description="Validate the look, print what would be rendered and warn about suspicious settings. "
+        "Renders and writes nothing.",
+    )
+    c.add_argument("look", metavar="LOOK", help="the look file (TOML)")
+    c.add_argument("--seed", type=int, metavar="N", help="replace the look's seed")
+    c.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE", help="as for render")
+
+    s = sub.add_parser(
+        "simulate",
+        help="write the particle states per frame to an .npz file",
+        description="Simulate the look and write every frame's puffs as flat arrays (frame_start, id, pos, "
+        "vel, age, life, size, opacity and more) to an .npz file.",
+    )
+    look_options(s, out_help="the .npz file to write")
+    s.add_argument("--frames", metavar="A:B", help="frames A to B-1 only")
+
+    k = sub.add_parser(
+        "pack",
+        help="build a sprite sheet and its metadata from a folder of frames",
+        description="Pack the frames NAME.0000.png ... (or .exr) in DIR into NAME.sheet.png/.exr and "
+        "NAME.sheet.json.",
+    )
+    k.add_argument("dir", metavar="DIR", help="folder holding the frames")
+    k.add_argument("--name", help="which frames, when the folder holds several sets")
+    k.add_argument("--columns", type=int, metavar="C")
+    k.add_argument("--rows", type=int, metavar="R")
+    k.add_argument("--padding", type=int, default=2, metavar="PX", help="gutter around each cell (default 2)")
+    k.add_argument("--pow2", action="store_true", help="power-of-two sheet size (frames resampled into cells)")
+    k.add_argument("--format", choices=("png", "exr"), help="sheet format (default: that of the frames)")
+    k.add_argument("--fps", type=float, default=30.0, help="frames per second stored in the metadata")
+    k.add_argument("--loop", choices=("none", "exact", "crossfade"), default="none", help="stored in the metadata")
+    return p
+
+
+def parse_frames(text: Optional[str], clip_frames: int) -> Optional[range]:
+    """Parse ``A:B``, ``A:`` or ``A`` into a range of frame numbers."""
+    if text is None:
+        return None
+    try:
+        if ":" in text:
+            a_text, b_text = text.split(":", 1)
+            a = int(a_text) if a_text.strip() else 0
+            b = int(b_text) if b_text.strip() else clip_frames
+        else:
+            a = int(text)
+            b = a + 1
+    except ValueError:
+        raise _UsageError(f"--frames: expected A:B with whole numbers (for example 0:16), got {text!r}") from None
+    if a < 0 or b <= a:
+        raise _UsageError(f"--frames: expected 0 <= A < B, got {text!r}")
+    if b - a > 100_000:
+        raise _UsageError(f"--frames: expected at most 100000 frames, got {b - a}")
+    return range(a, b)
+
+
+def _set_threads(n: Optional[int]) -> None:
+    if n is None:
+        return
+    import numba
+
+    top = numba.config.NUMBA_NUM_THREADS
+    if not 1 <= n <= top:
+        raise _UsageError(f"--threads: expected a number from 1 to {top}, got {n}")
+    numba.set_num_threads(n)
+
+
+def _load(args):
+    from splatter.look_load import load_look
+
+    if args.seed is not None and args.seed < 0:
+        raise _UsageError(f"--seed: expected an integer >= 0, got {args.seed}")
+    return load_look(args.look, overrides=args.overrides, seed=args.seed)
+
+
+def _cmd_render(args) -> int:
+    from splatter.render import render
+
+    look = _load(args)
+    frames = parse_frames(args.frames, look.clip.frames)
+    _set_threads(args.threads)
+    result = render(look, out_dir=args.out, frames=frames, progress=not args.quiet)
+    if not args.quiet:
+        print(result.summary(), file=sys.stderr)
+    return EXIT_OK
+
+
+def _cmd_check(args) -> int:
+    from splatter.check import check_look
+
+    look = _load(args)
+    print(check_look(look))
+    return EXIT_OK
+
+
+def _cmd_simulate(args) -> int:
+    from splatter.simulate import plan_simulation, save_states, simulate
+
+    look = _load(args)
+    if not args.out:
+        raise _UsageError("simulate: --out FILE.npz is required")
+    if not args.out.endswith(".npz"):
+        raise _UsageError(f"--out: expected a file name ending in .npz, got {args.out!r}")
+    frames = parse_frames(args.frames, look.clip.frames) or range(look.clip.frames)
+    plan = plan_simulation(look)
+    for note in plan.notes:
+        print(f"splatter: note: {note}", file=sys.stderr)
+    Path(args.out).parent.mkdir(parents=True, exist_ok=True)
+    save_states(args.out, simulate(look, plan, frames=frames))
+    print(f"wrote {args.out} ({len(frames)} frames)", file=sys.stderr)
+    return EXIT_OK
+
+
+def _cmd_pack(args) -> int:
+    from splatter.pack import pack_folder
+
+    for flag in ("columns", "rows"):
+        v = getattr(args, flag)
+        if v is not None and not 1 <= v <= 1024:
+            raise _UsageError(f"--{flag}: expected a number from 1 to 1024, got {v}")
+    if not 0 <= args.padding <= 256:
+        raise _UsageError(f"--padding: expected a number from 0 to 256, got {args.padding}")
+    if not args.fps > 0:
+        raise _UsageError(f"--fps: expected a number > 0, got {args.fps}")
+    try:
+        written = pack_folder(
+            args.dir,
+            name=args.name,
+            columns=args.columns,
+            rows=args.rows,
+            padding=args.padding,
+            pow2=args.pow2,
+            format=args.format,
+            fps=args.fps,
+            loop=args.loop,
+        )
+    except ValueError as err:
+        raise _UsageError(f"pack: {err}") from None
+    for path in written:
+        print(f"wrote {path}", file=sys.stderr)
+    return EXIT_OK
+
+
+_COMMANDS = {"render": _cmd_render, "check": _cmd_check, "simulate": _cmd_simulate, "pack": _cmd_pack}
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None):
+    kind = "warning" if issubclass(category, LookWarning) else category.__name__
+    print(f"splatter: {kind}: {message}", file=sys.stderr)
+
+
+def main(argv: Optional[Sequence[str]] = None) -> int:
+    """Run the command line; returns the exit code (also used as the console script)."""
+    parser = _parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # argparse already printed its message
+        return int(exc.code or 0) if exc.code in (0, None) else EXIT_BAD_INPUT
+    warnings.showwarning = _show_warning
+    try:
+        return _COMMANDS[args.command](args)
+    except LookError as err:
+        print(f"splatter: error: {err}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except _UsageError as err:
+        print(f"splatter: error: {err}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        print("splatter: interrupted", file=sys.stderr)
+        return EXIT_INTERRUPTED
+    except BrokenPipeError:
+        return EXIT_OK
+    except Exception:  # an internal failure: show everything so it can be reported
+        import traceback
+
+        traceback.print_exc()
+        print("splatter: internal error (exit 1); please report it with the look file", file=sys.stderr)
+        return EXIT_INTERNAL
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
