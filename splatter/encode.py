@@ -1,0 +1,333 @@
+"""Display encoding: linear premultiplied float images to file-ready values.
+
+The renderer produces linear-light, premultiplied RGBA float32 images of shape
+``(H, W, 4)`` indexed ``[row, col, channel]``. This module turns them into the
+values the writers store:
+
+* :func:`unpremultiply` and :func:`to_display` (exposure, straight or
+  premultiplied alpha, sRGB or linear colour), :func:`quantize` to integer codes;
+* :func:`dilate_colour`: fill the colour of fully transparent texels from the
+  nearest covered texel so texture filtering does not pull in black;
+* map encoders for data textures: :func:`encode_signed` (motion vectors),
+  :func:`encode_depth`, :func:`encode_normal`.
+
+Nothing here reads or writes files.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from splatter.colorspace import srgb_encode
+
+__all__ = [
+    "unpremultiply",
+    "to_display",
+    "quantize",
+    "dilate_colour",
+    "encode_signed",
+    "encode_depth",
+    "encode_normal",
+]
+
+_ALPHAS = ("straight", "premultiplied")
+_COLORS = ("srgb", "linear")
+
+
+def _check_rgba(rgba, name="rgba"):
+    a = np.asarray(rgba)
+    if a.ndim != 3 or a.shape[2] != 4:
+        raise ValueError(f"{name}: expected an (H, W, 4) array, got shape {a.shape}")
+    if not np.issubdtype(a.dtype, np.floating):
+        raise TypeError(f"{name}: expected a float array, got {a.dtype}")
+    return a.astype(np.float32, copy=False)
+
+
+def unpremultiply(rgba):
+    """Divide colour by alpha: premultiplied to straight (unassociated) alpha.
+
+    Parameters
+    ----------
+    rgba : (H, W, 4) float ndarray
+        Premultiplied RGBA.
+
+    Returns
+    -------
+    (H, W, 4) float32 ndarray
+        Straight RGBA; alpha unchanged. Where alpha is 0 the colour is 0
+        (the W3C PNG specification's rule for fully transparent pixels
+        is that their colour carries no meaning; 0 is the tidy choice).
+    """
+    a = _check_rgba(rgba)
+    out = np.zeros_like(a, dtype=np.float32)
+    alpha = a[..., 3]
+    covered = alpha > 0
+    out[..., 3] = alpha
+    # Divide only where covered: no 0/0 warnings, and alpha-0 colour stays 0.
+    np.divide(a[..., :3], alpha[..., None], out=out[..., :3], where=covered[..., None])
+    return out
+
+
+def to_display(rgba_premult_linear, *, alpha="straight", color="srgb", exposure=0.0):
+    """Apply exposure and encode colour and alpha for a display-referred file.
+
+    Parameters
+    ----------
+    rgba_premult_linear : (H, W, 4) float ndarray
+        Linear-light premultiplied RGBA.
+    alpha : {"straight", "premultiplied"}
+        Alpha association of the result.
+    color : {"srgb", "linear"}
+        ``"srgb"`` applies the IEC 61966-2-1 transfer function to colour;
+        ``"linear"`` leaves it linear. Alpha is never transfer-encoded.
+    exposure : float
+        Stops: colour is multiplied by ``2 ** exposure`` before encoding.
+
+    Returns
+    -------
+    (H, W, 4) float32 ndarray
+        Values in [0, 1].
+
+    Notes
+    -----
+    Straight colour (premultiplied / alpha) above 1 is clipped to 1; alpha is
+    clipped to [0, 1]. A straight result cannot hold light at alpha 0 (pure
+    emission from additive blending); it is dropped there.
+
+    For ``alpha="premultiplied", color="srgb"`` the straight colour is encoded
+    and then multiplied by alpha: ``out_rgb = srgb(straight) * alpha``. This is
+    the usual convention for premultiplied 8-bit textures (common practice):
+    the shader then composites ``src + (1 - a) * dst`` on encoded values.
+    For ``color="linear"`` premultiplied output is simply the clipped input.
+    """
+    if alpha not in _ALPHAS:
+        raise ValueError(f"alpha: expected one of {_ALPHAS}, got {alpha!r}")
+    if color not in _COLORS:
+        raise ValueError(f"color: expected one of {_COLORS}, got {color!r}")
+    if not np.isfinite(exposure):
+        raise ValueError(f"exposure: expected a finite number of stops, got {exposure!r}")
+    a = _check_rgba(rgba_premult_linear, "rgba_premult_linear")
+    scaled = a.copy()
+    if exposure != 0.0:
+        scaled[..., :3] *= np.float32(2.0 ** float(exposure))
+    np.clip(scaled[..., 3], 0.0, 1.0, out=scaled[..., 3])
+    if color == "linear" and alpha == "premultiplied":
+        # Keep colour <= alpha so the result stays a valid premultiplied pixel.
+        out = scaled
+        np.clip(out[..., :3], 0.0, out[..., 3:4], out=out[..., :3])
+        return out
+    out = unpremultiply(scaled)
+    np.clip(out[..., :3], 0.0, 1.0, out=out[..., :3])
+    if color == "srgb":
+        out[..., :3] = srgb_encode(out[..., :3])
+    if alpha == "premultiplied":
+        out[..., :3] *= out[..., 3:4]
+    return out
+
+
+def quantize(x, bits):
+    """Round values in [0, 1] to unsigned integer codes.
+
+    Parameters
+    ----------
+    x : (...) float ndarray
+        Values; clipped to [0, 1]. NaN becomes 0.
+    bits : {8, 16}
+        Code width.
+
+    Returns
+    -------
+    (...) uint8 or uint16 ndarray
+        ``floor(x * (2**bits - 1) + 0.5)``: round half up.
+    """
+    if bits not in (8, 16):
+        raise ValueError(f"bits: expected 8 or 16, got {bits!r}")
+    top = float(2**bits - 1)
+    v = np.nan_to_num(np.asarray(x, dtype=np.float64), nan=0.0)
+    v = np.floor(np.clip(v, 0.0, 1.0) * top + 0.5)
+    return v.astype(np.uint8 if bits == 8 else np.uint16)
+
+
+# --- dilation -------------------------------------------------------------
+
+_NEIGHBOURS = [(dy, dx) for dy in (-1, 0, 1) for dx in (-1, 0, 1) if (dy, dx) != (0, 0)]
+
+
+def _jump_flood(covered):
+    """Nearest covered texel of every texel, by jump flooding.
+
+    Parameters
+    ----------
+    covered : (H, W) bool ndarray
+        Seeds; at least one must be True.
+
+    Returns
+    -------
+    sy, sx : (H, W) int32 ndarrays
+        Row and column of the chosen seed for each texel (a seed maps to itself).
+
+    Notes
+    -----
+    Jump flooding (Rong and Tan, "Jump Flooding in GPU with Applications to
+    Voronoi Diagram and Distance Transform", I3D 2006): steps N/2, N/4, ..., 1,
+    each texel looking at 8 neighbours at the step distance, plus one extra
+    pass at step 1 ("JFA+1") which removes almost all of the rare errors.
+    ``O(pixels log N)`` work. Each pass reads a snapshot and visits the
+    neighbours in a fixed order with a strict ``<`` comparison, so ties and
+    results are deterministic.
+    """
+    h, w = covered.shape
+    rows, cols = np.nonzero(covered)
+    sy = np.full((h, w), -1, dtype=np.int32)
+    sx = np.full((h, w), -1, dtype=np.int32)
+    sy[rows, cols] = rows
+    sx[rows, cols] = cols
+    big = np.iinfo(np.int64).max
+    best = np.full((h, w), big, dtype=np.int64)
+    best[covered] = 0
+    r_all = np.arange(h, dtype=np.int64)[:, None]
+    c_all = np.arange(w, dtype=np.int64)[None, :]
+    steps = []
+    k = 1
+    while k < max(h, w):
+        k *= 2
+    k //= 2
+    while k >= 1:
+        steps.append(k)
+        k //= 2
+    steps.append(1)
+    for step in steps:
+        py, px = sy.copy(), sx.copy()
+        for dy, dx in _NEIGHBOURS:
+            oy, ox = dy * step, dx * step
+            if abs(oy) >= h or abs(ox) >= w:
+                continue
+            # Texels [r0:r1, c0:c1] look at texels shifted by (oy, ox).
+            r0, r1 = max(0, -oy), h - max(0, oy)
+            c0, c1 = max(0, -ox), w - max(0, ox)
+            cy = py[r0 + oy : r1 + oy, c0 + ox : c1 + ox]
+            cx = px[r0 + oy : r1 + oy, c0 + ox : c1 + ox]
+            d2 = (cy - r_all[r0:r1]) ** 2 + (cx - c_all[:, c0:c1]) ** 2
+            better = (cy >= 0) & (d2 < best[r0:r1, c0:c1])
+            np.copyto(best[r0:r1, c0:c1], d2, where=better)
+            np.copyto(sy[r0:r1, c0:c1], cy, where=better)
+            np.copyto(sx[r0:r1, c0:c1], cx, where=better)
+    return sy, sx
+
+
+def dilate_colour(straight_rgba, *, mask=None):
+    """Give uncovered texels the colour of the nearest covered texel.
+
+    Straight-alpha textures are filtered (bilinear, mipmaps) on straight
+    colour; transparent texels with colour 0 then pull black into the edges of
+    every puff. Filling them with the nearest covered colour (dilation, common
+    practice for straight-alpha sprite sheets) removes the fringe. Alpha is not
+    changed, so the image composites exactly as before at full resolution.
+
+    Parameters
+    ----------
+    straight_rgba : (H, W, C) float ndarray
+        Straight (unassociated) colour in the first ``C - 1`` channels and
+        alpha last (``C`` is usually 4).
+    mask : (H, W) bool ndarray, optional
+        Texels whose colour is kept. Default: ``alpha > 0``.
+
+    Returns
+    -------
+    (H, W, C) float32 ndarray
+        Covered texels unchanged; the rest take the colour of the nearest
+        covered texel (Euclidean distance, jump flooding; ties resolved in a
+        fixed order). If nothing is covered the image is returned unchanged.
+    """
+    a = np.asarray(straight_rgba)
+    if a.ndim != 3 or a.shape[2] < 2:
+        raise ValueError(f"straight_rgba: expected an (H, W, C>=2) array, got shape {a.shape}")
+    out = a.astype(np.float32, copy=True)
+    if mask is None:
+        covered = out[..., -1] > 0
+    else:
+        covered = np.asarray(mask, dtype=bool)
+        if covered.shape != out.shape[:2]:
+            raise ValueError(f"mask: expected shape {out.shape[:2]}, got {covered.shape}")
+    if covered.all() or not covered.any():
+        return out
+    sy, sx = _jump_flood(covered)
+    hole = ~covered
+    out[hole, :-1] = out[sy[hole], sx[hole], :-1]
+    return out
+
+
+# --- data maps ------------------------------------------------------------
+
+
+def encode_signed(x, strength):
+    """Encode signed values into [0, 1] around 0.5.
+
+    Parameters
+    ----------
+    x : (...) float ndarray
+        Signed values (for example a UV displacement per frame).
+    strength : float
+        Value that maps to 1 (and ``-strength`` to 0); must be > 0.
+
+    Returns
+    -------
+    (...) float32 ndarray
+        ``0.5 + 0.5 * clip(x / strength, -1, 1)`` (common practice for motion
+        vectors in 8-bit maps); 0 encodes as exactly 0.5.
+    """
+    if not (np.isfinite(strength) and strength > 0):
+        raise ValueError(f"strength: expected a finite number > 0, got {strength!r}")
+    v = np.asarray(x, dtype=np.float64) / float(strength)
+    v = np.nan_to_num(v, nan=0.0, posinf=1.0, neginf=-1.0)
+    return (0.5 + 0.5 * np.clip(v, -1.0, 1.0)).astype(np.float32)
+
+
+def encode_depth(z, near, far):
+    """Encode view depth linearly into [0, 1].
+
+    Parameters
+    ----------
+    z : (...) float ndarray
+        Depth along the view axis, world units. Non-finite values (``inf`` or
+        ``nan``) mark background.
+    near, far : float
+        Depths that map to 0 and 1; ``far > near``.
+
+    Returns
+    -------
+    (...) float32 ndarray
+        ``clip((z - near) / (far - near), 0, 1)``; background is 1 (as far
+        as possible).
+    """
+    if not (np.isfinite(near) and np.isfinite(far) and far > near):
+        raise ValueError(f"near, far: expected finite numbers with far > near, got {near!r}, {far!r}")
+    z = np.asarray(z, dtype=np.float64)
+    v = (z - float(near)) / (float(far) - float(near))
+    v = np.where(np.isfinite(v), np.clip(v, 0.0, 1.0), 1.0)
+    return v.astype(np.float32)
+
+
+def encode_normal(n, *, y_down=False):
+    """Encode unit normals as colours.
+
+    Parameters
+    ----------
+    n : (..., 3) float ndarray
+        Normals in image space: +X right, +Y up, +Z toward the viewer.
+    y_down : bool
+        Flip the green channel (the "+Y down" convention some engines use).
+
+    Returns
+    -------
+    (..., 3) float32 ndarray
+        ``n * 0.5 + 0.5`` clipped to [0, 1]; a flat normal (0, 0, 1) encodes
+        as (0.5, 0.5, 1.0). This is the glTF 2.0 normal-texture convention.
+    """
+    n = np.asarray(n, dtype=np.float64)
+    if n.ndim < 1 or n.shape[-1] != 3:
+        raise ValueError(f"n: expected an (..., 3) array, got shape {n.shape}")
+    n = np.nan_to_num(n, nan=0.0)
+    if y_down:
+        n = n * np.array([1.0, -1.0, 1.0])
+    return np.clip(n * 0.5 + 0.5, 0.0, 1.0).astype(np.float32)

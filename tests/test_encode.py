@@ -1,0 +1,138 @@
+"""Display encoding, quantization, dilation and data-map encoders."""
+
+import numpy as np
+import pytest
+from scipy import ndimage
+
+from splatter.encode import (
+    dilate_colour,
+    encode_depth,
+    encode_normal,
+    encode_signed,
+    quantize,
+    to_display,
+    unpremultiply,
+)
+
+
+def _px(r, g, b, a):
+    return np.array([[[r, g, b, a]]], np.float32)
+
+
+def test_srgb_reference_values():
+    # IEC 61966-2-1:1999 encode: 0.0031308 -> 0.0404499, 0.01 -> 0.0998528,
+    # 0.18 -> 0.4613561, 0.5 -> 0.7353570, 1.0 -> 1.0.
+    lin = np.array([0.0031308, 0.01, 0.18, 0.5, 1.0], np.float32)
+    img = np.ones((1, 5, 4), np.float32)
+    img[0, :, :3] = lin[:, None]
+    out = to_display(img)
+    np.testing.assert_allclose(out[0, :, 0], [0.0404499, 0.0998528, 0.4613561, 0.7353570, 1.0], atol=1e-6)
+    np.testing.assert_array_equal(quantize(out[0, :, 0], 8), [10, 25, 118, 188, 255])
+
+
+def test_unpremultiply():
+    # W3C PNG spec, "Alpha representation": straight = premultiplied / alpha; alpha 0 -> colour 0.
+    out = unpremultiply(np.concatenate([_px(0.25, 0.1, 0.0, 0.5), _px(0.3, 0.3, 0.3, 0.0)], axis=1))
+    np.testing.assert_allclose(out[0, 0], [0.5, 0.2, 0.0, 0.5], rtol=1e-6)
+    np.testing.assert_array_equal(out[0, 1], [0, 0, 0, 0])
+    assert out.dtype == np.float32
+
+
+def test_to_display_modes():
+    p = _px(0.25, 0.0, 0.0, 0.5)
+    # straight sRGB: srgb(0.5) = 0.7353570 (IEC 61966-2-1)
+    assert to_display(p)[0, 0, 0] == pytest.approx(0.7353570, abs=1e-6)
+    # premultiplied sRGB: encode straight then multiply by alpha (common practice)
+    assert to_display(p, alpha="premultiplied")[0, 0, 0] == pytest.approx(0.7353570 * 0.5, abs=1e-6)
+    # linear straight / premultiplied
+    assert to_display(p, color="linear")[0, 0, 0] == pytest.approx(0.5)
+    assert to_display(p, color="linear", alpha="premultiplied")[0, 0, 0] == pytest.approx(0.25)
+    # exposure in stops: +1 doubles linear colour, alpha unchanged
+    e = to_display(_px(0.09, 0.0, 0.0, 1.0), exposure=1.0, color="linear")
+    assert e[0, 0, 0] == pytest.approx(0.18) and e[0, 0, 3] == 1.0
+    # HDR colour clips to 1 in display values
+    assert to_display(_px(3.0, 0.0, 0.0, 1.0))[0, 0, 0] == 1.0
+    with pytest.raises(ValueError, match="alpha"):
+        to_display(p, alpha="assoc")
+    with pytest.raises(ValueError, match="color"):
+        to_display(p, color="rec709")
+    with pytest.raises(ValueError, match="rgba_premult_linear"):
+        to_display(np.zeros((2, 2, 3), np.float32))
+
+
+def test_quantize_round_half_up_and_clip():
+    # round half up: 0.5 * 255 = 127.5 -> 128; clip outside [0, 1]
+    x = np.array([-0.2, 0.0, 127.5 / 255, 127.49 / 255, 1.0, 1.7, np.nan])
+    np.testing.assert_array_equal(quantize(x, 8), [0, 0, 128, 127, 255, 255, 0])
+    q16 = quantize(np.array([0.5, 1.0]), 16)
+    assert q16.dtype == np.uint16 and list(q16) == [32768, 65535]
+    with pytest.raises(ValueError, match="bits"):
+        quantize(x, 10)
+
+
+def test_dilation_matches_exact_nearest_texel():
+    # Reference: scipy's exact Euclidean distance transform gives the distance
+    # to the nearest covered texel; the texel we copy from must be at that
+    # distance (ties may pick a different texel at the same distance).
+    rng = np.random.default_rng(3)
+    h, w = 97, 130
+    img = np.zeros((h, w, 4), np.float32)
+    covered = rng.random((h, w)) < 0.004
+    covered[40:50, 60:75] = True
+    img[covered, :3] = rng.random((covered.sum(), 3))
+    img[covered, 3] = rng.uniform(0.1, 1, covered.sum())
+    out = dilate_colour(img)
+    np.testing.assert_array_equal(out[covered], img[covered])  # covered unchanged
+    np.testing.assert_array_equal(out[..., 3], img[..., 3])  # alpha unchanged
+    dist = ndimage.distance_transform_edt(~covered)
+    # Recover which texel was copied: every covered colour is unique.
+    lookup = {tuple(img[r, c, :3]): (r, c) for r, c in zip(*np.nonzero(covered))}
+    rr, cc = np.mgrid[0:h, 0:w]
+    got = np.zeros((h, w))
+    for r, c in zip(*np.nonzero(~covered)):
+        sr, sc = lookup[tuple(out[r, c, :3])]
+        got[r, c] = np.hypot(sr - r, sc - c)
+    # JFA+1 is exact for nearly every texel; allow a tiny share of near-misses.
+    miss = got[~covered] > dist[~covered] + 1e-9
+    assert miss.mean() < 0.002
+    assert np.max(got[~covered] - dist[~covered]) < 1.5
+
+
+def test_dilation_edge_cases():
+    empty = np.zeros((5, 5, 4), np.float32)
+    np.testing.assert_array_equal(dilate_colour(empty), empty)  # fully transparent stays 0
+    one = empty.copy()
+    one[2, 3] = (0.2, 0.4, 0.6, 1.0)
+    out = dilate_colour(one)
+    np.testing.assert_allclose(out[..., :3], np.broadcast_to([0.2, 0.4, 0.6], (5, 5, 3)))
+    np.testing.assert_array_equal(out[..., 3], one[..., 3])
+    # deterministic: same input, same output
+    rng = np.random.default_rng(1)
+    img = np.where(rng.random((31, 29, 1)) < 0.05, rng.random((31, 29, 4)), 0).astype(np.float32)
+    np.testing.assert_array_equal(dilate_colour(img), dilate_colour(img))
+    with pytest.raises(ValueError, match="mask"):
+        dilate_colour(img, mask=np.ones((3, 3), bool))
+
+
+def test_encode_signed():
+    # 0.5 + 0.5 clamp(d / s, -1, 1) (common practice for motion maps)
+    out = encode_signed(np.array([0.0, 0.01, -0.02, 0.5]), 0.02)
+    np.testing.assert_allclose(out, [0.5, 0.75, 0.0, 1.0])
+    with pytest.raises(ValueError, match="strength"):
+        encode_signed(np.zeros(2), 0.0)
+
+
+def test_encode_depth():
+    out = encode_depth(np.array([2.0, 6.0, 10.0, 12.0, np.inf, np.nan]), 2.0, 10.0)
+    np.testing.assert_allclose(out, [0.0, 0.5, 1.0, 1.0, 1.0, 1.0])
+    with pytest.raises(ValueError, match="near"):
+        encode_depth(np.zeros(2), 5.0, 5.0)
+
+
+def test_encode_normal():
+    # glTF 2.0: flat normal (0, 0, 1) -> (0.5, 0.5, 1.0); +Y up; Y-down flips green.
+    n = np.array([[0.0, 0.0, 1.0], [0.0, 1.0, 0.0], [1.0, 0.0, 0.0]])
+    np.testing.assert_allclose(encode_normal(n), [[0.5, 0.5, 1.0], [0.5, 1.0, 0.5], [1.0, 0.5, 0.5]])
+    np.testing.assert_allclose(encode_normal(n, y_down=True)[1], [0.5, 0.0, 0.5])
+    with pytest.raises(ValueError, match="n"):
+        encode_normal(np.zeros((2, 2)))
