@@ -1,0 +1,202 @@
+"""Sprite-sheet layout, assembly, dilation against mip fringes, metadata."""
+
+import json
+import math
+
+import numpy as np
+import pytest
+
+from splatter.sheet import assemble_sheet, sheet_layout, write_lightdirs_sheets, write_map_sheet, write_sheet
+from splatter.write_exr import read_exr
+from splatter.write_png import read_png, write_png
+
+
+def _puff_frames(n, h, w, colour=(0.8, 0.5, 0.3), seed=0):
+    """Soft discs of one straight colour, premultiplied, at varying places."""
+    rng = np.random.default_rng(seed)
+    rr, cc = np.mgrid[0:h, 0:w] + 0.5
+    out = []
+    for _ in range(n):
+        cy, cx = rng.uniform(0.3, 0.7, 2) * (h, w)
+        r = rng.uniform(0.2, 0.45) * min(h, w)
+        a = np.clip(1.0 - np.hypot(rr - cy, cc - cx) / r, 0.0, 1.0).astype(np.float32) * 0.9
+        f = np.zeros((h, w, 4), np.float32)
+        f[..., :3] = np.asarray(colour, np.float32) * a[..., None]
+        f[..., 3] = a
+        out.append(f)
+    return out
+
+
+def test_frame_10_of_8x8_256px():
+    # Common practice (row by row from the top-left): 8 x 8 of 256 px on 2048 px,
+    # frame 10 covers x in [512, 768), y in [256, 512).
+    for pow2 in (False, True):
+        lay = sheet_layout(64, 256, 256, pow2=pow2)
+        assert (lay.columns, lay.rows, lay.width, lay.height) == (8, 8, 2048, 2048)
+        c = lay.cells[10]
+        assert (c.x, c.x + c.w, c.y, c.y + c.h) == (512, 768, 256, 512)
+
+
+@pytest.mark.parametrize("n, cols, rows", [(1, 1, 1), (2, 2, 1), (10, 4, 3), (16, 4, 4), (17, 5, 4), (64, 8, 8)])
+def test_default_grid_is_near_square(n, cols, rows):
+    # columns = ceil(sqrt(n)), rows = ceil(n / columns)
+    assert cols == math.ceil(math.sqrt(n)) and rows == math.ceil(n / cols)
+    lay = sheet_layout(n, 32, 32)
+    assert (lay.columns, lay.rows) == (cols, rows)
+    # row by row: column k mod C, row k // C (common practice)
+    for k, c in enumerate(lay.cells):
+        assert (c.x, c.y) == ((k % cols) * 32, (k // cols) * 32)
+
+
+def test_columns_or_rows_given():
+    assert (sheet_layout(10, 8, 8, columns=5).rows) == 2
+    assert (sheet_layout(10, 8, 8, rows=3).columns) == 4
+    with pytest.raises(ValueError, match="columns, rows"):
+        sheet_layout(10, 8, 8, columns=3, rows=3)
+
+
+@pytest.mark.parametrize("fw, fh, pad, n", [(100, 60, 0, 7), (37, 53, 3, 12), (256, 256, 2, 64), (9, 8, 1, 3)])
+def test_sizes_multiple_of_4_and_pow2(fw, fh, pad, n):
+    # Block compression wants multiples of 4; pow2 wants powers of two (common practice).
+    lay = sheet_layout(n, fw, fh, padding=pad)
+    assert lay.width % 4 == 0 and lay.height % 4 == 0
+    assert lay.width >= lay.columns * (fw + 2 * pad) and lay.width - lay.columns * (fw + 2 * pad) < 4
+    assert all(c.w == fw and c.h == fh for c in lay.cells)
+    # padding on every side: content starts pad px into its cell
+    assert lay.cells[0].x == pad and lay.cells[0].y == pad
+    p2 = sheet_layout(n, fw, fh, padding=pad, pow2=True)
+    for s, grid in ((p2.width, p2.columns * fw), (p2.height, p2.rows * fh)):
+        assert s & (s - 1) == 0 and s >= grid and s // 2 < grid
+    for c in p2.cells:  # content fits inside the sheet, cells do not overlap
+        assert c.x + c.w + pad <= p2.width and c.y + c.h + pad <= p2.height
+        assert c.w == p2.width // p2.columns - 2 * pad
+
+
+def test_cells_equal_frames():
+    frames = _puff_frames(7, 20, 30)
+    lay = sheet_layout(7, 30, 20, padding=2)
+    sheet = assemble_sheet(iter(frames), lay)
+    assert sheet.shape == (lay.height, lay.width, 4) and sheet.dtype == np.float32
+    for c, f in zip(lay.cells, frames):
+        np.testing.assert_array_equal(sheet[c.y : c.y + c.h, c.x : c.x + c.w], f)
+    # nothing outside the content rectangles
+    mask = np.zeros(sheet.shape[:2], bool)
+    for c in lay.cells:
+        mask[c.y : c.y + c.h, c.x : c.x + c.w] = True
+    assert not sheet[~mask].any()
+
+
+def test_png_sheet_cells_equal_frame_files_where_covered(tmp_path):
+    frames = _puff_frames(5, 24, 24, seed=4)
+    lay = sheet_layout(5, 24, 24, padding=2)
+    paths = write_sheet(tmp_path, "quay_dust", frames, lay, fps=24, loop="exact")
+    codes, info = read_png(paths[0])
+    assert info["srgb"] == 0 and codes.shape == (lay.height, lay.width, 4)
+    for c, f in zip(lay.cells, frames):
+        write_png(tmp_path / "one.png", f)
+        one, _ = read_png(tmp_path / "one.png")
+        cut = codes[c.y : c.y + c.h, c.x : c.x + c.w]
+        covered = one[..., 3] > 0
+        np.testing.assert_array_equal(cut[covered], one[covered])
+        np.testing.assert_array_equal(cut[..., 3], one[..., 3])
+
+
+def _mip_straight(codes):
+    """One 2x box-filter mip level of straight-alpha texels, as texture hardware filters them."""
+    v = codes.astype(np.float64) / 255.0
+    h, w = v.shape[0] // 2 * 2, v.shape[1] // 2 * 2
+    v = v[:h, :w]
+    return 0.25 * (v[0::2, 0::2] + v[1::2, 0::2] + v[0::2, 1::2] + v[1::2, 1::2])
+
+
+@pytest.mark.parametrize("dilated", [True, False])
+def test_dilation_prevents_black_fringe_in_mips(tmp_path, dilated):
+    # Common practice: straight-alpha texels with alpha 0 take the nearest covered
+    # colour so filtering does not pull in black. Every puff has one straight colour,
+    # so any mip texel with alpha > 0 should keep that colour.
+    colour = (0.8, 0.5, 0.3)
+    frames = _puff_frames(4, 32, 32, colour=colour, seed=2)
+    lay = sheet_layout(4, 32, 32, padding=2)
+    if dilated:
+        write_sheet(tmp_path, "vent", frames, lay)
+        codes, _ = read_png(tmp_path / "vent.sheet.png")
+    else:
+        # the same sheet without dilation: write_png of the assembled sheet
+        write_png(tmp_path / "raw.png", assemble_sheet(frames, lay))
+        codes, _ = read_png(tmp_path / "raw.png")
+    mip = _mip_straight(codes)
+    target = np.round(np.array([0.9063, 0.7354, 0.5838]) * 255) / 255  # srgb(colour), IEC 61966-2-1
+    seen = mip[..., 3] > 0
+    darkening = (target - mip[seen][:, :3]).max()
+    if dilated:
+        assert darkening < 2.5 / 255  # only 8-bit rounding
+    else:
+        assert darkening > 0.1  # the undilated sheet does darken: the check can fail
+
+
+def test_pow2_resamples_into_cells():
+    # 5 frames of 100 x 60 -> grid 3 x 2 = 300 x 120 -> 512 x 128, cells 170 x 64.
+    frames = [np.full((60, 100, 4), 0.5, np.float32) for _ in range(5)]
+    lay = sheet_layout(5, 100, 60, pow2=True, padding=1)
+    assert (lay.width, lay.height, lay.cell_width, lay.cell_height) == (512, 128, 170, 64)
+    assert lay.resampled
+    sheet = assemble_sheet(frames, lay)
+    c = lay.cells[4]
+    assert (c.w, c.h) == (168, 62)
+    # an interpolating filter keeps a constant image constant (Lanczos weights sum to 1)
+    np.testing.assert_allclose(sheet[c.y : c.y + c.h, c.x : c.x + c.w], 0.5, atol=1e-5)
+
+
+def test_metadata_json(tmp_path):
+    frames = _puff_frames(6, 16, 16, seed=5)
+    lay = sheet_layout(6, 16, 16, columns=3, padding=1)
+    motion = write_map_sheet(tmp_path, "chimney", "motion", [np.full((16, 16, 2), 0.5, np.float32)] * 6, lay,
+                             encoding="0.5+0.5*clamp(d/s,-1,1)", scale=0.05)
+    normal = write_map_sheet(tmp_path, "chimney", "normal", [np.full((16, 16, 3), 0.5, np.float32)] * 6, lay,
+                             encoding="n*0.5+0.5", convention="+y up")
+    light = write_lightdirs_sheets(tmp_path, "chimney", [np.zeros((16, 16, 3), np.float32)] * 6,
+                                   [np.ones((16, 16, 3), np.float32)] * 6, lay)
+    paths = write_sheet(tmp_path, "chimney", frames, lay, fps=25, loop="crossfade",
+                        maps={"motion": motion, "normal": normal, "lightdirs": light})
+    meta = json.loads(open(paths[1]).read())
+    assert meta["version"] == 1 and meta["image"] == "chimney.sheet.png"
+    assert (meta["width"], meta["height"], meta["columns"], meta["rows"], meta["frames"]) == (56, 36, 3, 2, 6)
+    assert meta["alpha"] == "straight" and meta["color"] == "srgb" and meta["fps"] == 25 and meta["loop"] == "crossfade"
+    assert meta["cells"][4] == {"frame": 4, "x": 19, "y": 19, "w": 16, "h": 16}
+    assert meta["maps"]["motion"]["file"] == "chimney.motion.sheet.png" and meta["maps"]["motion"]["scale"] == 0.05
+    assert meta["maps"]["normal"]["convention"] == "+y up"
+    for entry in (meta["maps"]["motion"], meta["maps"]["normal"]):
+        codes, info = read_png(tmp_path / entry["file"])
+        assert info["srgb"] is None and codes.shape[:2] == (36, 56)  # data, not colour
+    assert [read_png(tmp_path / f)[0].shape[2] for f in light["files"]] == [3, 3]
+
+
+def test_exr_sheet_is_premultiplied_linear(tmp_path):
+    frames = _puff_frames(3, 12, 12, seed=6)
+    frames[0][2, 2] = (2.5, 0.0, 0.0, 0.5)  # HDR kept in EXR
+    lay = sheet_layout(3, 12, 12)
+    paths = write_sheet(tmp_path, "mist", frames, lay, format="exr", exr_type="float", alpha="straight")
+    meta = json.loads(open(paths[1]).read())
+    assert meta["alpha"] == "premultiplied" and meta["color"] == "linear"  # OpenEXR convention
+    back = read_exr(paths[0])
+    sheet = np.stack([back[c] for c in "RGBA"], -1)
+    np.testing.assert_array_equal(sheet, assemble_sheet(frames, lay))
+    m = write_map_sheet(tmp_path, "mist", "depth", [np.full((12, 12, 1), 4.0, np.float32)] * 3, lay,
+                        encoding="raw", format="exr", channels=("z",))
+    assert set(read_exr(tmp_path / m["file"])) == {"depth.z"}
+
+
+def test_errors(tmp_path):
+    lay = sheet_layout(2, 8, 8)
+    with pytest.raises(ValueError, match="frames"):
+        assemble_sheet([np.zeros((8, 8, 4), np.float32)], lay)
+    with pytest.raises(ValueError, match="frames"):
+        assemble_sheet([np.zeros((8, 8, 4), np.float32)] * 3, lay)
+    with pytest.raises(ValueError, match=r"frames\[1\]"):
+        assemble_sheet([np.zeros((8, 8, 4)), np.zeros((8, 9, 4))], lay)
+    with pytest.raises(ValueError, match="padding"):
+        sheet_layout(4, 8, 8, padding=4, pow2=True)
+    with pytest.raises(ValueError, match="n_frames"):
+        sheet_layout(0, 8, 8)
+    with pytest.raises(ValueError, match="loop"):
+        write_sheet(tmp_path, "x", [np.zeros((8, 8, 4), np.float32)] * 2, lay, loop="forever")
