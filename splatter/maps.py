@@ -1,0 +1,48 @@
+"""Image-space maps derived from a composited frame (after the compositor).
+
+The normal map treats the smoke's coverage as a height field: the height at
+a pixel is ``H * alpha`` with ``H = 1.65 sigma`` (``sigma`` the frame's median
+puff radius in pixels), which makes a lone Gaussian puff slope at 45 degrees
+one sigma from its centre, as a sphere's silhouette does.  Normals are
+view-space, +X right, +Y up, +Z toward the viewer (glTF 2.0 convention);
+flat where there is no smoke.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["normal_map"]
+
+_SLOPE = float(np.exp(0.5))  # H / sigma giving slope 1 at r = sigma for a Gaussian bump
+
+
+def normal_map(alpha, sigma_px):
+    """View-space normals of the smoke, from its alpha as a height field.
+
+    Parameters
+    ----------
+    alpha : (H, W) float32 ndarray
+        Coverage of the frame.
+    sigma_px : float
+        Typical puff radius (1 sigma) in pixels.
+
+    Returns
+    -------
+    dict of str to (H, W) float32 ndarray
+        ``normal.x``, ``normal.y``, ``normal.z``: unit vectors, +Y up.
+    """
+    a = np.asarray(alpha, dtype=np.float64)
+    height = _SLOPE * max(float(sigma_px), 0.5) * a
+    # Central differences (one-sided at the border); image y runs down.
+    dh_dx = np.gradient(height, axis=1)
+    dh_dy_down = np.gradient(height, axis=0)
+    nx = -dh_dx
+    ny = dh_dy_down  # d/dy_up = -d/dy_down, and n_y = -dh/dy_up
+    nz = np.ones_like(height)
+    norm = np.sqrt(nx * nx + ny * ny + nz * nz)
+    return {
+        "normal.x": (nx / norm).astype(np.float32),
+        "normal.y": (ny / norm).astype(np.float32),
+        "normal.z": (nz / norm).astype(np.float32),
+    }
