@@ -1,0 +1,500 @@
+"""The simulate stage: puffs born, moved and aged, frame by frame.
+
+Public: :func:`plan_simulation`, :func:`simulate`, :func:`save_states`, and
+the records :class:`SimPlan` and :class:`FrameState`.
+
+Time is counted in whole steps of ``dt = 1 / (fps * substeps)`` from the
+start of the warm-up (step 0); frame ``f`` is the state at step boundary
+``W + f * substeps`` (``W`` warm-up steps), clip time ``f / fps``.  At each
+boundary the puffs are first advanced by one step, then the puffs due at
+that boundary are born, then puffs whose age reached their life (or that hit
+a ``kill`` obstacle) are removed.
+
+Source times (``start``, ``stop``, burst ``time``) are clip times, 0 at
+frame 0.  A source with ``start <= 0`` has been emitting since the start of
+the warm-up, so frame 0 already shows steady smoke; set ``clip.warmup = 0``
+for a source that switches on at frame 0.
+
+Exact loops (``clip.loop = "exact"``): the period is ``P = frames / fps``,
+``Ns = frames * substeps`` steps.  Each source is born on an integer lattice
+(:mod:`splatter.emit`) with a whole number of puffs per period; a puff's
+random draws are keyed by its slot modulo that number; every time-varying
+force sees the time ``(step mod Ns) * dt``; ages are computed from integer
+step counts.  So frame ``frames`` equals frame 0 bit for bit (only ``id``
+differs), provided nothing in :attr:`SimPlan.notes` says otherwise.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import tempfile
+from dataclasses import dataclass
+from fractions import Fraction
+from typing import Iterable, Iterator, Optional, Tuple
+
+import numpy as np
+
+from splatter.emit import N_DRAWS, Schedule, sample_puffs
+from splatter.forces import ForceTables, pack_forces
+from splatter.look import SwirlSpec, WindSpec
+from splatter.integrate import air_velocity, step_puffs
+from splatter.obstacles import ObstacleTables, pack_obstacles
+from splatter.ramps import evaluate_color_ramp, evaluate_ramp
+from splatter.rng import PuffDraws
+
+__all__ = ["SimPlan", "FrameState", "plan_simulation", "simulate", "save_states"]
+
+_MAX_DENOMINATOR = 1 << 20  # rational births per step when not looping: rate error < 1e-6
+
+
+@dataclass(frozen=True, eq=False)
+class SimPlan:
+    """Everything the simulation derives once from a look.
+
+    Attributes
+    ----------
+    dt : float
+        Step, ``1 / (fps * substeps)`` seconds.
+    fps : float
+    substeps : int
+    frames : int
+        ``clip.frames``.
+    integrator : str
+    loop : str
+        ``clip.loop``.
+    warmup_steps : int
+        Steps simulated before frame 0.
+    warmup : float
+        ``warmup_steps * dt`` seconds.
+    period : float or None
+        Loop period ``frames / fps`` when ``loop == "exact"``.
+    period_steps : int or None
+        ``frames * substeps`` when looping exactly.
+    rates : tuple of float
+        Effective puffs per second of each source (snapped when looping).
+    schedules : tuple of Schedule
+        Birth lattice and bursts of each source (see :mod:`splatter.emit`).
+    gust_periods : tuple of tuple of float
+        Per wind force (in force order), the three gust periods used.
+    forces : ForceTables
+    obstacles : ObstacleTables
+    notes : tuple of str
+        Plain sentences: the key, then what was done.
+    steady_state_puffs : float
+        Expected puffs alive at steady state: sum of rate * mean life, plus
+        every burst's count.
+    """
+
+    dt: float
+    fps: float
+    substeps: int
+    frames: int
+    integrator: str
+    loop: str
+    warmup_steps: int
+    warmup: float
+    period: Optional[float]
+    period_steps: Optional[int]
+    rates: Tuple[float, ...]
+    schedules: Tuple[Schedule, ...]
+    gust_periods: Tuple[Tuple[float, ...], ...]
+    forces: ForceTables
+    obstacles: ObstacleTables
+    notes: Tuple[str, ...]
+    steady_state_puffs: float
+
+    def frame_step(self, frame: int) -> int:
+        """Step boundary of ``frame``."""
+        return self.warmup_steps + int(frame) * self.substeps
+
+    def force_time(self, step: int) -> float:
+        """Time the forces see at step boundary ``step``, seconds."""
+        if self.period_steps is not None:
+            return (step % self.period_steps) * self.dt
+        return (step - self.warmup_steps) * self.dt
+
+
+@dataclass(frozen=True, eq=False)
+class FrameState:
+    """The puffs alive at one frame: equal-length arrays, M puffs.
+
+    Attributes
+    ----------
+    frame : int
+    time : float
+        ``frame / fps`` seconds.
+    id : (M,) int64 ndarray
+        Unique per puff, in birth order.
+    slot : (M,) int64 ndarray
+        Spawn slot; when looping exactly, modulo the puffs per period, so a
+        puff and its twin born one period later share it.  Otherwise ``id``.
+    source : (M,) int32 ndarray
+    pos : (M, 3) float64 ndarray
+    vel : (M, 3) float64 ndarray
+        Velocity the puff moves with (own velocity plus swirl/vortex air).
+    age, life : (M,) float64 ndarray
+        Seconds.
+    size : (M,) float64 ndarray
+        Current sigma, world units (birth size times the grow ramp).
+    opacity : (M,) float64 ndarray
+        Current peak opacity (opacity ramp times ``exp(-fade * age)``).
+    color : (M, 3) float64 ndarray
+        Linear colour.
+    glow : (M, 3) float64 ndarray
+        Emitted light, zeros where the source has none.
+    aspect : (M,) float64 ndarray
+        Short-axis to long-axis ratio.
+    quat : (M, 4) float64 ndarray
+        Unit orientation ``(w, x, y, z)``; identity where the source's aspect is 1.
+    stretch, density : (M,) float64 ndarray
+        The source's values.
+
+    Arrays are ordered by ``(source, slot, id)``, the same order at frame 0
+    and frame ``frames`` of an exact loop.
+    """
+
+    frame: int
+    time: float
+    id: np.ndarray
+    slot: np.ndarray
+    source: np.ndarray
+    pos: np.ndarray
+    vel: np.ndarray
+    age: np.ndarray
+    life: np.ndarray
+    size: np.ndarray
+    opacity: np.ndarray
+    color: np.ndarray
+    glow: np.ndarray
+    aspect: np.ndarray
+    quat: np.ndarray
+    stretch: np.ndarray
+    density: np.ndarray
+
+    def __len__(self) -> int:
+        return int(self.id.shape[0])
+
+
+PER_PUFF_FIELDS = ("id", "slot", "source", "pos", "vel", "age", "life", "size", "opacity", "color", "glow",
+                   "aspect", "quat", "stretch", "density")
+
+
+def _fmt(x: float) -> str:
+    return f"{x:.6g}"
+
+
+def _burst_boundary(time: float, warmup_steps: int, steps_per_second: float):
+    x = warmup_steps + time * steps_per_second
+    if abs(x - round(x)) < 1e-9:
+        x = float(round(x))
+    s = max(0, math.ceil(x))
+    return s, max(0.0, s - x)
+
+
+def plan_simulation(look) -> SimPlan:
+    """Derive the step, warm-up, loop period, effective rates and notes of a look.
+
+    Parameters
+    ----------
+    look : LookSpec
+
+    Returns
+    -------
+    SimPlan
+    """
+    clip = look.clip
+    if clip.frames < 1 or not clip.fps > 0 or clip.substeps < 1:
+        raise ValueError(f"clip needs frames >= 1, fps > 0, substeps >= 1; got {clip.frames}, {clip.fps}, "
+                         f"{clip.substeps}")
+    sps = float(clip.fps) * int(clip.substeps)  # steps per second
+    dt = 1.0 / sps
+    notes = []
+    max_life = max((float(s.life[1]) for s in look.sources), default=0.0)
+    exact = clip.loop == "exact"
+    period = clip.frames / clip.fps if exact else None
+    period_steps = clip.frames * clip.substeps if exact else None
+
+    warmup = max_life if clip.warmup is None else float(clip.warmup)
+    warmup_steps = max(0, math.ceil(warmup * sps - 1e-9))
+    if exact and warmup_steps * dt < max_life:
+        warmup_steps = math.ceil(max_life * sps - 1e-9)
+        notes.append(f"clip.warmup: {_fmt(warmup)} s raised to {_fmt(warmup_steps * dt)} s, the longest puff life, "
+                     f"so frame 0 of the exact loop is in steady state")
+    if clip.loop == "crossfade":
+        notes.append(f"clip.loop: crossfade; the simulation runs on past the last frame and the renderer blends "
+                     f"{_fmt(clip.crossfade)} of the clip across the seam")
+
+    rates, schedules = [], []
+    steady = 0.0
+    for i, src in enumerate(look.sources):
+        key = f"source[{i}]"
+        rate = float(src.rate)
+        start = float(src.start)
+        stop = None if src.stop is None else float(src.stop)
+        lo = warmup_steps + start * sps if start > 0 else None
+        hi = None if stop is None else warmup_steps + stop * sps
+        if exact:
+            per = 0
+            if rate > 0:
+                per = max(1, round(rate * period))
+                eff = per / period
+                if eff != rate:
+                    notes.append(f"{key}.rate: {_fmt(rate)}/s snapped to {_fmt(eff)}/s so {per} puffs are born "
+                                 f"per {_fmt(period)} s loop period")
+            eff = per / period
+            sched = Schedule(per=per, steps=period_steps, origin=0, lo=lo, hi=hi)
+            if per and start > 0:
+                notes.append(f"{key}.start: the source starts at {_fmt(start)} s, inside the clip; the exact loop "
+                             f"will show a jump at the seam")
+            if per and stop is not None and stop < period:
+                notes.append(f"{key}.stop: the source stops at {_fmt(stop)} s, before the {_fmt(period)} s loop "
+                             f"period ends; the exact loop will show a jump at the seam")
+            if src.bursts:
+                notes.append(f"{key}.bursts: a burst cannot repeat in an exact loop; the loop will show a jump at "
+                             f"the seam")
+            if per and float(src.life[1]) > period:
+                notes.append(f"{key}.life: puffs live up to {_fmt(src.life[1])} s, longer than the {_fmt(period)} s "
+                             f"loop period, so twins born one period apart are alive together (the loop still "
+                             f"closes exactly)")
+        else:
+            per, steps = 0, 1
+            if rate > 0:
+                frac = Fraction(rate * dt).limit_denominator(_MAX_DENOMINATOR)
+                per, steps = frac.numerator, frac.denominator
+                if per == 0:
+                    notes.append(f"{key}.rate: {_fmt(rate)}/s is below one puff per {_MAX_DENOMINATOR} steps; "
+                                 f"the source emits nothing")
+            eff = per / (steps * dt)
+            origin = 0 if start <= 0 else warmup_steps + round(start * sps)
+            sched = Schedule(per=per, steps=steps, origin=origin, lo=None, hi=hi)
+        bursts = tuple(_burst_boundary(float(b.time), warmup_steps, sps) + (int(b.count),) for b in src.bursts)
+        sched = Schedule(per=sched.per, steps=sched.steps, origin=sched.origin, lo=sched.lo, hi=sched.hi,
+                         bursts=bursts)
+        rates.append(eff)
+        schedules.append(sched)
+        steady += eff * 0.5 * (float(src.life[0]) + float(src.life[1])) + sum(int(b.count) for b in src.bursts)
+
+    forces = pack_forces(look.forces, seed=look.seed, loop_period=period)
+    if exact:
+        w = 0
+        for i, f in enumerate(look.forces):
+            if isinstance(f, WindSpec):
+                used = forces.gust_periods[w][0]
+                w += 1
+                if f.gust > 0 and abs(used - f.gust_period) > 1e-9 * f.gust_period:
+                    notes.append(f"force[{i}].gust_period: {_fmt(f.gust_period)} s snapped to {_fmt(used)} s, a "
+                                 f"whole number of gust cycles per {_fmt(period)} s loop period (the faster gust "
+                                 f"components are snapped the same way)")
+            elif isinstance(f, SwirlSpec) and f.evolve > 0:
+                notes.append(f"force[{i}].evolve: each swirl mode's frequency snapped to a whole number (>= 1) of "
+                             f"cycles per {_fmt(period)} s loop period, so the flow repeats with the loop")
+    return SimPlan(dt=dt, fps=float(clip.fps), substeps=int(clip.substeps), frames=int(clip.frames),
+                   integrator=clip.integrator, loop=clip.loop, warmup_steps=warmup_steps,
+                   warmup=warmup_steps * dt, period=period, period_steps=period_steps, rates=tuple(rates),
+                   schedules=tuple(schedules), gust_periods=forces.gust_periods, forces=forces,
+                   obstacles=pack_obstacles(look.obstacles), notes=tuple(notes), steady_state_puffs=steady)
+
+
+_INT_FIELDS = {"id": np.int64, "slot": np.int64, "source": np.int32, "bstep": np.int64}
+_WIDTH = {"pos": 3, "vel": 3, "quat": 4}
+_STORE = ("id", "slot", "source", "bstep", "bfrac", "life", "size0", "aspect", "quat", "pos", "vel")
+
+
+class _Puffs:
+    """Growable set of live puffs: one array per attribute, birth order."""
+
+    def __init__(self):
+        self.a = {name: np.zeros((0,) + ((_WIDTH[name],) if name in _WIDTH else ()),
+                                 dtype=_INT_FIELDS.get(name, np.float64)) for name in _STORE}
+
+    def __len__(self):
+        return self.a["id"].shape[0]
+
+    def add(self, parts: list):
+        if not parts:
+            return
+        for name in _STORE:
+            self.a[name] = np.concatenate([self.a[name]] + [p[name] for p in parts])
+        self.a["pos"] = np.ascontiguousarray(self.a["pos"])
+        self.a["vel"] = np.ascontiguousarray(self.a["vel"])
+
+    def keep(self, mask: np.ndarray):
+        for name in _STORE:
+            self.a[name] = np.ascontiguousarray(self.a[name][mask])
+
+    def ages(self, step: int, dt: float) -> np.ndarray:
+        # From integers each time, so twins one period apart get the same bits.
+        return ((step - self.a["bstep"]) + self.a["bfrac"]) * dt
+
+
+def _spawn(look, plan: SimPlan, s: int, cursors: list, draws: dict, next_id: int):
+    """Puffs born at boundary ``s``: a list of attribute dicts and the next free id."""
+    parts = []
+    for i, (src, sched) in enumerate(zip(look.sources, plan.schedules)):
+        offset = 0
+        for b, (bstep, bfrac, count) in enumerate(sched.bursts):
+            if bstep == s and count > 0:
+                keys = np.arange(count, dtype=np.int64)
+                u = draws.setdefault((i, 1 + b), PuffDraws(look.seed, i, 1 + b, N_DRAWS))(keys)
+                ids = np.arange(next_id, next_id + count, dtype=np.int64)
+                slots = sched.per + offset + keys if plan.period_steps is not None else ids
+                parts.append(_born(src, u, ids, slots, i, np.full(count, s, dtype=np.int64), np.full(count, bfrac),
+                                   plan.dt))
+                next_id += count
+            offset += count
+        ks = sched.due(cursors[i], s)
+        if ks.size == 0:
+            continue
+        cursors[i] = int(ks[-1]) + 1
+        ks = ks[sched.inside(ks)]
+        if ks.size == 0:
+            continue
+        bstep, bfrac = sched.birth(ks)
+        keys = ks % sched.per if plan.period_steps is not None else ks
+        u = draws.setdefault((i, 0), PuffDraws(look.seed, i, 0, N_DRAWS))(keys)
+        ids = np.arange(next_id, next_id + ks.size, dtype=np.int64)
+        slots = keys if plan.period_steps is not None else ids
+        parts.append(_born(src, u, ids, slots, i, bstep, bfrac, plan.dt))
+        next_id += ks.size
+    return parts, next_id
+
+
+def _born(src, u, ids, slots, source, bstep, bfrac, dt):
+    p = sample_puffs(src, u)
+    age0 = bfrac * dt  # born that long before the boundary: advance ballistically
+    return dict(id=ids, slot=np.asarray(slots, dtype=np.int64), source=np.full(ids.size, source, dtype=np.int32),
+                bstep=bstep, bfrac=bfrac, life=p["life"], size0=p["size"], aspect=p["aspect"], quat=p["quat"],
+                pos=p["pos"] + p["vel"] * age0[:, None], vel=p["vel"])
+
+
+def _frame_state(look, plan: SimPlan, puffs: _Puffs, frame: int, step: int) -> FrameState:
+    a = puffs.a
+    order = np.lexsort((a["id"], a["slot"], a["source"]))
+    pick = {name: a[name][order] for name in _STORE}
+    age = ((step - pick["bstep"]) + pick["bfrac"]) * plan.dt
+    m = age.shape[0]
+    x = age / pick["life"]
+    size = np.empty(m)
+    opacity = np.empty(m)
+    color = np.empty((m, 3))
+    glow = np.zeros((m, 3))
+    stretch = np.empty(m)
+    density = np.empty(m)
+    for i, src in enumerate(look.sources):
+        sel = pick["source"] == i
+        if not sel.any():
+            continue
+        xs = x[sel]
+        size[sel] = pick["size0"][sel] * evaluate_ramp(src.grow, xs)
+        opacity[sel] = evaluate_ramp(src.opacity, xs) * np.exp(-float(src.fade) * age[sel])
+        color[sel] = evaluate_color_ramp(src.color, xs)
+        if src.glow is not None:
+            glow[sel] = evaluate_color_ramp(src.glow, xs)
+        stretch[sel] = float(src.stretch)
+        density[sel] = float(src.density)
+    vel = pick["vel"] + air_velocity(pick["pos"], time=plan.force_time(step), forces=plan.forces)
+    return FrameState(frame=int(frame), time=frame / plan.fps, id=pick["id"], slot=pick["slot"],
+                      source=pick["source"], pos=pick["pos"], vel=vel, age=age, life=pick["life"], size=size,
+                      opacity=opacity, color=color, glow=glow, aspect=pick["aspect"], quat=pick["quat"],
+                      stretch=stretch, density=density)
+
+
+def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int]) -> Iterator[FrameState]:
+    """Run the simulation from the start of the warm-up and yield the requested frames.
+
+    Parameters
+    ----------
+    look : LookSpec
+    plan : SimPlan, optional
+        From :func:`plan_simulation` (made here if not given).
+    frames : iterable of int
+        Frame indices >= 0, any order; they may run past ``clip.frames - 1``
+        (the simulation simply continues).
+
+    Yields
+    ------
+    FrameState
+        One per distinct requested frame, in increasing order.  The states do
+        not depend on which other frames were requested.
+    """
+    wanted = sorted({int(f) for f in frames})
+    if wanted and wanted[0] < 0:
+        raise ValueError(f"frames must be >= 0, got {wanted[0]}")
+    if plan is None:
+        plan = plan_simulation(look)
+    if not wanted:
+        return
+    targets = iter(wanted)
+    frame = next(targets)
+    puffs = _Puffs()
+    cursors = [0] * len(look.sources)
+    draws: dict = {}
+    next_id = 0
+    last = plan.frame_step(wanted[-1])
+    for s in range(last + 1):
+        if s > 0 and len(puffs):
+            age = puffs.ages(s - 1, plan.dt)
+            killed = step_puffs(puffs.a["pos"], puffs.a["vel"], age, dt=plan.dt, time=plan.force_time(s - 1),
+                                forces=plan.forces, obstacles=plan.obstacles, integrator=plan.integrator)
+            if killed.any():
+                puffs.keep(~killed)
+        parts, next_id = _spawn(look, plan, s, cursors, draws, next_id)
+        puffs.add(parts)
+        if len(puffs):
+            alive = puffs.ages(s, plan.dt) < puffs.a["life"]
+            if not alive.all():
+                puffs.keep(alive)
+        while frame is not None and plan.frame_step(frame) == s:
+            yield _frame_state(look, plan, puffs, frame, s)
+            frame = next(targets, None)
+
+
+def _empty(name: str) -> np.ndarray:
+    width = {"pos": 3, "vel": 3, "quat": 4, "color": 3, "glow": 3}.get(name)
+    return np.zeros((0,) if width is None else (0, width), dtype=_INT_FIELDS.get(name, np.float64))
+
+
+def save_states(path, states: Iterable[FrameState]) -> None:
+    """Write frame states to one ``.npz`` file, atomically.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        Destination; written to a temporary file in the same folder, then
+        moved into place with ``os.replace``.
+    states : iterable of FrameState
+
+    Notes
+    -----
+    Arrays: ``frame_start (F+1,) int64`` (puffs of frame j are rows
+    ``frame_start[j]:frame_start[j+1]``), ``frame (F,) int64``,
+    ``time (F,) float64``, and per puff ``id``, ``slot``, ``source``, ``pos``,
+    ``vel``, ``age``, ``life``, ``size``, ``opacity``, ``color``, ``glow``,
+    ``aspect``, ``quat``, ``stretch``, ``density``.
+    """
+    path = os.fspath(path)
+    cols = {name: [] for name in PER_PUFF_FIELDS}
+    frame, time, counts = [], [], [0]
+    for st in states:
+        frame.append(st.frame)
+        time.append(st.time)
+        counts.append(len(st))
+        for name in PER_PUFF_FIELDS:
+            cols[name].append(getattr(st, name))
+    arrays = {name: (np.concatenate(cols[name]) if cols[name] else _empty(name)) for name in PER_PUFF_FIELDS}
+    arrays["frame_start"] = np.cumsum(np.array(counts, dtype=np.int64))
+    arrays["frame"] = np.array(frame, dtype=np.int64)
+    arrays["time"] = np.array(time, dtype=np.float64)
+    folder = os.path.dirname(os.path.abspath(path))
+    fd, tmp = tempfile.mkstemp(prefix=".simulate-", suffix=".npz.tmp", dir=folder)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            np.savez(fh, **arrays)
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise
