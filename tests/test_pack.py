@@ -1,0 +1,98 @@
+"""pack_folder: round trips from frames written by write_png / write_exr, and errors."""
+
+import json
+import os
+
+import numpy as np
+import pytest
+
+from splatter.pack import pack_folder
+from splatter.sheet import assemble_sheet, sheet_layout
+from splatter.write_exr import read_exr, rgba_channels, write_exr
+from splatter.write_png import read_png, write_png
+
+
+def _frames(n, h=12, w=16, seed=0):
+    rng = np.random.default_rng(seed)
+    out = []
+    for _ in range(n):
+        a = (rng.random((h, w, 1)) * (rng.random((h, w, 1)) < 0.7)).astype(np.float32)
+        f = np.concatenate([rng.random((h, w, 3)).astype(np.float32) * a, a], axis=2)
+        out.append(f)
+    return out
+
+
+def test_png_round_trip(tmp_path):
+    frames = _frames(6)
+    for k, f in enumerate(frames):
+        write_png(tmp_path / f"steam.{k:04d}.png", f)
+    written = pack_folder(tmp_path, columns=3, padding=1, fps=24, loop="exact")
+    assert [os.path.basename(p) for p in written] == ["steam.sheet.png", "steam.sheet.json"]
+    meta = json.loads(open(written[1]).read())
+    assert (meta["columns"], meta["rows"], meta["frames"], meta["fps"], meta["loop"]) == (3, 2, 6, 24, "exact")
+    sheet, info = read_png(written[0])
+    assert info["bit_depth"] == 8
+    # every covered texel of every cell has the code of its frame file (straight sRGB round trip)
+    for c in meta["cells"]:
+        one, _ = read_png(tmp_path / f"steam.{c['frame']:04d}.png")
+        cut = sheet[c["y"] : c["y"] + c["h"], c["x"] : c["x"] + c["w"]]
+        covered = one[..., 3] > 0
+        np.testing.assert_array_equal(cut[covered], one[covered])
+
+
+def test_png_16_bit_round_trip(tmp_path):
+    frames = _frames(3, seed=1)
+    for k, f in enumerate(frames):
+        write_png(tmp_path / f"mist.{k:04d}.png", f, bits=16)
+    written = pack_folder(tmp_path)
+    sheet, info = read_png(written[0])
+    assert info["bit_depth"] == 16
+    one, _ = read_png(tmp_path / "mist.0002.png")
+    c = json.loads(open(written[1]).read())["cells"][2]
+    cut = sheet[c["y"] : c["y"] + c["h"], c["x"] : c["x"] + c["w"]]
+    covered = one[..., 3] > 0
+    np.testing.assert_array_equal(cut[covered], one[covered])
+
+
+def test_exr_round_trip(tmp_path):
+    frames = _frames(5, seed=2)
+    for k, f in enumerate(frames):
+        write_exr(tmp_path / f"vent.{k + 10:04d}.exr", rgba_channels(f), pixel_type="float")
+    written = pack_folder(tmp_path, padding=2)
+    assert written[0].endswith("vent.sheet.exr")
+    back = read_exr(written[0])
+    sheet = np.stack([back[c] for c in "RGBA"], -1)
+    lay = sheet_layout(5, 16, 12, padding=2)
+    # OpenEXR: premultiplied linear preserved exactly (HALF sheet = float16 of the frames)
+    np.testing.assert_array_equal(sheet, assemble_sheet(frames, lay).astype(np.float16).astype(np.float32))
+
+
+def test_both_kinds_prefers_exr_source_and_writes_png(tmp_path):
+    f = _frames(2, seed=3)
+    for k in range(2):
+        write_png(tmp_path / f"dust.{k:04d}.png", f[k])
+        write_exr(tmp_path / f"dust.{k:04d}.exr", rgba_channels(f[k]))
+    assert pack_folder(tmp_path)[0].endswith("dust.sheet.png")
+    assert pack_folder(tmp_path, format="exr")[0].endswith("dust.sheet.exr")
+
+
+def test_errors(tmp_path):
+    with pytest.raises(ValueError, match="no frames"):
+        pack_folder(tmp_path)
+    f = _frames(4, seed=4)
+    for k in (0, 1, 3):
+        write_png(tmp_path / f"quay.{k:04d}.png", f[k])
+    with pytest.raises(ValueError, match="missing: 0002"):
+        pack_folder(tmp_path)
+    write_png(tmp_path / "quay.0002.png", np.zeros((8, 8, 4), np.float32))
+    with pytest.raises(ValueError, match=r"differ in size: quay.0000.png is 16 x 12, quay.0002.png is 8 x 8"):
+        pack_folder(tmp_path)
+    write_png(tmp_path / "quay.0002.png", f[2])
+    write_png(tmp_path / "chimney.0000.png", f[0])
+    with pytest.raises(ValueError, match="several names"):
+        pack_folder(tmp_path)
+    assert pack_folder(tmp_path, name="quay")[0].endswith("quay.sheet.png")
+    with pytest.raises(ValueError, match="name"):
+        pack_folder(tmp_path, name="harbour")
+    with pytest.raises(ValueError, match="format"):
+        pack_folder(tmp_path, name="quay", format="tiff")

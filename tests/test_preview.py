@@ -1,0 +1,90 @@
+"""Previews: GIF and MP4 read back with imageio, contact sheet, checker compositing."""
+
+import imageio.v2 as iio2
+import imageio.v3 as iio
+import numpy as np
+import pytest
+from PIL import Image
+
+from splatter.colorspace import srgb_decode, srgb_encode
+from splatter.preview import checker, over_checker, write_contact_sheet, write_gif, write_mp4
+
+
+def _clip(n=9, h=32, w=48):
+    out = []
+    for k in range(n):
+        f = np.zeros((h, w, 4), np.float32)
+        f[6:22, 2 + 3 * k : 14 + 3 * k] = (0.3, 0.25, 0.2, 0.6)  # a moving puff, premultiplied
+        out.append(f)
+    return out
+
+
+def test_over_checker_is_porter_duff_over_in_linear():
+    # Porter & Duff 1984, premultiplied over: C = Ca + (1 - aa) Cb; then sRGB (IEC 61966-2-1).
+    f = np.zeros((16, 16, 4), np.float32)
+    f[...] = (0.2, 0.1, 0.05, 0.5)
+    bg = checker(16, 16)
+    got = over_checker(f)
+    want = np.floor(srgb_encode(np.clip(f[..., :3] + 0.5 * bg[..., None], 0, 1)) * 255 + 0.5)
+    np.testing.assert_array_equal(got, want)
+    # transparent frame shows the checker: sRGB codes 102 and 153, both neutral
+    clear = over_checker(np.zeros((16, 16, 4), np.float32), square=4)
+    assert set(np.unique(clear)) == {102, 153}
+    assert (clear[..., 0] == clear[..., 1]).all() and (clear[..., 1] == clear[..., 2]).all()
+    assert srgb_decode(np.array([102 / 255]))[0] == pytest.approx(bg.min(), rel=1e-6)
+
+
+def test_gif_frame_count_and_loop(tmp_path):
+    p = tmp_path / "harbour.gif"
+    write_gif(p, _clip(), fps=25)
+    frames = iio.imread(p, index=None)
+    assert frames.shape[:3] == (9, 32, 48)
+    meta = iio.immeta(p)
+    assert meta["loop"] == 0  # NETSCAPE2.0 loop count 0 = forever (GIF89a application extension)
+    assert meta["duration"] == 40  # 1/25 s
+    assert Image.open(p).n_frames == 9
+
+
+def test_mp4_frame_count_even_size(tmp_path):
+    p = tmp_path / "harbour.mp4"
+    write_mp4(p, _clip(h=31, w=47), fps=24)  # odd size -> padded to even for yuv420p
+    r = iio2.get_reader(p)
+    try:
+        assert r.count_frames() == 9
+        meta = r.get_meta_data()
+        assert meta["size"] == (48, 32) and meta["fps"] == pytest.approx(24)
+        assert "yuv420p" in meta["pix_fmt"]
+    finally:
+        r.close()
+    write_mp4(p, _clip(), fps=24, repeat=3)
+    r = iio2.get_reader(p)
+    try:
+        assert r.count_frames() == 27
+    finally:
+        r.close()
+
+
+def test_contact_sheet(tmp_path):
+    p = tmp_path / "contact.png"
+    frames = _clip(n=10)
+    write_contact_sheet(p, frames, columns=5)
+    im = Image.open(p)
+    assert im.mode == "RGB" and im.size[0] >= 5 * 48 and im.size[1] >= 2 * 32
+    a = np.asarray(im)
+    unlabelled = tmp_path / "plain.png"
+    write_contact_sheet(unlabelled, frames, columns=5, label=False)
+    b = np.asarray(Image.open(unlabelled))
+    assert (a != b).any()  # labels were drawn
+    # away from the label, frame 7 appears as over_checker(frame 7) at cell (row 1, col 2)
+    x0, y0 = 2 * (48 + 4) + 2, 1 * (32 + 4) + 2
+    np.testing.assert_array_equal(b[y0 + 16 : y0 + 32, x0 : x0 + 48], over_checker(frames[7])[16:])
+
+
+def test_bad_input(tmp_path):
+    with pytest.raises(ValueError, match="fps"):
+        write_gif(tmp_path / "x.gif", _clip(), fps=0)
+    with pytest.raises(ValueError, match="frames"):
+        write_gif(tmp_path / "x.gif", [], fps=10)
+    with pytest.raises(ValueError, match=r"frames\[1\]"):
+        write_gif(tmp_path / "x.gif", [np.zeros((8, 8, 4)), np.zeros((8, 10, 4))], fps=10)
+    assert list(tmp_path.iterdir()) == []
