@@ -122,25 +122,45 @@ def _sample(density, fx, fy, fz):
     return acc
 
 
+@numba.njit(**KERNEL)
+def _ray_span(f, d, lo, hi):
+    """Parameter interval of the ray ``f + t d`` (t >= 0) inside ``[lo, hi]`` on every axis."""
+    t0, t1 = 0.0, 1e300
+    for a in range(3):
+        if abs(d[a]) < 1e-12:
+            if f[a] < lo[a] or f[a] > hi[a]:
+                return 1.0, 0.0
+        else:
+            ta = (lo[a] - f[a]) / d[a]
+            tb = (hi[a] - f[a]) / d[a]
+            if ta > tb:
+                ta, tb = tb, ta
+            t0 = max(t0, ta)
+            t1 = min(t1, tb)
+    return t0, t1
+
+
 @numba.njit(**PARALLEL)
 def _march(density, origin, cell, pos, dirs, out):
     nx, ny, nz = density.shape
+    lo = np.array([-1.0, -1.0, -1.0])
+    hi = np.array([float(nx), float(ny), float(nz)])
     step = 0.5  # in cells
     for i in numba.prange(pos.shape[0]):
+        f = np.empty(3)
         for d in range(dirs.shape[0]):
-            fx = (pos[i, 0] - origin[0]) / cell
-            fy = (pos[i, 1] - origin[1]) / cell
-            fz = (pos[i, 2] - origin[2]) / cell
+            f[0] = (pos[i, 0] - origin[0]) / cell
+            f[1] = (pos[i, 1] - origin[1]) / cell
+            f[2] = (pos[i, 2] - origin[2]) / cell
+            t0, t1 = _ray_span(f, dirs[d], lo, hi)
             tau = 0.0
-            # The start sample is half weighted (trapezoid rule along the ray).
-            tau += 0.5 * _sample(density, fx, fy, fz)
-            while True:
-                fx += dirs[d, 0] * step
-                fy += dirs[d, 1] * step
-                fz += dirs[d, 2] * step
-                if fx < -1.0 or fy < -1.0 or fz < -1.0 or fx > nx or fy > ny or fz > nz:
-                    break
-                tau += _sample(density, fx, fy, fz)
+            if t1 > t0:
+                n = int(math.ceil((t1 - t0) / step))
+                # Trapezoid rule along the part of the ray inside the grid.
+                for s in range(n + 1):
+                    t = t0 + s * step
+                    w = 0.5 if s == 0 else 1.0
+                    tau += w * _sample(density, f[0] + dirs[d, 0] * t, f[1] + dirs[d, 1] * t, f[2] + dirs[d, 2] * t)
             out[i, d] = tau * step * cell
 
 
