@@ -90,10 +90,8 @@ def _preview_frames(frames, exposure, even=False):
         f = np.asarray(f, dtype=np.float32)
         if f.ndim != 3 or f.shape[2] != 4:
             raise ValueError(f"frames[{k}]: expected an (H, W, 4) array, got shape {f.shape}")
-        if out and f.shape[:2] != out[0].shape[:2] and not even:
-            raise ValueError(f"frames[{k}]: shape {f.shape[:2]} differs from frame 0 {out[0].shape[:2]}")
         if even and (f.shape[0] % 2 or f.shape[1] % 2):
-            # yuv420p needs even sizes: extend with transparent texels (checker shows).
+            # yuv420p needs even sizes: extend with transparent texels (the checker shows).
             f = np.pad(f, ((0, f.shape[0] % 2), (0, f.shape[1] % 2), (0, 0)))
         if out and f.shape[:2] != out[0].shape[:2]:
             raise ValueError(f"frames[{k}]: shape {f.shape[:2]} differs from frame 0 {out[0].shape[:2]}")

@@ -37,7 +37,7 @@ A JSON object with these keys::
     padding       gutter in pixels on each side of the content
     pow2          true when the sheet was sized to powers of two
     resampled     true when frames were resampled to fit their cells
-    fps           playback rate, frames per second
+    fps           playback rate, frames per second (a JSON number)
     loop          "none", "exact" (the frame after the last is frame 0) or
                   "crossfade" (the clip was blended across the seam)
     alpha         "straight" or "premultiplied"
@@ -72,6 +72,7 @@ from __future__ import annotations
 import dataclasses
 import json
 import math
+import numbers
 import os
 from typing import NamedTuple
 
@@ -358,7 +359,7 @@ def write_sheet(
     _check_choice(png_bits, "png_bits", (8, 16))
     _check_choice(exr_type, "exr_type", ("half", "float"))
     _check_choice(loop, "loop", _LOOPS)
-    if not (isinstance(fps, (int, float)) and math.isfinite(fps) and fps > 0):
+    if isinstance(fps, bool) or not isinstance(fps, numbers.Real) or not (math.isfinite(fps) and fps > 0):
         raise ValueError(f"fps: expected a number > 0, got {fps!r}")
     if maps is not None and not isinstance(maps, dict):
         raise TypeError(f"maps: expected a dict of map entries, got {type(maps).__name__}")
