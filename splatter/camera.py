@@ -1,0 +1,417 @@
+"""Project 3D Gaussian puffs to 2D screen splats.
+
+Frames used here:
+
+* **view space**: x right, y up, the camera looks down -z; depth = -z_view
+  (positive in front of the camera).
+* **camera frame** (for the projection Jacobian): x right, y down, z forward,
+  i.e. ``(x_view, -y_view, depth)``, a proper rotation of view space.
+* **pixels**: x right, y down, pixel ``[row, col]`` covering
+  ``[col, col+1) x [row, row+1)``; the optical axis meets the image at
+  ``(width / 2, height / 2)``.
+
+3D covariances are projected with the EWA local affine approximation
+``S2 = J W S W^T J^T`` (Zwicker, Pfister, van Baar & Gross, "EWA Volume
+Splatting", IEEE Visualization 2001; the form used by Kerbl et al., "3D
+Gaussian Splatting for Real-Time Radiance Field Rendering", ACM TOG 42(4),
+2023), plus a 0.3 px^2 low-pass on the diagonal so no splat is thinner than a
+pixel can show.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+LOW_PASS = 0.3
+"""Pixels squared added to the diagonal of every projected covariance."""
+
+PROJECTIONS = ("orthographic", "perspective")
+
+
+@dataclass(frozen=True)
+class Splats:
+    """Screen-space splats, one entry per puff (equal-length arrays).
+
+    Attributes
+    ----------
+    means : (N, 2) float32 ndarray
+        Centres in pixels, x right, y down.
+    covs : (N, 2, 2) float32 ndarray
+        Covariances in pixels squared, low-pass included.
+    depth : (N,) float32 ndarray
+        View depth (distance in front of the camera along the view axis).
+    visible : (N,) bool ndarray
+        False for puffs at or behind the near plane or whose radius-3 screen
+        ellipse lies wholly off the image. ``means`` and ``covs`` of puffs
+        behind the near plane are finite placeholders, not projections.
+    """
+
+    means: np.ndarray
+    covs: np.ndarray
+    depth: np.ndarray
+    visible: np.ndarray
+
+
+@dataclass(frozen=True)
+class Camera:
+    """A pinhole or orthographic camera from plain parameters.
+
+    Parameters
+    ----------
+    projection : {"orthographic", "perspective"}
+    eye, target, up : 3-tuples of float
+        Camera position, the point it looks at, and the up hint.
+    width, height : int
+        Image size in pixels.
+    view_width : float
+        Orthographic: world units across the image width.
+    fov : float
+        Perspective: vertical field of view in degrees, in (0, 180).
+    near : float
+        Puffs with depth at or below this (world units) are not visible.
+    """
+
+    projection: str = "orthographic"
+    eye: tuple = (0.0, 0.0, 10.0)
+    target: tuple = (0.0, 0.0, 0.0)
+    up: tuple = (0.0, 1.0, 0.0)
+    width: int = 256
+    height: int = 256
+    view_width: float = 4.0
+    fov: float = 40.0
+    near: float = 1e-3
+
+    def __post_init__(self):
+        if self.projection not in PROJECTIONS:
+            raise ValueError(f"projection: expected one of {PROJECTIONS}, got {self.projection!r}")
+        for name in ("eye", "target", "up"):
+            v = np.asarray(getattr(self, name), dtype=np.float64)
+            if v.shape != (3,) or not np.all(np.isfinite(v)):
+                raise ValueError(f"{name}: expected 3 finite numbers, got {getattr(self, name)!r}")
+            object.__setattr__(self, name, tuple(float(x) for x in v))
+        for name in ("width", "height"):
+            v = getattr(self, name)
+            if isinstance(v, bool) or not isinstance(v, (int, np.integer)) or v < 1:
+                raise ValueError(f"{name}: expected a positive integer, got {v!r}")
+        if not (math.isfinite(self.view_width) and self.view_width > 0):
+            raise ValueError(f"view_width: expected a positive number, got {self.view_width!r}")
+        if not (0.0 < self.fov < 180.0):
+            raise ValueError(f"fov: expected degrees in (0, 180), got {self.fov!r}")
+        if not (math.isfinite(self.near) and self.near >= 0):
+            raise ValueError(f"near: expected a number >= 0, got {self.near!r}")
+        fwd = np.subtract(self.target, self.eye)
+        if np.linalg.norm(fwd) == 0:
+            raise ValueError("target: expected a point different from eye")
+        if np.linalg.norm(np.cross(fwd, self.up)) <= 1e-9 * np.linalg.norm(fwd) * np.linalg.norm(self.up):
+            raise ValueError("up: expected a direction not parallel to target - eye")
+
+    # -- frame ---------------------------------------------------------------
+    @property
+    def axes(self):
+        """(right, up, forward) orthonormal world vectors, each (3,) float64."""
+        f = np.subtract(self.target, self.eye).astype(np.float64)
+        f /= np.linalg.norm(f)
+        s = np.cross(f, self.up)
+        s /= np.linalg.norm(s)
+        u = np.cross(s, f)
+        return s, u, f
+
+    @property
+    def world_to_view(self):
+        """(4, 4) float64 matrix taking homogeneous world points to view space."""
+        s, u, f = self.axes
+        eye = np.asarray(self.eye)
+        m = np.eye(4)
+        m[0, :3], m[1, :3], m[2, :3] = s, u, -f
+        m[:3, 3] = -m[:3, :3] @ eye
+        return m
+
+    @property
+    def focal_px(self):
+        """Perspective focal length in pixels (square pixels: fx = fy)."""
+        return 0.5 * self.height / math.tan(math.radians(self.fov) / 2)
+
+    def pixels_per_unit(self, depth):
+        """Pixels per world unit for a length facing the camera at ``depth``.
+
+        Parameters
+        ----------
+        depth : float or ndarray
+            View depth; ignored by the orthographic projection.
+        """
+        if self.projection == "orthographic":
+            return np.full(np.shape(depth), self.width / self.view_width)
+        return self.focal_px / np.asarray(depth, dtype=np.float64)
+
+    def _camera_frame(self, pos):
+        """World points (N, 3) -> camera frame (x right, y down, z = depth)."""
+        s, u, f = self.axes
+        rel = pos - np.asarray(self.eye)
+        rot = np.stack([s, -u, f])
+        return rel @ rot.T, rot
+
+    # -- projection ----------------------------------------------------------
+    def project(self, pos, cov):
+        """Project puffs to screen splats.
+
+        Parameters
+        ----------
+        pos : (N, 3) float64 ndarray
+            World positions.
+        cov : (N, 3, 3) float64 ndarray
+            World covariances (see :func:`puff_covariances`).
+
+        Returns
+        -------
+        Splats
+        """
+        pos = _check_array(pos, "pos", (3,))
+        cov = _check_array(cov, "cov", (3, 3))
+        if cov.shape[0] != pos.shape[0]:
+            raise ValueError(f"cov: expected {pos.shape[0]} matrices, got {cov.shape[0]}")
+        t, rot = self._camera_frame(pos)
+        cov_cam = rot @ cov @ rot.T
+        depth = t[:, 2]
+        n = pos.shape[0]
+        if self.projection == "orthographic":
+            k = self.width / self.view_width
+            means = np.stack([0.5 * self.width + k * t[:, 0], 0.5 * self.height + k * t[:, 1]], 1)
+            covs = k * k * cov_cam[:, :2, :2]
+            front = depth > self.near
+        else:
+            fpx = self.focal_px
+            front = depth > self.near
+            tz = np.where(front, depth, 1.0)
+            tt = np.where(front[:, None], t, np.array([0.0, 0.0, 1.0]))
+            means = np.stack([0.5 * self.width + fpx * tt[:, 0] / tz,
+                              0.5 * self.height + fpx * tt[:, 1] / tz], 1)
+            covs = ewa_covariance(tt, np.where(front[:, None, None], cov_cam, np.eye(3)), fpx, fpx)
+            means[~front] = 0.0
+        covs = covs + LOW_PASS * np.eye(2)
+        rx = 3.0 * np.sqrt(covs[:, 0, 0])
+        ry = 3.0 * np.sqrt(covs[:, 1, 1])
+        on = ((means[:, 0] + rx > 0) & (means[:, 0] - rx < self.width)
+              & (means[:, 1] + ry > 0) & (means[:, 1] - ry < self.height))
+        visible = front & on & np.all(np.isfinite(covs), axis=(1, 2)) if n else front
+        return Splats(means=means.astype(np.float32), covs=covs.astype(np.float32),
+                      depth=depth.astype(np.float32), visible=np.asarray(visible, dtype=bool))
+
+    def project_velocity(self, pos, vel):
+        """Screen velocity of puffs in pixels per second (x right, y down).
+
+        Exact for the orthographic projection; for perspective the projection
+        is linearised at each position (the same Jacobian as EWA), which is the
+        instantaneous rate of change of the projected centre.
+
+        Parameters
+        ----------
+        pos, vel : (N, 3) float64 ndarray
+            World positions and velocities (world units per second).
+
+        Returns
+        -------
+        (N, 2) float32 ndarray
+        """
+        pos = _check_array(pos, "pos", (3,))
+        vel = _check_array(vel, "vel", (3,))
+        if vel.shape != pos.shape:
+            raise ValueError(f"vel: expected shape {pos.shape}, got {vel.shape}")
+        t, rot = self._camera_frame(pos)
+        v = vel @ rot.T
+        if self.projection == "orthographic":
+            out = (self.width / self.view_width) * v[:, :2]
+        else:
+            fpx = self.focal_px
+            tz = np.where(t[:, 2] > self.near, t[:, 2], np.inf)
+            out = np.stack([fpx * (v[:, 0] / tz - t[:, 0] * v[:, 2] / tz**2),
+                            fpx * (v[:, 1] / tz - t[:, 1] * v[:, 2] / tz**2)], 1)
+            out = np.nan_to_num(out, nan=0.0)
+        return out.astype(np.float32)
+
+
+def ewa_covariance(t_view, cov_view, fx, fy):
+    """EWA projection of 3D covariances, ``S2 = J S J^T``, without the low-pass.
+
+    Parameters
+    ----------
+    t_view : (N, 3) float64 ndarray
+        Centres in the camera frame: x right, y down, z forward (> 0).
+    cov_view : (N, 3, 3) float64 ndarray
+        Covariances already rotated into the camera frame (``W S W^T``).
+    fx, fy : float
+        Focal lengths in pixels.
+
+    Returns
+    -------
+    (N, 2, 2) float64 ndarray
+        ``J = [[fx/tz, 0, -fx tx/tz^2], [0, fy/tz, -fy ty/tz^2]]`` applied on
+        both sides (Zwicker et al. 2001; Kerbl et al. 2023).
+    """
+    t = np.asarray(t_view, dtype=np.float64)
+    c = np.asarray(cov_view, dtype=np.float64)
+    tz = t[:, 2]
+    jac = np.zeros((t.shape[0], 2, 3))
+    jac[:, 0, 0] = fx / tz
+    jac[:, 0, 2] = -fx * t[:, 0] / tz**2
+    jac[:, 1, 1] = fy / tz
+    jac[:, 1, 2] = -fy * t[:, 1] / tz**2
+    return jac @ c @ jac.transpose(0, 2, 1)
+
+
+def puff_covariances(size, aspect, quat, vel, stretch):
+    """3D covariance of each puff, with motion stretch.
+
+    Parameters
+    ----------
+    size : (N,) float64 ndarray
+        Sigma along the puff's first axis (world units).
+    aspect : (N,) float64 ndarray
+        Ratio of the two other sigmas to ``size``.
+    quat : (N, 4) float64 ndarray
+        Orientation as quaternions ``(w, x, y, z)``; normalised here.
+    vel : (N, 3) float64 ndarray
+        Velocity (world units per second).
+    stretch : (N,) float64 ndarray
+        Seconds of motion to smear each puff over.
+
+    Returns
+    -------
+    (N, 3, 3) float64 ndarray
+        ``R diag(size^2, (size aspect)^2, (size aspect)^2) R^T + L L^T / 12``
+        with ``L = stretch * vel``: a uniform segment of length ``|L|`` has
+        variance ``|L|^2 / 12`` along it.
+    """
+    size = np.asarray(size, dtype=np.float64)
+    n = size.shape[0] if size.ndim == 1 else -1
+    if size.ndim != 1:
+        raise ValueError(f"size: expected shape (N,), got {size.shape}")
+    aspect = np.asarray(aspect, dtype=np.float64)
+    quat = np.asarray(quat, dtype=np.float64)
+    vel = np.asarray(vel, dtype=np.float64)
+    stretch = np.asarray(stretch, dtype=np.float64)
+    for name, arr, shp in (("aspect", aspect, (n,)), ("quat", quat, (n, 4)),
+                           ("vel", vel, (n, 3)), ("stretch", stretch, (n,))):
+        if arr.shape != shp:
+            raise ValueError(f"{name}: expected shape {shp}, got {arr.shape}")
+    norm = np.linalg.norm(quat, axis=1, keepdims=True)
+    if np.any(norm == 0):
+        raise ValueError("quat: expected non-zero quaternions")
+    w, x, y, z = (quat / norm).T
+    rot = np.empty((n, 3, 3))
+    rot[:, 0, 0] = 1 - 2 * (y * y + z * z)
+    rot[:, 0, 1] = 2 * (x * y - w * z)
+    rot[:, 0, 2] = 2 * (x * z + w * y)
+    rot[:, 1, 0] = 2 * (x * y + w * z)
+    rot[:, 1, 1] = 1 - 2 * (x * x + z * z)
+    rot[:, 1, 2] = 2 * (y * z - w * x)
+    rot[:, 2, 0] = 2 * (x * z - w * y)
+    rot[:, 2, 1] = 2 * (y * z + w * x)
+    rot[:, 2, 2] = 1 - 2 * (x * x + y * y)
+    var = np.stack([size**2, (size * aspect) ** 2, (size * aspect) ** 2], 1)
+    cov = (rot * var[:, None, :]) @ rot.transpose(0, 2, 1)
+    seg = stretch[:, None] * vel
+    return cov + seg[:, :, None] * seg[:, None, :] / 12.0
+
+
+def fit_view(camera, points, radii, *, margin):
+    """A camera framed so every puff's 3-sigma sphere lands inside the image.
+
+    The view direction (``target - eye``) and ``up`` are kept. Orthographic:
+    eye and target move sideways to centre the spheres' extent and
+    ``view_width`` is chosen so the tighter axis just fits. Perspective:
+    ``fov`` is kept; the eye moves sideways and along the view direction to
+    the closest position from which every sphere lies inside the view cone
+    shrunk by the margin (one axis touches both edges, the other is centred);
+    the target is put on the new axis at the mean depth of ``points``.
+
+    Parameters
+    ----------
+    camera : Camera
+    points : (M, 3) float64 ndarray
+        Puff centres over the whole clip.
+    radii : (M,) float64 ndarray
+        Puff sigmas; each sphere has radius ``3 * radii``.
+    margin : float
+        Fraction of the image width (height) kept clear at the left and right
+        (top and bottom) edges, in [0, 0.5).
+
+    Returns
+    -------
+    Camera
+    """
+    points = _check_array(points, "points", (3,))
+    radii = np.asarray(radii, dtype=np.float64)
+    if radii.shape != (points.shape[0],) or not np.all(np.isfinite(radii)) or np.any(radii < 0):
+        raise ValueError(f"radii: expected {points.shape[0]} finite values >= 0")
+    if not (0.0 <= margin < 0.5):
+        raise ValueError(f"margin: expected a fraction in [0, 0.5), got {margin!r}")
+    if points.shape[0] == 0:
+        return camera
+    s, u, f = camera.axes
+    rho = 3.0 * radii
+    xs, ys, zs = points @ s, points @ u, points @ f
+    keep = 1.0 - 2.0 * margin
+    aspect = camera.width / camera.height
+    if camera.projection == "orthographic":
+        x0, x1 = np.min(xs - rho), np.max(xs + rho)
+        y0, y1 = np.min(ys - rho), np.max(ys + rho)
+        cx, cy = 0.5 * (x0 + x1), 0.5 * (y0 + y1)
+        span = max(x1 - x0, (y1 - y0) * aspect, 1e-9)
+        eye = np.asarray(camera.eye)
+        shift = (cx - eye @ s) * s + (cy - eye @ u) * u
+        return replace(camera, eye=tuple(eye + shift), target=tuple(np.asarray(camera.target) + shift),
+                       view_width=float(span / keep))
+    ty = math.tan(math.radians(camera.fov) / 2) * keep
+    tx = ty * aspect
+    # Sphere inside the wedge |x| <= T z  <=>  T z -+ x >= rho sqrt(1 + T^2).
+    ex, ezx = _fit_axis(xs, zs, rho, tx)
+    ey, ezy = _fit_axis(ys, zs, rho, ty)
+    ez = min(ezx, ezy)
+    eye = ex * s + ey * u + ez * f
+    depth = max(float(np.mean(zs)) - ez, 1e-6)
+    return replace(camera, eye=tuple(eye), target=tuple(eye + depth * f))
+
+
+def _fit_axis(xs, zs, rho, tan_half):
+    """Eye offset (across, along) so spheres fit |x - e| <= tan_half (z - ez)."""
+    k = rho * math.sqrt(1.0 + tan_half**2)
+    a = np.min(tan_half * zs - xs - k)
+    b = np.min(tan_half * zs + xs - k)
+    return 0.5 * (b - a), 0.5 * (a + b) / tan_half
+
+
+def border_alpha_share(alpha):
+    """Share of the total alpha lying in the image's 1-pixel frame.
+
+    The frame is the first and last rows and columns (each pixel counted
+    once). A large share means sprites are cut off at the edge.
+
+    Parameters
+    ----------
+    alpha : (H, W) float ndarray
+
+    Returns
+    -------
+    float
+        ``sum(alpha on the frame) / sum(alpha)``, 0.0 for an empty image.
+    """
+    alpha = np.asarray(alpha, dtype=np.float64)
+    if alpha.ndim != 2:
+        raise ValueError(f"alpha: expected shape (H, W), got {alpha.shape}")
+    total = alpha.sum()
+    if total <= 0:
+        return 0.0
+    inner = alpha[1:-1, 1:-1].sum() if min(alpha.shape) > 2 else 0.0
+    return float((total - inner) / total)
+
+
+def _check_array(value, name, tail):
+    arr = np.asarray(value, dtype=np.float64)
+    if arr.ndim != 1 + len(tail) or arr.shape[1:] != tail:
+        raise ValueError(f"{name}: expected shape (N, {', '.join(map(str, tail))}), got {arr.shape}")
+    if not np.all(np.isfinite(arr)):
+        raise ValueError(f"{name}: expected finite values, got NaN or infinity")
+    return arr
