@@ -219,6 +219,23 @@ def _nearest_in_rows(near_row, out_row, out_col):
             out_row[r, x] = near_row[r, v[k]]
 
 
+@numba.njit(**PARALLEL)
+def _fill_from(img, covered, sy, sx, out):
+    """``out`` = ``img``, with every uncovered texel's colour (all but the last
+    channel) copied from texel ``(sy, sx)``; rows are independent."""
+    h, w, c = img.shape
+    for r in numba.prange(h):
+        for x in range(w):
+            src_r = np.int64(r)
+            src_c = np.int64(x)
+            if not covered[r, x] and sy[r, x] >= 0:
+                src_r = sy[r, x]
+                src_c = sx[r, x]
+            for k in range(c - 1):
+                out[r, x, k] = img[src_r, src_c, k]
+            out[r, x, c - 1] = img[r, x, c - 1]
+
+
 def _nearest_covered(covered):
     """Row and column of the nearest covered texel of every texel.
 
@@ -277,18 +294,18 @@ def dilate_colour(straight_rgba, *, mask=None):
     a = np.asarray(straight_rgba)
     if a.ndim != 3 or a.shape[2] < 2:
         raise ValueError(f"straight_rgba: expected an (H, W, C>=2) array, got shape {a.shape}")
-    out = a.astype(np.float32, copy=True)
+    img = np.ascontiguousarray(a, dtype=np.float32)
     if mask is None:
-        covered = out[..., -1] > 0
+        covered = img[..., -1] > 0
     else:
-        covered = np.asarray(mask, dtype=bool)
-        if covered.shape != out.shape[:2]:
-            raise ValueError(f"mask: expected shape {out.shape[:2]}, got {covered.shape}")
+        covered = np.ascontiguousarray(mask, dtype=np.bool_)
+        if covered.shape != img.shape[:2]:
+            raise ValueError(f"mask: expected shape {img.shape[:2]}, got {covered.shape}")
     if covered.all() or not covered.any():
-        return out
+        return img.copy()
     sy, sx = _nearest_covered(covered)
-    hole = ~covered
-    out[hole, :-1] = out[sy[hole], sx[hole], :-1]
+    out = np.empty_like(img)
+    _fill_from(img, covered, sy, sx, out)
     return out
 
 
