@@ -38,7 +38,7 @@ import numpy as np
 from splatter.jit import KERNEL
 from splatter.look import DragSpec, GravitySpec, LiftSpec, SwirlSpec, VortexSpec, WindSpec
 from splatter.rng import force_generator
-from splatter.swirl import SwirlField, build_swirl
+from splatter.swirl import SwirlField, build_swirl, phase_table
 
 GUST_RATIOS = (1.0, 1.93, 3.71)  # frequency multiples of 1/gust_period
 GUST_WEIGHTS = (0.6, 0.3, 0.1)
@@ -59,8 +59,12 @@ class ForceTables:
     drag : float
     wind : (nw, 14) float64 ndarray
     lift : (nl, 5) float64 ndarray
-    swirl_k, swirl_b : (M, 3) float64 ndarray
-        All swirl modes, concatenated.
+    swirl_q : (D, 3) float64 ndarray
+        Base wavevectors of all swirl forces, concatenated.
+    swirl_oct : (D,) int64 ndarray
+        Octaves (modes) of each base wavevector.
+    swirl_b : (M, 3) float64 ndarray
+        Velocity amplitudes of all modes, direction-major.
     swirl_w, swirl_phi : (M,) float64 ndarray
     vortex : (nv, 8) float64 ndarray
     spring : (4,) float64 ndarray
@@ -75,7 +79,8 @@ class ForceTables:
     drag: float
     wind: np.ndarray
     lift: np.ndarray
-    swirl_k: np.ndarray
+    swirl_q: np.ndarray
+    swirl_oct: np.ndarray
     swirl_b: np.ndarray
     swirl_w: np.ndarray
     swirl_phi: np.ndarray
@@ -85,8 +90,8 @@ class ForceTables:
     gust_periods: tuple = ()
 
     def swirl_phases(self, t: float) -> np.ndarray:
-        """``w t + phi`` for all swirl modes, (M,) float64."""
-        return self.swirl_w * float(t) + self.swirl_phi
+        """cos and sin of ``w t + phi`` for all swirl modes, (2, M) float64."""
+        return phase_table(self.swirl_w * float(t) + self.swirl_phi)
 
     def wind_target(self, t: float) -> tuple[float, np.ndarray]:
         """Total grip ``K`` and ``sum_w grip_w U_w(t)`` (3,) at time ``t``."""
@@ -173,8 +178,10 @@ def pack_forces(forces, *, seed: int, loop_period=None, spring=None) -> ForceTab
         parts = [getattr(s, name) for s in swirls]
         return np.ascontiguousarray(np.concatenate(parts, axis=0))
 
+    octs = np.array([s.octaves for s in swirls for _ in range(s.q.shape[0])], dtype=np.int64)
+
     return ForceTables(gravity=gravity, drag=drag, wind=table(winds, WIND_COLS), lift=table(lifts, LIFT_COLS),
-                       swirl_k=cat("k", 3), swirl_b=cat("b", 3), swirl_w=cat("w", 0), swirl_phi=cat("phi", 0),
+                       swirl_q=cat("q", 3), swirl_oct=octs, swirl_b=cat("b", 3), swirl_w=cat("w", 0), swirl_phi=cat("phi", 0),
                        vortex=table(vortices, VORTEX_COLS), spring=spring_row, swirls=tuple(swirls),
                        gust_periods=tuple(gust_periods))
 

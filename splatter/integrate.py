@@ -22,41 +22,68 @@ import numpy as np
 from splatter.forces import ForceTables, _accel, _vortex_at, _wind_sum
 from splatter.jit import KERNEL, PARALLEL
 from splatter.obstacles import ObstacleTables, _collide
-from splatter.swirl import _swirl_at
+from splatter.swirl import BLOCK, _swirl_block
 
 INTEGRATORS = {"euler": 0, "symplectic": 1, "midpoint": 2}
 
 
 @numba.njit(**KERNEL)
-def _air(x, y, z, sk, sb, ph, vortex):
-    ux, uy, uz = _swirl_at(x, y, z, sk, sb, ph)
-    wx, wy, wz = _vortex_at(x, y, z, vortex)
-    return ux + wx, uy + wy, uz + wz
+def _air_block(buf, px, ux, n, sq, so, sb, cs, vortex):
+    """Swirl plus vortex air velocity at points in ``buf[px:px+3]`` into ``buf[ux:ux+3]``; rows 12-13 scratch."""
+    for j in range(n):
+        buf[ux, j] = 0.0
+        buf[ux + 1, j] = 0.0
+        buf[ux + 2, j] = 0.0
+    if sq.shape[0]:
+        _swirl_block(buf[px], buf[px + 1], buf[px + 2], n, sq, so, sb, cs, buf[ux], buf[ux + 1], buf[ux + 2],
+                     buf[12], buf[13])
+    if vortex.shape[0]:
+        for j in range(n):
+            wx, wy, wz = _vortex_at(buf[px, j], buf[px + 1, j], buf[px + 2, j], vortex)
+            buf[ux, j] += wx
+            buf[ux + 1, j] += wy
+            buf[ux + 2, j] += wz
 
 
-@numba.njit(**PARALLEL)
-def _step(pos, vel, age, h, method, gravity, drag, wind0, wind1, lift, spring, sk, sb, ph0, ph1, vortex,
-          planes, spheres, killed):
-    """Advance every puff by one step ``h``; ``wind0/ph0`` at the step's start, ``wind1/ph1`` half-way."""
+@numba.njit(**KERNEL)
+def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, lift, spring, sq, so, sb, ph0, ph1,
+                vortex, planes, spheres, killed, buf):
+    """Advance puffs ``i0 .. i0+n-1``; ``buf`` is (14, BLOCK) scratch.
+
+    Rows: 0-2 position, 3-5 air velocity there, 6-8 midpoint position,
+    9-11 air velocity at the midpoint, 12-13 swirl scratch.
+    """
     wk0 = wind0[0]
     wu0 = wind0[1:]
     wk1 = wind1[0]
     wu1 = wind1[1:]
     half = 0.5 * h
-    for i in numba.prange(pos.shape[0]):
-        x = pos[i, 0]
-        y = pos[i, 1]
-        z = pos[i, 2]
+    for j in range(n):
+        buf[0, j] = pos[i0 + j, 0]
+        buf[1, j] = pos[i0 + j, 1]
+        buf[2, j] = pos[i0 + j, 2]
+    _air_block(buf, 0, 3, n, sq, so, sb, ph0, vortex)
+    if method == 2:
+        for j in range(n):
+            i = i0 + j
+            buf[6, j] = buf[0, j] + half * (vel[i, 0] + buf[3, j])
+            buf[7, j] = buf[1, j] + half * (vel[i, 1] + buf[4, j])
+            buf[8, j] = buf[2, j] + half * (vel[i, 2] + buf[5, j])
+        _air_block(buf, 6, 9, n, sq, so, sb, ph1, vortex)
+    for j in range(n):
+        i = i0 + j
+        x = buf[0, j]
+        y = buf[1, j]
+        z = buf[2, j]
         vx = vel[i, 0]
         vy = vel[i, 1]
         vz = vel[i, 2]
         a = age[i]
         ax, ay, az = _accel(x, y, z, vx, vy, vz, a, gravity, drag, wk0, wu0, lift, spring)
-        ux, uy, uz = _air(x, y, z, sk, sb, ph0, vortex)
         if method == 0:
-            x1 = x + h * (vx + ux)
-            y1 = y + h * (vy + uy)
-            z1 = z + h * (vz + uz)
+            x1 = x + h * (vx + buf[3, j])
+            y1 = y + h * (vy + buf[4, j])
+            z1 = z + h * (vz + buf[5, j])
             vx1 = vx + h * ax
             vy1 = vy + h * ay
             vz1 = vz + h * az
@@ -64,21 +91,18 @@ def _step(pos, vel, age, h, method, gravity, drag, wind0, wind1, lift, spring, s
             vx1 = vx + h * ax
             vy1 = vy + h * ay
             vz1 = vz + h * az
-            x1 = x + h * (vx1 + ux)
-            y1 = y + h * (vy1 + uy)
-            z1 = z + h * (vz1 + uz)
+            x1 = x + h * (vx1 + buf[3, j])
+            y1 = y + h * (vy1 + buf[4, j])
+            z1 = z + h * (vz1 + buf[5, j])
         else:
-            xm = x + half * (vx + ux)
-            ym = y + half * (vy + uy)
-            zm = z + half * (vz + uz)
             vxm = vx + half * ax
             vym = vy + half * ay
             vzm = vz + half * az
-            ax, ay, az = _accel(xm, ym, zm, vxm, vym, vzm, a + half, gravity, drag, wk1, wu1, lift, spring)
-            ux, uy, uz = _air(xm, ym, zm, sk, sb, ph1, vortex)
-            x1 = x + h * (vxm + ux)
-            y1 = y + h * (vym + uy)
-            z1 = z + h * (vzm + uz)
+            ax, ay, az = _accel(buf[6, j], buf[7, j], buf[8, j], vxm, vym, vzm, a + half, gravity, drag, wk1, wu1,
+                                lift, spring)
+            x1 = x + h * (vxm + buf[9, j])
+            y1 = y + h * (vym + buf[10, j])
+            z1 = z + h * (vzm + buf[11, j])
             vx1 = vx + h * ax
             vy1 = vy + h * ay
             vz1 = vz + h * az
@@ -93,12 +117,34 @@ def _step(pos, vel, age, h, method, gravity, drag, wind0, wind1, lift, spring, s
 
 
 @numba.njit(**PARALLEL)
-def _air_velocity(pos, sk, sb, ph, vortex, out):
-    for i in numba.prange(pos.shape[0]):
-        ux, uy, uz = _air(pos[i, 0], pos[i, 1], pos[i, 2], sk, sb, ph, vortex)
-        out[i, 0] = ux
-        out[i, 1] = uy
-        out[i, 2] = uz
+def _step(pos, vel, age, h, method, gravity, drag, wind0, wind1, lift, spring, sq, so, sb, ph0, ph1, vortex,
+          planes, spheres, killed):
+    """Advance every puff by one step ``h``; ``wind0/ph0`` at the step's start, ``wind1/ph1`` half-way."""
+    nblocks = (pos.shape[0] + BLOCK - 1) // BLOCK
+    for blk in numba.prange(nblocks):
+        i0 = blk * BLOCK
+        n = min(pos.shape[0], i0 + BLOCK) - i0
+        buf = np.empty((14, BLOCK))
+        _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, lift, spring, sq, so, sb, ph0, ph1,
+                    vortex, planes, spheres, killed, buf)
+
+
+@numba.njit(**PARALLEL)
+def _air_velocity(pos, sq, so, sb, cs, vortex, out):
+    nblocks = (pos.shape[0] + BLOCK - 1) // BLOCK
+    for blk in numba.prange(nblocks):
+        i0 = blk * BLOCK
+        n = min(pos.shape[0], i0 + BLOCK) - i0
+        buf = np.empty((14, BLOCK))
+        for j in range(n):
+            buf[0, j] = pos[i0 + j, 0]
+            buf[1, j] = pos[i0 + j, 1]
+            buf[2, j] = pos[i0 + j, 2]
+        _air_block(buf, 0, 3, n, sq, so, sb, cs, vortex)
+        for j in range(n):
+            out[i0 + j, 0] = buf[3, j]
+            out[i0 + j, 1] = buf[4, j]
+            out[i0 + j, 2] = buf[5, j]
 
 
 def _check_state(pos, vel):
@@ -150,7 +196,7 @@ def step_puffs(pos: np.ndarray, vel: np.ndarray, age: np.ndarray, *, dt: float, 
     _wind_sum(forces.wind, t + half, wind1)
     killed = np.zeros(pos.shape[0], dtype=np.int8)
     _step(pos, vel, age, float(dt), INTEGRATORS[integrator], forces.gravity, forces.drag, wind0, wind1,
-          forces.lift, forces.spring, forces.swirl_k, forces.swirl_b, forces.swirl_phases(t),
+          forces.lift, forces.spring, forces.swirl_q, forces.swirl_oct, forces.swirl_b, forces.swirl_phases(t),
           forces.swirl_phases(t + half), forces.vortex, obstacles.planes, obstacles.spheres, killed)
     return killed.astype(bool)
 
@@ -161,5 +207,5 @@ def air_velocity(pos: np.ndarray, *, time: float, forces: ForceTables) -> np.nda
     if pos.ndim != 2 or pos.shape[1] != 3:
         raise ValueError(f"pos must have shape (N, 3), got {pos.shape}")
     out = np.empty_like(pos)
-    _air_velocity(pos, forces.swirl_k, forces.swirl_b, forces.swirl_phases(float(time)), forces.vortex, out)
+    _air_velocity(pos, forces.swirl_q, forces.swirl_oct, forces.swirl_b, forces.swirl_phases(float(time)), forces.vortex, out)
     return out
