@@ -30,15 +30,29 @@ import math
 import numba
 import numpy as np
 
-from splatter._fastexp import gauss_weight
+from splatter._fastexp import fma, gauss_weight
 from splatter.jit import KERNEL, PARALLEL
 
 MODE_OVER = 0
 MODE_ADD = 1
 MODE_ABSORB = 2
 
+TILE = 64
+"""Screen tile edge in pixels: tiles are the unit of parallel work."""
+
 LANES = 8
 """Row spans are padded to a multiple of this many pixels (AVX2 float32)."""
+
+STRIDE = TILE + LANES
+"""Row pitch of a tile buffer plane: room for a span padded past the tile edge."""
+
+# Unsigned compile-time offsets: planes sit at constant distances, so LLVM
+# vectorizes the row loops without run-time aliasing checks between planes.
+_USTRIDE = np.uint64(STRIDE)
+_PLANE = np.uint64(TILE * STRIDE)
+_P1 = np.uint64(TILE * STRIDE)
+_P2 = np.uint64(2 * TILE * STRIDE)
+_P3 = np.uint64(3 * TILE * STRIDE)
 
 _F0 = np.float32(0.0)
 _F1 = np.float32(1.0)
@@ -127,177 +141,228 @@ def _bin(ranges, ntx, offsets, fill, order):
 
 
 @numba.njit(inline="always", **KERNEL)
-def _row_weights(wrow, ramp, n8, nf, a2, b1, c0, peak):
-    """wrow[i] = peak * exp(-d2(i)/2) for i < nf, exactly 0 for nf <= i < n8."""
-    for i in range(n8):
-        u = ramp[i]
-        d2 = (a2 * u + b1) * u + c0
-        g = peak * gauss_weight(d2)
-        wrow[i] = g if u < nf else _F0
+def _span(r, mx, my, isyy, wsq, slope, c_lo, c_hi):
+    """Exact float64 columns [lo, hi] of row ``r`` whose centres lie within d <= 3.
+
+    Returns ``(dy, lo, hi)``; ``hi < lo`` when the row misses the ellipse.
+    """
+    dy = r + 0.5 - my
+    left = 9.0 - dy * dy * isyy
+    if left < 0.0:
+        return dy, 1, 0
+    hw = math.sqrt(wsq * left)
+    xc = mx + slope * dy
+    lo = max(int(np.ceil(xc - hw - 0.5)), c_lo)
+    hi = min(int(np.floor(xc + hw - 0.5)), c_hi)
+    return dy, lo, hi
 
 
 @numba.njit(inline="always", **KERNEL)
-def _row_over3(buf, off, ramp, n8, nf, a2, b1, c0, peak, f0, f1, f2):
-    """Premultiplied over of one K=3 splat row onto planes 0..3 of ``buf``."""
-    p0 = buf[0]
-    p1 = buf[1]
-    p2 = buf[2]
-    p3 = buf[3]
+def _pair_over3(buf, q0, ramp, n8, sa, ea, sb, eb, a2, b1a, c0a, b1b, c0b, peak, f0, f1, f2):
+    """Premultiplied over of one K=3 splat on two buffer rows (q0 and q0 + STRIDE).
+
+    Lane ``u`` of row a is inside the footprint when ``sa <= u < ea`` (row b
+    likewise); other lanes get weight exactly 0, which leaves pixels unchanged.
+    """
     for i in range(n8):
         u = ramp[i]
-        d2 = (a2 * u + b1) * u + c0
-        g = peak * gauss_weight(d2)
-        w = g if u < nf else _F0
+        w = peak * gauss_weight(fma(fma(a2, u, b1a), u, c0a))
+        w = w if (u >= sa) & (u < ea) else _F0
         om = _F1 - w
-        q = off + i
-        p0[q] = p0[q] * om + f0 * w
-        p1[q] = p1[q] * om + f1 * w
-        p2[q] = p2[q] * om + f2 * w
-        p3[q] = p3[q] * om + w
+        q = q0 + i
+        buf[q] = fma(buf[q], om, f0 * w)
+        buf[q + _P1] = fma(buf[q + _P1], om, f1 * w)
+        buf[q + _P2] = fma(buf[q + _P2], om, f2 * w)
+        buf[q + _P3] = fma(buf[q + _P3], om, w)
+        w = peak * gauss_weight(fma(fma(a2, u, b1b), u, c0b))
+        w = w if (u >= sb) & (u < eb) else _F0
+        om = _F1 - w
+        q = q + _USTRIDE
+        buf[q] = fma(buf[q], om, f0 * w)
+        buf[q + _P1] = fma(buf[q + _P1], om, f1 * w)
+        buf[q + _P2] = fma(buf[q + _P2], om, f2 * w)
+        buf[q + _P3] = fma(buf[q + _P3], om, w)
 
 
 @numba.njit(inline="always", **KERNEL)
-def _row_sum3(buf, off, ramp, n8, nf, a2, b1, c0, peak, f0, f1, f2, mode):
-    """K=3 add (alpha plane holds transmittance) or absorb (alpha plane holds tau)."""
-    p0 = buf[0]
-    p1 = buf[1]
-    p2 = buf[2]
-    p3 = buf[3]
-    if mode == MODE_ADD:
-        for i in range(n8):
-            u = ramp[i]
-            d2 = (a2 * u + b1) * u + c0
-            g = peak * gauss_weight(d2)
-            w = g if u < nf else _F0
-            q = off + i
-            p0[q] = p0[q] + f0 * w
-            p1[q] = p1[q] + f1 * w
-            p2[q] = p2[q] + f2 * w
-            p3[q] = p3[q] * (_F1 - w)
-    else:
-        for i in range(n8):
-            u = ramp[i]
-            d2 = (a2 * u + b1) * u + c0
-            g = peak * gauss_weight(d2)
-            w = g if u < nf else _F0
-            q = off + i
-            p0[q] = p0[q] + f0 * w
-            p1[q] = p1[q] + f1 * w
-            p2[q] = p2[q] + f2 * w
-            p3[q] = p3[q] + w
+def _pair_add3(buf, q0, ramp, n8, sa, ea, sb, eb, a2, b1a, c0a, b1b, c0b, peak, f0, f1, f2):
+    """K=3 "add": colour sums ``f a``; the alpha plane holds transmittance."""
+    for i in range(n8):
+        u = ramp[i]
+        w = peak * gauss_weight(fma(fma(a2, u, b1a), u, c0a))
+        w = w if (u >= sa) & (u < ea) else _F0
+        q = q0 + i
+        buf[q] = fma(f0, w, buf[q])
+        buf[q + _P1] = fma(f1, w, buf[q + _P1])
+        buf[q + _P2] = fma(f2, w, buf[q + _P2])
+        buf[q + _P3] = buf[q + _P3] * (_F1 - w)
+        w = peak * gauss_weight(fma(fma(a2, u, b1b), u, c0b))
+        w = w if (u >= sb) & (u < eb) else _F0
+        q = q + _USTRIDE
+        buf[q] = fma(f0, w, buf[q])
+        buf[q + _P1] = fma(f1, w, buf[q + _P1])
+        buf[q + _P2] = fma(f2, w, buf[q + _P2])
+        buf[q + _P3] = buf[q + _P3] * (_F1 - w)
 
 
 @numba.njit(inline="always", **KERNEL)
-def _row_generic(buf, off, wrow, n8, feat, mode):
-    """Apply one row of weights ``wrow[:n8]`` to every plane of ``buf`` (any K)."""
-    k_alpha = buf.shape[0] - 1
+def _pair_absorb3(buf, q0, ramp, n8, sa, ea, sb, eb, a2, b1a, c0a, b1b, c0b, peak, f0, f1, f2):
+    """K=3 "absorb": colour sums ``f tau``; the alpha plane sums ``tau``."""
+    for i in range(n8):
+        u = ramp[i]
+        w = peak * gauss_weight(fma(fma(a2, u, b1a), u, c0a))
+        w = w if (u >= sa) & (u < ea) else _F0
+        q = q0 + i
+        buf[q] = fma(f0, w, buf[q])
+        buf[q + _P1] = fma(f1, w, buf[q + _P1])
+        buf[q + _P2] = fma(f2, w, buf[q + _P2])
+        buf[q + _P3] = buf[q + _P3] + w
+        w = peak * gauss_weight(fma(fma(a2, u, b1b), u, c0b))
+        w = w if (u >= sb) & (u < eb) else _F0
+        q = q + _USTRIDE
+        buf[q] = fma(f0, w, buf[q])
+        buf[q + _P1] = fma(f1, w, buf[q + _P1])
+        buf[q + _P2] = fma(f2, w, buf[q + _P2])
+        buf[q + _P3] = buf[q + _P3] + w
+
+
+@numba.njit(inline="always", **KERNEL)
+def _pair_weights(wrow, ramp, n8, sa, ea, sb, eb, a2, b1a, c0a, b1b, c0b, peak):
+    """Weights of two rows: wrow[i] (row a) and wrow[STRIDE + i] (row b)."""
+    for i in range(n8):
+        u = ramp[i]
+        w = peak * gauss_weight(fma(fma(a2, u, b1a), u, c0a))
+        wrow[i] = w if (u >= sa) & (u < ea) else _F0
+        w = peak * gauss_weight(fma(fma(a2, u, b1b), u, c0b))
+        wrow[i + _USTRIDE] = w if (u >= sb) & (u < eb) else _F0
+
+
+@numba.njit(inline="always", **KERNEL)
+def _pair_generic(buf, q0, wrow, n8, feat, mode):
+    """Apply two rows of weights to every plane of ``buf`` (any K)."""
+    k_alpha = feat.shape[0]
+    n2 = n8 + _USTRIDE
     for k in range(k_alpha):
-        plane = buf[k]
         fk = feat[k]
+        base = q0 + numba.uint64(k) * _PLANE
         if mode == MODE_OVER:
-            for i in range(n8):
-                q = off + i
+            for i in range(n2):
                 w = wrow[i]
-                plane[q] = plane[q] * (_F1 - w) + fk * w
+                buf[base + i] = fma(buf[base + i], _F1 - w, fk * w)
         else:
-            for i in range(n8):
-                q = off + i
-                plane[q] = plane[q] + fk * wrow[i]
-    plane = buf[k_alpha]
+            for i in range(n2):
+                buf[base + i] = fma(fk, wrow[i], buf[base + i])
+    base = q0 + numba.uint64(k_alpha) * _PLANE
     if mode == MODE_OVER:
-        for i in range(n8):
-            q = off + i
+        for i in range(n2):
             w = wrow[i]
-            plane[q] = plane[q] * (_F1 - w) + w
+            buf[base + i] = fma(buf[base + i], _F1 - w, w)
     elif mode == MODE_ADD:
-        for i in range(n8):
-            q = off + i
-            plane[q] = plane[q] * (_F1 - wrow[i])
+        for i in range(n2):
+            buf[base + i] = buf[base + i] * (_F1 - wrow[i])
     else:
-        for i in range(n8):
-            q = off + i
-            plane[q] = plane[q] + wrow[i]
+        for i in range(n2):
+            buf[base + i] = buf[base + i] + wrow[i]
 
 
 @numba.njit(**KERNEL)
-def _render_tile(t, ntx, tile, height, width, params, ranges, feats, peaks,
-                 mode, offsets, order, ramp, out):
-    """Composite every splat binned to tile ``t`` and write the tile into ``out``."""
+def _render_tile(t, ntx, params, ranges, feats, peaks, mode, offsets, order, ramp, out):
+    """Composite every splat binned to tile ``t`` and write the tile into ``out``.
+
+    Rows of a splat are taken in pairs sharing one column span (the union of
+    both rows' exact spans) so each vector loop does twice the work per
+    iteration; an odd last row pairs with an empty row.
+    """
+    height = out.shape[0]
+    width = out.shape[1]
     nk = feats.shape[1]
-    ty = t // ntx
-    tx = t % ntx
-    tr0 = ty * tile
-    tc0 = tx * tile
-    th = min(tile, height - tr0)
-    tw = min(tile, width - tc0)
-    stride = tile + LANES
-    buf = np.zeros((nk + 1, th * stride), dtype=np.float32)
+    tr0 = (t // ntx) * TILE
+    tc0 = (t % ntx) * TILE
+    th = min(TILE, height - tr0)
+    tw = min(TILE, width - tc0)
+    tc1 = tc0 + tw - 1
+    # One spare row: the empty partner of an odd last row may touch it.
+    buf = np.zeros((nk + 1) * TILE * STRIDE + STRIDE, dtype=np.float32)
     if mode == MODE_ADD:
-        buf[nk, :] = _F1  # transmittance starts at 1
-    wrow = np.empty(stride, dtype=np.float32)
+        buf[nk * TILE * STRIDE:] = _F1  # transmittance starts at 1
+    wrow = np.empty(2 * STRIDE, dtype=np.float32)
     for s in range(offsets[t], offsets[t + 1]):
         j = order[s]
         mx = params[j, 0]
         my = params[j, 1]
-        sxy = params[j, 3]
-        syy = params[j, 4]
         det = params[j, 5]
+        isyy = 1.0 / params[j, 4]
+        slope = params[j, 3] * isyy
+        wsq = det * isyy
         ca = params[j, 6]
         cb = params[j, 7]
         cc = params[j, 2] / det
-        slope = sxy / syy
-        wsq = det / syy
+        a2 = np.float32(ca)
         peak = peaks[j]
         ra = max(ranges[j, 0], tr0)
         rb = min(ranges[j, 1], tr0 + th - 1)
-        ca32 = np.float32(ca)
-        for r in range(ra, rb + 1):
-            dy = r + 0.5 - my
-            left = 9.0 - dy * dy / syy
-            if left < 0.0:
-                continue
-            hw = math.sqrt(wsq * left)
-            xc = mx + slope * dy
-            lo = max(int(np.ceil(xc - hw - 0.5)), tc0)
-            hi = min(int(np.floor(xc + hw - 0.5)), tc0 + tw - 1)
-            if hi < lo:
-                continue
-            n = hi - lo + 1
-            n8 = numba.uint64((n + LANES - 1) // LANES * LANES)
+        for r in range(ra, rb + 1, 2):
+            dya, loa, hia = _span(r, mx, my, isyy, wsq, slope, tc0, tc1)
+            if r + 1 <= rb:
+                dyb, lob, hib = _span(r + 1, mx, my, isyy, wsq, slope, tc0, tc1)
+            else:
+                dyb, lob, hib = dya, 1, 0
+            if hia < loa:
+                if hib < lob:
+                    continue
+                lo, hi = lob, hib
+                loa, hia = lob, lob - 1
+            elif hib < lob:
+                lo, hi = loa, hia
+                lob, hib = loa, loa - 1
+            else:
+                lo, hi = min(loa, lob), max(hia, hib)
+            n8 = numba.uint64((hi - lo + LANES) // LANES * LANES)
             dx0 = lo + 0.5 - mx
-            b1 = np.float32(2.0 * (ca * dx0 + cb * dy))
-            c0 = np.float32(ca * dx0 * dx0 + 2.0 * cb * dx0 * dy + cc * dy * dy)
-            nf = np.float32(n)
-            off = numba.uint64((r - tr0) * stride + (lo - tc0))
+            b1a = np.float32(2.0 * (ca * dx0 + cb * dya))
+            c0a = np.float32((ca * dx0 + 2.0 * cb * dya) * dx0 + cc * dya * dya)
+            b1b = np.float32(2.0 * (ca * dx0 + cb * dyb))
+            c0b = np.float32((ca * dx0 + 2.0 * cb * dyb) * dx0 + cc * dyb * dyb)
+            sa = np.float32(loa - lo)
+            ea = np.float32(hia - lo + 1)
+            sb = np.float32(lob - lo)
+            eb = np.float32(hib - lo + 1)
+            q0 = numba.uint64((r - tr0) * STRIDE + (lo - tc0))
             if nk == 3:
                 if mode == MODE_OVER:
-                    _row_over3(buf, off, ramp, n8, nf, ca32, b1, c0, peak,
-                               feats[j, 0], feats[j, 1], feats[j, 2])
+                    _pair_over3(buf, q0, ramp, n8, sa, ea, sb, eb, a2, b1a, c0a, b1b, c0b,
+                                peak, feats[j, 0], feats[j, 1], feats[j, 2])
+                elif mode == MODE_ADD:
+                    _pair_add3(buf, q0, ramp, n8, sa, ea, sb, eb, a2, b1a, c0a, b1b, c0b,
+                               peak, feats[j, 0], feats[j, 1], feats[j, 2])
                 else:
-                    _row_sum3(buf, off, ramp, n8, nf, ca32, b1, c0, peak,
-                              feats[j, 0], feats[j, 1], feats[j, 2], mode)
+                    _pair_absorb3(buf, q0, ramp, n8, sa, ea, sb, eb, a2, b1a, c0a, b1b, c0b,
+                                  peak, feats[j, 0], feats[j, 1], feats[j, 2])
             else:
-                _row_weights(wrow, ramp, n8, nf, ca32, b1, c0, peak)
-                _row_generic(buf, off, wrow, n8, feats[j], mode)
+                # Lanes n8..STRIDE of row a are never read by _pair_generic
+                # except as row b's "i < STRIDE" gap: zero them so they are no-ops.
+                wrow[:] = _F0
+                _pair_weights(wrow, ramp, n8, sa, ea, sb, eb, a2, b1a, c0a, b1b, c0b, peak)
+                _pair_generic(buf, q0, wrow, n8, feats[j], mode)
     # Write the tile; add and absorb finish their alpha (and absorb its colour) here.
     for r in range(th):
         for c in range(tw):
-            q = r * stride + c
-            a = buf[nk, q]
+            q = r * STRIDE + c
+            a = buf[nk * TILE * STRIDE + q]
             if mode == MODE_OVER:
                 for k in range(nk):
-                    out[tr0 + r, tc0 + c, k] = buf[k, q]
+                    out[tr0 + r, tc0 + c, k] = buf[k * TILE * STRIDE + q]
                 out[tr0 + r, tc0 + c, nk] = a
             elif mode == MODE_ADD:
                 for k in range(nk):
-                    out[tr0 + r, tc0 + c, k] = buf[k, q]
+                    out[tr0 + r, tc0 + c, k] = buf[k * TILE * STRIDE + q]
                 out[tr0 + r, tc0 + c, nk] = _F1 - a
             else:
                 if a > _F0:
                     alpha = -math.expm1(-np.float64(a))
                     scale = alpha / np.float64(a)
                     for k in range(nk):
-                        out[tr0 + r, tc0 + c, k] = np.float32(buf[k, q] * scale)
+                        out[tr0 + r, tc0 + c, k] = np.float32(buf[k * TILE * STRIDE + q] * scale)
                     out[tr0 + r, tc0 + c, nk] = np.float32(alpha)
                 else:
                     for k in range(nk + 1):
@@ -305,8 +370,9 @@ def _render_tile(t, ntx, tile, height, width, params, ranges, feats, peaks,
 
 
 @numba.njit(**PARALLEL)
-def _render(ntx, nty, tile, params, ranges, feats, peaks, mode, offsets, order, ramp, out):
+def _render(params, ranges, feats, peaks, mode, offsets, order, ramp, out):
     """prange over tiles; each tile writes only its own output pixels."""
+    ntx = (out.shape[1] + TILE - 1) // TILE
+    nty = (out.shape[0] + TILE - 1) // TILE
     for t in numba.prange(ntx * nty):
-        _render_tile(t, ntx, tile, out.shape[0], out.shape[1], params, ranges,
-                     feats, peaks, mode, offsets, order, ramp, out)
+        _render_tile(t, ntx, params, ranges, feats, peaks, mode, offsets, order, ramp, out)

@@ -22,7 +22,7 @@ from splatter import _composite_kernels as _k
 BLENDS = ("over", "add", "absorb")
 """Blend modes accepted by :func:`composite` and :func:`composite_features`."""
 
-TILE = 64
+TILE = _k.TILE
 """Screen tile edge in pixels: tiles are the unit of parallel work."""
 
 _MAX_OPACITY = 1.0 - 1e-6
@@ -179,8 +179,8 @@ def composite_features(means, covs, features, opacities, *, shape, blend="over")
     _k._count_pairs(ranges, ntx, offsets)
     order = np.empty(int(offsets[-1]), dtype=np.int64)
     _k._bin(ranges, ntx, offsets, np.empty(ntx * nty, dtype=np.int64), order)
-    ramp = np.arange(TILE + _k.LANES, dtype=np.float32)
-    _k._render(ntx, nty, TILE, params, ranges,
+    ramp = np.arange(_k.STRIDE, dtype=np.float32)
+    _k._render(params, ranges,
                np.ascontiguousarray(features, dtype=np.float32),
                np.ascontiguousarray(peaks, dtype=np.float32),
                mode, offsets, order, ramp, out)
