@@ -241,24 +241,33 @@ def transmittance(grid: DensityGrid, pos, directions) -> np.ndarray:
     return np.exp(-tau)
 
 
-def light_factors(trans, *, ambient: float, shadow: float, color, intensity: float) -> np.ndarray:
+def light_factors(trans, *, ambient: float, shadow: float, color, intensity: float, ambient_color=None) -> np.ndarray:
     """Linear light reaching each puff, as a colour multiplier.
 
-    ``E * (ambient + (1 - ambient) * (1 - shadow * (1 - T)))`` with
-    ``E = intensity * color``: ``ambient`` is the share of light that is never
-    shadowed and ``shadow`` scales how much the smoke in front of a puff dims
+    ``intensity * (ambient * A + (1 - ambient) * (1 - shadow * (1 - T)) * C)``
+    with ``C`` the light's colour and ``A`` the ambient colour (the light's
+    colour unless given): ``ambient`` is the share of light that is never
+    shadowed and ``shadow`` scales how much the smoke toward the light dims
     the rest.
 
     Parameters
     ----------
     trans : (M,) float ndarray
         Transmittance toward the light.
+    ambient : float
+        Share of unshadowed light, 0..1.
+    shadow : float
+        Self-shadow strength, 0..1.
+    color, ambient_color : (3,) float
+        Linear colours of the direct and the ambient light.
+    intensity : float
 
     Returns
     -------
     (M, 3) float64 ndarray
     """
     t = np.asarray(trans, dtype=np.float64)
-    direct = 1.0 - shadow * (1.0 - t)
-    f = ambient + (1.0 - ambient) * direct
-    return f[:, None] * (intensity * np.asarray(color, dtype=np.float64))[None, :]
+    direct = (1.0 - ambient) * (1.0 - shadow * (1.0 - t))
+    c = np.asarray(color, dtype=np.float64)
+    a = c if ambient_color is None else np.asarray(ambient_color, dtype=np.float64)
+    return intensity * (ambient * a[None, :] + direct[:, None] * c[None, :])

@@ -208,6 +208,7 @@ class ShadingSpec:
 
     blend: str = "over"
     ambient: float = 1.0
+    ambient_color: Optional[Vec3] = None  # colour of the unshadowed share; None: the light's colour
     exposure: float = 0.0
     light: Optional[LightSpec] = None
 

@@ -392,6 +392,7 @@ def _shading(v, ctx):
     checkers = {
         "blend": choice(*L.BLENDS),
         "ambient": number(0.0, 1.0),
+        "ambient_color": color,
         "exposure": number(-32.0, 32.0),
         "light": lambda x, c: _check_table(x, c, L.LightSpec, _LIGHT),
     }

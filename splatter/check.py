@@ -1,0 +1,90 @@
+"""``splatter check``: validate a look and say what a render would do, writing nothing."""
+
+from __future__ import annotations
+
+from typing import List
+
+import numpy as np
+
+from splatter.look import LookSpec
+from splatter.outputs import planned_files
+from splatter.render import make_camera, output_dir
+from splatter.simulate import plan_simulation, simulate
+from splatter.splats import effective_opacity
+
+__all__ = ["check_look", "border_report"]
+
+# A puff whose 3-sigma ellipse crosses the frame edge with at least this peak
+# opacity leaves a visible cut (about 1/255 of alpha at its 3-sigma rim).
+_VISIBLE_AT_RIM = (1.0 / 255.0) / np.exp(-4.5)
+
+
+def border_report(look: LookSpec, camera, plan, frames) -> List[str]:
+    """Warnings for puffs whose visible footprint crosses the frame border.
+
+    Projects every puff of ``frames`` (no compositing) and counts the frames
+    where a puff of noticeable opacity has its 3-sigma ellipse cut by the edge.
+    """
+    from splatter.camera import puff_covariances
+
+    w, h = look.image.width, look.image.height
+    hits, worst = 0, 0.0
+    n = 0
+    for state in simulate(look, plan, frames=frames):
+        n += 1
+        if len(state.size) == 0:
+            continue
+        cov = puff_covariances(state.size, state.aspect, state.quat, state.vel, state.stretch)
+        s = camera.project(state.pos, cov)
+        op = effective_opacity(state.opacity, state.density, look.shading.blend)
+        rx = 3.0 * np.sqrt(np.asarray(s.covs[:, 0, 0], dtype=np.float64))
+        ry = 3.0 * np.sqrt(np.asarray(s.covs[:, 1, 1], dtype=np.float64))
+        mx, my = np.asarray(s.means[:, 0], dtype=np.float64), np.asarray(s.means[:, 1], dtype=np.float64)
+        cut = (mx - rx < 0) | (mx + rx > w) | (my - ry < 0) | (my + ry > h)
+        cut &= np.asarray(s.visible, dtype=bool) & (op >= _VISIBLE_AT_RIM)
+        if cut.any():
+            hits += 1
+            worst = max(worst, float(op[cut].max()))
+    if hits == 0:
+        return []
+    return [
+        f"puffs cross the frame border in {hits} of {n} frames (peak opacity up to {worst:.2f}); "
+        "the sprite may look cut off. Set camera.fit = true or widen camera.view_width."
+    ]
+
+
+def check_look(look: LookSpec) -> str:
+    """A plain-text summary of a validated look, with warnings."""
+    plan = plan_simulation(look)
+    clip, img = look.clip, look.image
+    lines = [
+        f"look      {look.name} (seed {look.seed})" + (f", from {look.path}" if look.path else ""),
+        f"clip      {clip.frames} frames at {clip.fps:g} fps = {clip.duration:.2f} s, loop {clip.loop}, "
+        f"{clip.substeps} substeps ({clip.integrator}), warm-up {plan.warmup_steps * plan.dt:.2f} s",
+        f"image     {img.width} x {img.height} px, camera {look.camera.projection}"
+        + (" (fit to the clip)" if look.camera.fit else ""),
+        f"shading   blend {look.shading.blend}" + (", lit with self-shadowing" if look.shading.light else ""),
+    ]
+    for i, src in enumerate(look.sources):
+        rate = plan.rates[i] if hasattr(plan, "rates") else src.rate
+        life = src.life[0] if src.life[0] == src.life[1] else f"{src.life[0]:g}-{src.life[1]:g}"
+        bursts = f", {sum(b.count for b in src.bursts)} puffs in bursts" if src.bursts else ""
+        lines.append(f"source[{i}] {src.shape} at {list(src.center)}, {rate:g} puffs/s, life {life} s{bursts}")
+    kinds = [type(f).__name__.replace("Spec", "").lower() for f in look.forces]
+    obst = [type(o).__name__.replace("Spec", "").lower() for o in look.obstacles]
+    lines.append(f"forces    {', '.join(kinds) or 'none'}; obstacles {', '.join(obst) or 'none'}")
+    lines.append(f"puffs     about {plan.steady_state_puffs:,.0f} alive at steady state")
+    folder = output_dir(look)
+    files = planned_files(look, folder, range(clip.frames))
+    lines.append(f"writes    {len(files)} files to {folder}/")
+    shown = files if len(files) <= 8 else files[:3] + ["..."] + files[-4:]
+    lines += [f"          {f}" for f in shown]
+    if look.output.maps and "exr" not in look.output.frames and look.output.sheet is None:
+        lines.append("warning   output.maps: maps are written as EXR layers and map sheets; "
+                     "ask for exr frames or a sheet to get them")
+    for note in plan.notes:
+        lines.append(f"note      {note}")
+    camera = make_camera(look, plan)
+    for warn in border_report(look, camera, plan, range(clip.frames)):
+        lines.append(f"warning   {warn}")
+    return "\n".join(lines)

@@ -1,0 +1,303 @@
+"""Render a look: the whole pipeline, one frame at a time.
+
+look -> simulate -> (light) -> project -> composite -> maps -> outputs.
+This module and :mod:`splatter.cli` are the only ones that see every stage.
+Memory stays at one frame's puffs and image (plus what the sheet needs).
+"""
+
+from __future__ import annotations
+
+import glob
+import os
+import sys
+import time
+import warnings
+from dataclasses import dataclass, field
+from typing import Dict, Iterable, List, Optional
+
+import numpy as np
+
+from splatter.camera import Camera, border_alpha_share, fit_view
+from splatter.composite import composite_features
+from splatter.errors import LookError, LookWarning
+from splatter.light import build_density_grid, light_factors, transmittance
+from splatter.look import LookSpec
+from splatter.maps import normal_map
+from splatter.outputs import OutputSink
+from splatter.simulate import SimPlan, plan_simulation, simulate
+from splatter.splats import LIGHTDIR_NAMES, effective_opacity, feature_layout, make_splats, split_layers
+
+__all__ = ["render", "RenderResult", "make_camera", "output_dir", "frame_images"]
+
+_BORDER_WARN = 1.0 / 255.0
+
+
+@dataclass
+class RenderResult:
+    """What a render did.
+
+    Attributes
+    ----------
+    name : str
+    out_dir : str
+    frames : list of int
+    files : list of str
+    seconds : dict of str to float
+        Wall time per stage: simulate, light, project, composite, write.
+    max_border_alpha : float
+        Highest alpha found on any frame's outermost pixel ring.
+    """
+
+    name: str
+    out_dir: str
+    frames: List[int]
+    files: List[str] = field(default_factory=list)
+    seconds: Dict[str, float] = field(default_factory=dict)
+    max_border_alpha: float = 0.0
+
+    def summary(self) -> str:
+        """One line for the end of ``splatter render``."""
+        total = self.seconds.get("total", 0.0)
+        return (
+            f"splatter: rendered {len(self.frames)} frames of {self.name} in {total:.1f} s; "
+            f"wrote {len(self.files)} files to {self.out_dir}"
+        )
+
+
+def output_dir(look: LookSpec, out_dir: Optional[str] = None) -> str:
+    """The output folder with ``{name}`` and ``{seed}`` filled in."""
+    template = out_dir if out_dir is not None else look.output.dir
+    try:
+        return template.format(name=look.name, seed=look.seed)
+    except (KeyError, IndexError, ValueError):
+        raise LookError("--out" if out_dir is not None else look.path, "output.dir",
+                        "a folder path whose only placeholders are {name} and {seed}", repr(template)) from None
+
+
+def make_camera(look: LookSpec, plan: Optional[SimPlan] = None, frames: Optional[Iterable[int]] = None) -> Camera:
+    """The look's camera; with ``camera.fit`` framed on every puff of ``frames``.
+
+    ``frames`` defaults to the whole clip (plus the crossfade frames), so a
+    partial render frames exactly like a full one.
+    """
+    c = look.camera
+    cam = Camera(
+        projection=c.projection, eye=c.eye, target=c.target, up=c.up,
+        width=look.image.width, height=look.image.height, view_width=c.view_width, fov=c.fov,
+    )
+    if not c.fit:
+        return cam
+    plan = plan or plan_simulation(look)
+    if frames is None:
+        frames = range(look.clip.frames + _crossfade_frames(look))
+    pts, rad = [], []
+    blend = look.shading.blend
+    for state in simulate(look, plan, frames=frames):
+        # Frame what can be seen: a puff of peak opacity a shows alpha >= 1/255
+        # out to r = sigma * sqrt(2 ln(255 a)), never past the 3-sigma cutoff.
+        peak = effective_opacity(state.opacity, state.density, blend) * 255.0
+        visible = peak > 1.0
+        reach = np.minimum(3.0, np.sqrt(2.0 * np.log(np.maximum(peak[visible], 1.0)))) / 3.0
+        # The long axis of a stretched puff: size, or half the smear length.
+        smear = np.linalg.norm(state.vel[visible], axis=1) * state.stretch[visible] * 0.5
+        pts.append(state.pos[visible])
+        rad.append(np.maximum(state.size[visible], smear / 3.0) * reach)
+    points = np.concatenate(pts) if pts else np.zeros((0, 3))
+    radii = np.concatenate(rad) if rad else np.zeros(0)
+    if points.shape[0] == 0:
+        return cam
+    return fit_view(cam, points, radii, margin=c.margin)
+
+
+def _crossfade_frames(look: LookSpec) -> int:
+    if look.clip.loop != "crossfade":
+        return 0
+    return max(1, int(round(look.clip.crossfade * look.clip.frames)))
+
+
+def _light_inputs(state, look: LookSpec, camera: Camera, want_lightdirs: bool):
+    """Per-puff light factor (M, 3) and six light-direction factors (M, 6)."""
+    sh = look.shading
+    if sh.light is None and not want_lightdirs:
+        return None, None, 0.0
+    t0 = time.perf_counter()
+    opac = effective_opacity(state.opacity, state.density, "absorb")
+    tau0 = -np.log1p(-np.minimum(opac, 1.0 - 1e-6))
+    grid = build_density_grid(state.pos, state.size, tau0)
+    dirs = []
+    if sh.light is not None:
+        dirs.append(np.asarray(sh.light.direction, dtype=np.float64))
+    if want_lightdirs:
+        right, up, forward = camera.axes
+        back = -forward
+        # right, left, top, bottom, front (toward the viewer), back
+        dirs += [right, -right, up, -up, back, -back]
+    trans = transmittance(grid, state.pos, np.array(dirs))
+    factor = None
+    col = 0
+    if sh.light is not None:
+        L = sh.light
+        factor = light_factors(trans[:, 0], ambient=sh.ambient, shadow=L.shadow, color=L.color, intensity=L.intensity,
+                               ambient_color=sh.ambient_color)
+        col = 1
+    lightdirs = None
+    if want_lightdirs:
+        shadow = sh.light.shadow if sh.light is not None else 1.0
+        lightdirs = 1.0 - shadow * (1.0 - trans[:, col : col + 6])
+    return factor, lightdirs, time.perf_counter() - t0
+
+
+def frame_images(look: LookSpec, camera: Camera, states, *, maps=None, timings=None):
+    """Composite each frame state into ``(H, W, K+1)`` premultiplied features.
+
+    Parameters
+    ----------
+    look : LookSpec
+    camera : Camera
+    states : iterable of FrameState
+    maps : sequence of str, optional
+        Maps to carry (defaults to the look's ``output.maps``).
+    timings : dict, optional
+        Accumulates seconds under ``light``, ``project``, ``composite``.
+
+    Yields
+    ------
+    (frame, image, channels)
+    """
+    maps = look.output.maps if maps is None else maps
+    channels = feature_layout(motion="motion" in maps, depth="depth" in maps, lightdirs="lightdirs" in maps)
+    timings = timings if timings is not None else {}
+    shape = (look.image.height, look.image.width)
+    for state in states:
+        factor, lightdirs, t_light = _light_inputs(state, look, camera, "lightdirs" in maps)
+        t0 = time.perf_counter()
+        sp = make_splats(state, camera, blend=look.shading.blend, fps=look.clip.fps, channels=channels,
+                         light_factor=factor, lightdir_factors=lightdirs)
+        t1 = time.perf_counter()
+        image = composite_features(sp.means, sp.covs, sp.features, sp.opacities, shape=shape, blend=look.shading.blend)
+        t2 = time.perf_counter()
+        timings["light"] = timings.get("light", 0.0) + t_light
+        timings["project"] = timings.get("project", 0.0) + (t1 - t0)
+        timings["composite"] = timings.get("composite", 0.0) + (t2 - t1)
+        sigma = float(np.median(np.sqrt(0.5 * (sp.covs[:, 0, 0] + sp.covs[:, 1, 1])))) if len(sp.opacities) else 1.0
+        yield state.frame, image, channels, sigma
+
+
+def _timed(it, timings, key):
+    """Iterate ``it``, adding the time spent inside it to ``timings[key]``."""
+    it = iter(it)
+    while True:
+        t0 = time.perf_counter()
+        try:
+            item = next(it)
+        except StopIteration:
+            timings[key] = timings.get(key, 0.0) + time.perf_counter() - t0
+            return
+        timings[key] = timings.get(key, 0.0) + time.perf_counter() - t0
+        yield item
+
+
+def _announce_compile() -> None:
+    """Say once, on a cold cache, that the first run compiles its kernels."""
+    here = os.path.dirname(os.path.abspath(__file__))
+    cache_dir = os.environ.get("NUMBA_CACHE_DIR")
+    pattern = os.path.join(cache_dir, "**", "*_composite_kernels*.nbi") if cache_dir else os.path.join(
+        here, "__pycache__", "*_composite_kernels*.nbi")
+    if not glob.glob(pattern, recursive=True):
+        print("splatter: compiling kernels (first run only; later runs load them from the cache)", flush=True,
+              file=sys.stderr)
+
+
+def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[Iterable[int]] = None,
+           progress: bool = True) -> RenderResult:
+    """Render a look and write the files its ``[output]`` table asks for.
+
+    Parameters
+    ----------
+    look : LookSpec
+    out_dir : str, optional
+        Replaces ``output.dir`` (``{name}``, ``{seed}`` filled in).
+    frames : iterable of int, optional
+        Frame numbers to render (default: the whole clip). May run past the
+        clip's end; the simulation continues.
+    progress : bool
+        Show a progress bar on stderr.
+
+    Returns
+    -------
+    RenderResult
+    """
+    t_start = time.perf_counter()
+    timings: Dict[str, float] = {}
+    plan = plan_simulation(look)
+    if progress:
+        for note in plan.notes:
+            print(f"splatter: note: {note}", file=sys.stderr)
+    wanted = list(frames) if frames is not None else list(range(look.clip.frames))
+    folder = output_dir(look, out_dir)
+    if progress:
+        _announce_compile()
+    t0 = time.perf_counter()
+    camera = make_camera(look, plan)
+    timings["fit"] = time.perf_counter() - t0
+
+    n = look.clip.frames
+    fade = _crossfade_frames(look)
+    tail_frames = [n + f for f in wanted if f < fade] if fade else []
+    maps = look.output.maps
+    main = frame_images(look, camera, _timed(simulate(look, plan, frames=wanted), timings, "simulate"),
+                        timings=timings)
+    tail = iter(frame_images(look, camera, _timed(simulate(look, plan, frames=tail_frames), timings, "simulate"),
+                             timings=timings)) if tail_frames else None
+
+    os.makedirs(folder, exist_ok=True)
+    sink = OutputSink(look, folder, len(wanted))
+    result = RenderResult(name=look.name, out_dir=folder, frames=wanted)
+    bar = None
+    if progress:
+        from tqdm import tqdm
+
+        bar = tqdm(total=len(wanted), desc=look.name, unit="frame", leave=False, dynamic_ncols=True)
+    worst = (0.0, None)
+    try:
+        for frame, image, channels, sigma in main:
+            if tail is not None and frame < fade:
+                _, late, _, _ = next(tail)
+                # Frame f shows frame N+f fading into frame f, so frame N-1 runs on into frame 0.
+                w = np.float32(1.0 - frame / fade)
+                image = w * late + (np.float32(1.0) - w) * image
+            rgba, layers = split_layers(image, channels)
+            if "normal" in maps:
+                layers.update(normal_map(rgba[..., 3], sigma))
+            border = _max_border(rgba[..., 3])
+            if border > worst[0]:
+                worst = (border, frame, border_alpha_share(rgba[..., 3]))
+            t_w = time.perf_counter()
+            sink.add(frame, rgba, layers)
+            timings["queue"] = timings.get("queue", 0.0) + time.perf_counter() - t_w
+            if bar is not None:
+                bar.update(1)
+        result.files = sink.finish()
+    except BaseException:
+        sink.abort()
+        raise
+    finally:
+        if bar is not None:
+            bar.close()
+    timings["write"] = sink.write_seconds
+    timings["total"] = time.perf_counter() - t_start
+    result.seconds = timings
+    result.max_border_alpha = worst[0]
+    if worst[0] >= _BORDER_WARN:
+        warnings.warn(
+            f"smoke touches the frame border: alpha up to {worst[0]:.3f} on the outermost pixels "
+            f"(frame {worst[1]}, {100 * worst[2]:.2f}% of that frame's alpha); the sprite will look cut off. "
+            "Set camera.fit = true or widen camera.view_width.",
+            LookWarning,
+            stacklevel=2,
+        )
+    return result
+
+
+def _max_border(alpha: np.ndarray) -> float:
+    return float(max(alpha[0].max(), alpha[-1].max(), alpha[:, 0].max(), alpha[:, -1].max()))
