@@ -1,0 +1,102 @@
+"""Swirl: curl noise from random Fourier modes."""
+
+import numpy as np
+import pytest
+
+from splatter.look import SwirlSpec
+from splatter.swirl import build_swirl, fast_sincos
+
+RNG = np.random.default_rng(2024)
+
+
+def _field(octaves=3, period=None, strength=0.8, scale=1.5):
+    return build_swirl(SwirlSpec(strength=strength, scale=scale, octaves=octaves, evolve=1.7), seed=11,
+                       force_index=0, period=period)
+
+
+def _numerical_divergence(f, pos, t, h):
+    div = np.zeros(pos.shape[0])
+    for j in range(3):
+        e = np.zeros(3)
+        e[j] = h
+        div += (f.velocity(pos + e, t)[:, j] - f.velocity(pos - e, t)[:, j]) / (2 * h)
+    return div
+
+
+@pytest.mark.parametrize("octaves", [1, 3, 6])
+def test_divergence_with_the_fields_own_step_is_round_off(octaves):
+    # Bridson, Hourihan, Nordenstam, "Curl-Noise for Procedural Fluid Flow",
+    # ACM TOG 26(3), 2007: v = curl(psi) is divergence-free; with the same
+    # central-difference step as the field the numerical divergence is zero to
+    # round-off (< 1e-10 in float64).
+    f = _field(octaves)
+    pos = RNG.uniform(-3, 3, (500, 3))
+    div = _numerical_divergence(f, pos, 0.37, f.h)
+    assert np.abs(div).max() < 1e-10
+    # With another step it is small but clearly not round-off: the test can fail.
+    assert np.abs(_numerical_divergence(f, pos, 0.37, 7 * f.h)).max() > 1e-8
+
+
+def test_velocity_is_the_central_difference_curl_of_the_potential():
+    # Independent reference: psi = sum a sin(k.x + w t + phi) evaluated here with
+    # numpy, curl by central differences of step h.
+    f = _field(3)
+    pos = RNG.uniform(-2, 2, (300, 3))
+    t, h = 0.9, f.h
+
+    def psi(p):
+        return np.sin(p @ f.k.T + (f.w * t + f.phi)) @ f.a
+
+    d = []
+    for j in range(3):
+        e = np.zeros(3)
+        e[j] = h
+        d.append((psi(pos + e) - psi(pos - e)) / (2 * h))  # d[j][:, i] = d psi_i / d x_j
+    curl = np.stack([d[1][:, 2] - d[2][:, 1], d[2][:, 0] - d[0][:, 2], d[0][:, 1] - d[1][:, 0]], axis=1)
+    v = f.velocity(pos, t)
+    scale = np.abs(v).max()
+    np.testing.assert_allclose(v, curl, atol=1e-9 * scale)
+    # The analytic curl, sum cos(theta) (k x a), differs by O((k h)^2).
+    analytic = np.cos(pos @ f.k.T + (f.w * t + f.phi)) @ np.cross(f.k, f.a)
+    kh = np.abs(f.k).max() * h
+    err = np.abs(v - analytic).max() / scale
+    assert err < 2 * kh ** 2 * f.k.shape[0]
+
+
+def test_rms_speed_is_the_strength():
+    # Normalisation: mean |v|^2 = sum |b|^2 / 2 over space and time; sampled here.
+    f = _field(3, strength=0.8)
+    pos = RNG.uniform(-20, 20, (20000, 3))
+    speeds2 = np.concatenate([np.sum(f.velocity(pos, t) ** 2, axis=1) for t in (0.0, 3.1, 7.7)])
+    assert abs(np.sqrt(speeds2.mean()) - 0.8) < 0.03
+
+
+def test_periodic_in_time_when_looping():
+    # A time-periodic field: v(x, t) = v(x, t + P) (reference-checks, Motion).
+    period = 2.4
+    f = _field(3, period=period)
+    pos = RNG.uniform(-2, 2, (200, 3))
+    for t in (0.0, 0.55, 1.9):
+        np.testing.assert_allclose(f.velocity(pos, t + period), f.velocity(pos, t), atol=1e-12)
+    # Not trivially constant in time.
+    assert np.abs(f.velocity(pos, 0.3) - f.velocity(pos, 0.0)).max() > 1e-3
+    # Every mode turns a whole number (>= 1) of times per period.
+    m = f.w * period / (2 * np.pi)
+    np.testing.assert_allclose(m, np.round(m), atol=1e-9)
+    assert m.min() >= 1 - 1e-9
+
+
+def test_same_seed_same_field():
+    a, b = _field(2), _field(2)
+    np.testing.assert_array_equal(a.b, b.b)
+    other = build_swirl(SwirlSpec(octaves=2), seed=12, force_index=0)
+    assert not np.array_equal(a.k, other.k)
+
+
+def test_fast_sincos_against_numpy():
+    # The kernels' branch-free sine/cosine against numpy's (the platform libm).
+    x = np.concatenate([RNG.uniform(-4, 4, 100000), RNG.uniform(-1e4, 1e4, 100000),
+                        np.arange(-8, 9) * np.pi / 4])
+    cs = fast_sincos(x)
+    assert np.abs(cs[0] - np.cos(x)).max() < 5e-16
+    assert np.abs(cs[1] - np.sin(x)).max() < 5e-16
