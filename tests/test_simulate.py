@@ -1,0 +1,163 @@
+"""The simulate driver: plan, determinism, frame ranges, exact loops, the npz file."""
+
+import os
+
+import numpy as np
+import pytest
+
+from splatter.look import (BurstSpec, ClipSpec, GravitySpec, LiftSpec, LookSpec, PlaneSpec, SourceSpec, SwirlSpec,
+                           VortexSpec, WindSpec)
+from splatter.simulate import FrameState, plan_simulation, save_states, simulate
+
+FIELDS = ("id", "slot", "source", "pos", "vel", "age", "life", "size", "opacity", "color", "glow", "aspect", "quat",
+          "stretch", "density")
+
+
+def _busy_look(loop="none", seed=4, frames=24, **clip):
+    sources = (
+        SourceSpec(shape="disc", rate=47.3, radius=0.3, spread=25.0, life=(0.8, 1.4), size=(0.1, 0.2),
+                   grow=((0.0, 1.0), (1.0, 2.5)), fade=0.3, aspect=(0.4, 0.9),
+                   color=((0.0, (1.0, 0.5, 0.2)), (1.0, (0.2, 0.2, 0.2))),
+                   glow=((0.0, (2.0, 1.0, 0.0)), (0.3, (0.0, 0.0, 0.0)))),
+        SourceSpec(shape="box", center=(0.5, 0.0, 0.0), rate=20.0, speed=(0.2, 0.6), life=(0.5, 1.0),
+                   stretch=0.1, density=2.0),
+    )
+    forces = (GravitySpec(accel=(0.0, -0.5, 0.0)), WindSpec(velocity=(0.6, 0.0, 0.1), gust=0.4, gust_period=0.7),
+              LiftSpec(accel=1.5, cooling=0.8), SwirlSpec(strength=0.5, scale=0.8, octaves=3, evolve=0.6),
+              VortexSpec(center=(0.2, 0.0, 0.0), strength=0.7, radius=0.3))
+    return LookSpec(name="busy", seed=seed, clip=ClipSpec(frames=frames, fps=30, loop=loop, **clip),
+                    sources=sources, forces=forces, obstacles=(PlaneSpec(point=(0.0, -0.1, 0.0), bounce=0.4),))
+
+
+def _assert_same(a: FrameState, b: FrameState, fields=FIELDS):
+    assert len(a) == len(b)
+    for name in fields:
+        np.testing.assert_array_equal(getattr(a, name), getattr(b, name), err_msg=name)
+
+
+def test_plan_basics_and_rate_snap_note():
+    look = _busy_look("exact", frames=48)
+    plan = plan_simulation(look)
+    assert plan.dt == 1 / 60
+    assert plan.period == 1.6 and plan.period_steps == 96
+    assert plan.warmup_steps == 84  # auto: longest life 1.4 s
+    assert plan.rates[0] == 76 / 1.6  # round(47.3 * 1.6) = 76 puffs per period
+    assert "source[0].rate: 47.3/s snapped to 47.5/s so 76 puffs are born per 1.6 s loop period" in plan.notes
+    assert any(n.startswith("force[1].gust_period: 0.7 s snapped to") for n in plan.notes)
+    assert any(n.startswith("force[3].evolve:") for n in plan.notes)
+
+
+def test_notes_name_what_cannot_loop():
+    look = LookSpec(name="n", clip=ClipSpec(frames=30, fps=30, loop="exact", warmup=0.5),
+                    sources=(SourceSpec(rate=10.0, bursts=(BurstSpec(0.2, 5),), stop=0.5, life=(2.0, 3.0)),))
+    notes = plan_simulation(look).notes
+    assert any(n.startswith("source[0].bursts: a burst cannot repeat") for n in notes)
+    assert any(n.startswith("source[0].stop:") for n in notes)
+    assert any(n.startswith("clip.warmup: 0.5 s raised to 3 s") for n in notes)
+    assert any(n.startswith("source[0].life:") for n in notes)
+    assert plan_simulation(_busy_look("none")).notes == ()
+
+
+def test_frame_state_fields():
+    st = list(simulate(_busy_look(), frames=[12]))[0]
+    m = len(st)
+    assert m > 20 and st.frame == 12 and st.time == 12 / 30
+    shapes = {"pos": (m, 3), "vel": (m, 3), "color": (m, 3), "glow": (m, 3), "quat": (m, 4)}
+    for name in FIELDS:
+        arr = getattr(st, name)
+        assert arr.shape == shapes.get(name, (m,)), name
+    assert st.id.dtype == np.int64 and st.slot.dtype == np.int64 and st.source.dtype == np.int32
+    assert len(set(st.id.tolist())) == m
+    np.testing.assert_allclose(np.linalg.norm(st.quat, axis=1), 1.0, atol=1e-12)
+    assert np.all((st.age >= 0) & (st.age < st.life))
+    s1 = st.source == 1
+    np.testing.assert_array_equal(st.quat[s1], np.tile([1.0, 0.0, 0.0, 0.0], (s1.sum(), 1)))  # aspect 1
+    np.testing.assert_array_equal(st.glow[s1], 0.0)
+    assert np.all(st.stretch[s1] == 0.1) and np.all(st.density[s1] == 2.0)
+    # Ramps at age / life: the default opacity ramp times exp(-fade age) (source 0 fade 0.3).
+    x = st.age / st.life
+    s0 = ~s1
+    ramp = np.interp(x[s0], [0.0, 0.1, 1.0], [0.0, 0.5, 0.0])
+    np.testing.assert_allclose(st.opacity[s0], ramp * np.exp(-0.3 * st.age[s0]), atol=1e-15)
+    assert np.all(st.size[s0] >= 0.1 - 1e-12) and np.all(st.size[s0] <= 0.2 * 2.5 + 1e-12)
+    assert np.all(st.pos[:, 1] >= -0.1)  # the plane holds
+    # Ordered by (source, slot, id).
+    key = np.lexsort((st.id, st.slot, st.source))
+    np.testing.assert_array_equal(key, np.arange(m))
+
+
+def test_same_seed_same_arrays_other_seed_differs():
+    a = list(simulate(_busy_look(seed=4), frames=[5, 15]))
+    b = list(simulate(_busy_look(seed=4), frames=[5, 15]))
+    c = list(simulate(_busy_look(seed=5), frames=[15]))
+    for x, y in zip(a, b):
+        _assert_same(x, y)
+    assert len(c[0]) != len(a[1]) or not np.array_equal(c[0].pos, a[1].pos)
+
+
+def test_frame_range_equals_full_run():
+    look = _busy_look(frames=64)
+    full = {s.frame: s for s in simulate(look, frames=range(64))}
+    part = list(simulate(look, frames=range(10, 20)))
+    assert [s.frame for s in part] == list(range(10, 20))
+    for s in part:
+        _assert_same(s, full[s.frame])
+
+
+def test_frames_may_run_past_the_clip():
+    look = _busy_look(frames=8)
+    late = list(simulate(look, frames=[30, 3]))
+    assert [s.frame for s in late] == [3, 30]
+    assert late[1].time == 1.0
+
+
+@pytest.mark.parametrize("integrator", ["symplectic", "midpoint"])
+def test_exact_loop_frame_n_equals_frame_0(integrator):
+    # Exact loop by construction: every input of frame N (births, random draws,
+    # force phases, ages) is bit-identical to frame 0's, so the states are too.
+    look = _busy_look("exact", frames=24, integrator=integrator)
+    first, last = list(simulate(look, frames=[0, 24]))
+    assert len(first) > 20
+    _assert_same(first, last, fields=[f for f in FIELDS if f != "id"])
+    assert not np.array_equal(first.id, last.id)
+    # And not because nothing moves: an intermediate frame differs.
+    mid = list(simulate(look, frames=[12]))[0]
+    assert len(mid) != len(first) or not np.array_equal(mid.pos, first.pos)
+
+
+def test_steady_state_count_follows_littles_law():
+    # Little's law (Little, Operations Research 9(3), 1961): mean number alive
+    # L = rate x mean life.  Sources 0 and 1: 47.3 x 1.1 + 20 x 0.75 = 67.03.
+    look = _busy_look(frames=90)
+    plan = plan_simulation(look)
+    assert plan.steady_state_puffs == pytest.approx(47.3 * 1.1 + 20 * 0.75, rel=1e-5)
+    look = LookSpec(name="little", clip=ClipSpec(frames=120, fps=30), sources=look.sources)
+    counts = [len(s) for s in simulate(look, frames=range(0, 120, 4))]
+    assert np.mean(counts) == pytest.approx(plan.steady_state_puffs, rel=0.1)
+
+
+def test_save_states_round_trip(tmp_path):
+    states = list(simulate(_busy_look(), frames=[0, 6, 12]))
+    path = tmp_path / "sim.npz"
+    save_states(path, states)
+    assert sorted(os.listdir(tmp_path)) == ["sim.npz"]  # no temporary file left behind
+    with np.load(path) as z:
+        fs = z["frame_start"]
+        assert fs.shape == (4,) and fs[0] == 0 and fs[-1] == sum(len(s) for s in states)
+        np.testing.assert_array_equal(z["frame"], [0, 6, 12])
+        np.testing.assert_array_equal(z["time"], [0.0, 0.2, 0.4])
+        for j, st in enumerate(states):
+            for name in FIELDS:
+                np.testing.assert_array_equal(z[name][fs[j]:fs[j + 1]], getattr(st, name), err_msg=name)
+
+
+def test_save_states_empty(tmp_path):
+    save_states(tmp_path / "none.npz", [])
+    with np.load(tmp_path / "none.npz") as z:
+        np.testing.assert_array_equal(z["frame_start"], [0])
+        assert z["pos"].shape == (0, 3)
+
+
+def test_negative_frame_is_rejected():
+    with pytest.raises(ValueError, match="frames"):
+        list(simulate(_busy_look(), frames=[-1]))
