@@ -14,6 +14,7 @@ step: integer arithmetic, no rounding drift.  A puff born at ``x`` (in
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 from typing import Optional, Tuple
@@ -95,16 +96,24 @@ class Schedule:
         return ok
 
 
+def _cross(a, b):
+    return (a[1] * b[2] - a[2] * b[1], a[2] * b[0] - a[0] * b[2], a[0] * b[1] - a[1] * b[0])
+
+
+@functools.lru_cache(maxsize=64)
+def _basis_of(axis: tuple) -> tuple:
+    n = math.sqrt(sum(c * c for c in axis))
+    w = (0.0, 1.0, 0.0) if n == 0 else tuple(c / n for c in axis)
+    helper = (1.0, 0.0, 0.0) if abs(w[0]) < 0.9 else (0.0, 0.0, 1.0)
+    u = _cross(helper, w)
+    nu = math.sqrt(sum(c * c for c in u))
+    u = tuple(c / nu for c in u)
+    return w, u, _cross(w, u)
+
+
 def _basis(axis) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Unit ``axis`` and two unit vectors completing a right-handed basis."""
-    w = np.asarray(axis, dtype=np.float64)
-    n = math.sqrt(float(w @ w))
-    w = np.array([0.0, 1.0, 0.0]) if n == 0 else w / n
-    helper = np.array([1.0, 0.0, 0.0]) if abs(w[0]) < 0.9 else np.array([0.0, 0.0, 1.0])
-    u = np.cross(helper, w)
-    u /= math.sqrt(float(u @ u))
-    v = np.cross(w, u)
-    return w, u, v
+    return tuple(np.array(v) for v in _basis_of(tuple(float(c) for c in axis)))
 
 
 def sample_positions(source, u: np.ndarray) -> np.ndarray:

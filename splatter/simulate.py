@@ -302,30 +302,68 @@ _STORE = ("id", "slot", "source", "bstep", "bfrac", "life", "size0", "aspect", "
 
 
 class _Puffs:
-    """Growable set of live puffs: one array per attribute, birth order."""
+    """Live puffs in birth order: one growable buffer per attribute.
 
-    def __init__(self):
-        self.a = {name: np.zeros((0,) + ((_WIDTH[name],) if name in _WIDTH else ()),
-                                 dtype=_INT_FIELDS.get(name, np.float64)) for name in _STORE}
+    Dead puffs are only flagged; the buffers are compacted once an eighth of
+    the rows are dead (stepping a few dead rows is cheaper than compacting
+    every step, and no puff's result depends on its row).
+    """
+
+    def __init__(self, capacity: int = 1024):
+        self.n = 0
+        self.dead = 0
+        self.live = np.zeros(capacity, dtype=bool)
+        self.buf = {name: np.zeros((capacity,) + ((_WIDTH[name],) if name in _WIDTH else ()),
+                                   dtype=_INT_FIELDS.get(name, np.float64)) for name in _STORE}
 
     def __len__(self):
-        return self.a["id"].shape[0]
+        return self.n
+
+    @property
+    def a(self) -> dict:
+        """Views of the first ``n`` rows (dead ones included)."""
+        return {name: b[:self.n] for name, b in self.buf.items()}
 
     def add(self, parts: list):
-        if not parts:
+        k = sum(p["id"].shape[0] for p in parts)
+        if k == 0:
             return
-        for name in _STORE:
-            self.a[name] = np.concatenate([self.a[name]] + [p[name] for p in parts])
-        self.a["pos"] = np.ascontiguousarray(self.a["pos"])
-        self.a["vel"] = np.ascontiguousarray(self.a["vel"])
+        if self.n + k > self.live.shape[0]:
+            cap = max(2 * self.live.shape[0], self.n + k)
+            for name, b in self.buf.items():
+                nb = np.zeros((cap,) + b.shape[1:], dtype=b.dtype)
+                nb[:self.n] = b[:self.n]
+                self.buf[name] = nb
+            live = np.zeros(cap, dtype=bool)
+            live[:self.n] = self.live[:self.n]
+            self.live = live
+        for p in parts:
+            m = p["id"].shape[0]
+            for name in _STORE:
+                self.buf[name][self.n:self.n + m] = p[name]
+            self.live[self.n:self.n + m] = True
+            self.n += m
 
-    def keep(self, mask: np.ndarray):
-        for name in _STORE:
-            self.a[name] = np.ascontiguousarray(self.a[name][mask])
+    def kill(self, mask: np.ndarray):
+        """Flag rows ``mask`` ((n,) bool) dead."""
+        newly = mask & self.live[:self.n]
+        count = int(np.count_nonzero(newly))
+        if count == 0:
+            return
+        self.live[:self.n] &= ~newly
+        self.dead += count
+        if self.dead > max(256, self.n // 8):
+            idx = np.flatnonzero(self.live[:self.n])
+            for name, b in self.buf.items():
+                b[:idx.size] = b[idx]
+            self.live[:idx.size] = True
+            self.live[idx.size:self.n] = False
+            self.n = idx.size
+            self.dead = 0
 
     def ages(self, step: int, dt: float) -> np.ndarray:
         # From integers each time, so twins one period apart get the same bits.
-        return ((step - self.a["bstep"]) + self.a["bfrac"]) * dt
+        return ((step - self.buf["bstep"][:self.n]) + self.buf["bfrac"][:self.n]) * dt
 
 
 def _spawn(look, plan: SimPlan, s: int, cursors: list, draws: dict, next_id: int):
@@ -370,7 +408,8 @@ def _born(src, u, ids, slots, source, bstep, bfrac, dt):
 
 def _frame_state(look, plan: SimPlan, puffs: _Puffs, frame: int, step: int) -> FrameState:
     a = puffs.a
-    order = np.lexsort((a["id"], a["slot"], a["source"]))
+    live = np.flatnonzero(puffs.live[:puffs.n])
+    order = live[np.lexsort((a["id"][live], a["slot"][live], a["source"][live]))]
     pick = {name: a[name][order] for name in _STORE}
     age = ((step - pick["bstep"]) + pick["bfrac"]) * plan.dt
     m = age.shape[0]
@@ -434,17 +473,15 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int]) -> 
     last = plan.frame_step(wanted[-1])
     for s in range(last + 1):
         if s > 0 and len(puffs):
-            age = puffs.ages(s - 1, plan.dt)
-            killed = step_puffs(puffs.a["pos"], puffs.a["vel"], age, dt=plan.dt, time=plan.force_time(s - 1),
-                                forces=plan.forces, obstacles=plan.obstacles, integrator=plan.integrator)
-            if killed.any():
-                puffs.keep(~killed)
+            a = puffs.a
+            killed = step_puffs(a["pos"], a["vel"], puffs.ages(s - 1, plan.dt), dt=plan.dt,
+                                time=plan.force_time(s - 1), forces=plan.forces, obstacles=plan.obstacles,
+                                integrator=plan.integrator)
+            puffs.kill(killed)
         parts, next_id = _spawn(look, plan, s, cursors, draws, next_id)
         puffs.add(parts)
         if len(puffs):
-            alive = puffs.ages(s, plan.dt) < puffs.a["life"]
-            if not alive.all():
-                puffs.keep(alive)
+            puffs.kill(puffs.ages(s, plan.dt) >= puffs.a["life"])
         while frame is not None and plan.frame_step(frame) == s:
             yield _frame_state(look, plan, puffs, frame, s)
             frame = next(targets, None)
