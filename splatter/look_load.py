@@ -112,7 +112,7 @@ def _load_chain(path: Path, seen: List[Path], origins: Dict[Tuple, str]) -> Dict
         _note_origins(data, (), str(path), origins)
         return data
     if not isinstance(base, str) or not base:
-        raise LookError(path, "base", "a path to another look file (a string)", _show(base))
+        raise LookError(path, "base", "a path to another look file (a string)", describe(base))
     base_path = Path(os.path.normpath(path.parent / base))
     if base_path.resolve() in seen:
         chain = " -> ".join(str(p) for p in seen + [base_path.resolve()])
@@ -172,9 +172,21 @@ def _apply_override(data: Dict, keys: List[Any], value: Any, origins: Dict[Tuple
                 node[k] = [] if isinstance(nxt, int) else {}
             node = node[k]
     last = keys[-1]
-    if isinstance(last, int) or not isinstance(node, dict):
-        raise LookError("--set", ".".join(map(str, keys)), "a path that ends in a key name", "an index")
-    node[last] = value
+    shown = ".".join(map(str, keys))
+    if isinstance(last, int):
+        # --set 'force.2={kind="drag", rate=1}' replaces (or appends) a whole table.
+        if not isinstance(node, list) or not isinstance(value, dict):
+            raise LookError("--set", shown, "a key name, or a {...} table for an array index", describe(value))
+        if not 0 <= last <= len(node):
+            raise LookError("--set", shown, f"an index from 0 to {len(node)}", str(last))
+        if last == len(node):
+            node.append(value)
+        else:
+            node[last] = value
+    elif not isinstance(node, dict):
+        raise LookError("--set", shown, "an index here (this is an array)", repr(last))
+    else:
+        node[last] = value
     _note_origins(value, tuple(keys), "--set", origins)
 
 
@@ -233,5 +245,3 @@ def load_look(path, *, overrides: Iterable[str] = (), seed: Optional[int] = None
     return build_look(read_raw(path, overrides))
 
 
-def _show(value: Any) -> str:
-    return describe(value)

@@ -1,9 +1,11 @@
 """Image-space maps derived from a composited frame (after the compositor).
 
-The normal map treats the smoke's coverage as a height field: the height at
-a pixel is ``H * alpha`` with ``H = 1.65 sigma`` (``sigma`` the frame's median
-puff radius in pixels), which makes a lone Gaussian puff slope at 45 degrees
-one sigma from its centre, as a sphere's silhouette does.  Normals are
+The normal map treats the smoke as a height field: the height at a pixel is
+``H * 3 * (1 - (1 - alpha) ** (1/3))`` with ``H = 1.65 sigma`` (``sigma`` the
+frame's median puff radius in pixels). For thin smoke this is ``H * alpha``,
+which makes a lone Gaussian puff slope at 45 degrees one sigma from its
+centre, as a sphere's silhouette does; the cube root keeps some relief
+inside dense smoke, where alpha itself saturates.  Normals are
 view-space, +X right, +Y up, +Z toward the viewer (glTF 2.0 convention);
 flat where there is no smoke.
 """
@@ -33,7 +35,7 @@ def normal_map(alpha, sigma_px):
         ``normal.x``, ``normal.y``, ``normal.z``: unit vectors, +Y up.
     """
     a = np.asarray(alpha, dtype=np.float64)
-    height = _SLOPE * max(float(sigma_px), 0.5) * a
+    height = _SLOPE * max(float(sigma_px), 0.5) * 3.0 * (1.0 - np.cbrt(1.0 - np.clip(a, 0.0, 1.0)))
     # Central differences (one-sided at the border); image y runs down.
     dh_dx = np.gradient(height, axis=1)
     dh_dy_down = np.gradient(height, axis=0)

@@ -156,7 +156,7 @@ class OutputSink:
             else:
                 frames, enc = d_uv, "raw"
             maps["motion"] = write_map_sheet(d, name, "motion", frames, layout, encoding=enc, channels=("x", "y"),
-                                             scale=scale, units="sheet uv per frame", **common)
+                                             background=(0.5, 0.5) if fmt == "png" else (0.0, 0.0), scale=scale, units="sheet uv per frame", **common)
         if "depth.z" in layers:
             zs = [z[a > _COVERED] for z, a in zip(layers["depth.z"], alpha)]
             near = min((float(z.min()) for z in zs if z.size), default=0.0)
@@ -169,7 +169,7 @@ class OutputSink:
             else:
                 frames, enc = [z[..., None] for z in layers["depth.z"]], "raw"
             maps["depth"] = write_map_sheet(d, name, "depth", frames, layout, encoding=enc, channels=("z",),
-                                            near=near, far=far, units="world", **common)
+                                            background=(1.0,) if fmt == "png" else (far,), near=near, far=far, units="world", **common)
         if "normal.x" in layers:
             y_down = look.output.normal_y == "down"
             normals = [np.stack([layers[f"normal.{c}"][i] for c in "xyz"], axis=-1) for i in range(len(alpha))]
@@ -177,7 +177,9 @@ class OutputSink:
                 frames, enc = [encode_normal(n, y_down=y_down) for n in normals], "n*0.5+0.5"
             else:
                 frames, enc = normals, "raw"
+            flat = (0.5, 0.5, 1.0) if fmt == "png" else (0.0, 0.0, 1.0)
             maps["normal"] = write_map_sheet(d, name, "normal", frames, layout, encoding=enc, channels=("x", "y", "z"),
+                                             background=flat,
                                              convention="+y down" if y_down else "+y up", **common)
         if "lightdirs.right" in layers:
             rlt = [np.stack([layers[f"lightdirs.{s}"][i] for s in ("right", "left", "top")], -1) for i in range(len(alpha))]

@@ -248,7 +248,7 @@ def _resample(frame, w, h):
     return out
 
 
-def assemble_sheet(frames, layout, *, clip_alpha=True):
+def assemble_sheet(frames, layout, *, clip_alpha=True, background=None):
     """Place frames into one sheet image.
 
     Parameters
@@ -262,11 +262,14 @@ def assemble_sheet(frames, layout, *, clip_alpha=True):
     clip_alpha : bool
         After resampling, clip the last channel to [0, 1] and the others to
         >= 0 (Lanczos lobes overshoot); set False for signed data maps.
+    background : sequence of float, optional
+        Value of every texel outside the cells' content (gutters and unused
+        cells), one per channel; default 0. Data maps use their neutral value
+        (a flat normal, zero motion) so filtering across a gutter stays neutral.
 
     Returns
     -------
     (layout.height, layout.width, C) float32 ndarray
-        Zero outside the cells' content.
     """
     if not isinstance(layout, SheetLayout):
         raise TypeError(f"layout: expected a SheetLayout, got {type(layout).__name__}")
@@ -284,6 +287,8 @@ def assemble_sheet(frames, layout, *, clip_alpha=True):
             )
         if sheet is None:
             sheet = np.zeros((layout.height, layout.width, f.shape[2]), dtype=np.float32)
+            if background is not None:
+                sheet[...] = np.asarray(background, dtype=np.float32).reshape(-1)[: f.shape[2]]
         elif f.shape[2] != sheet.shape[2]:
             raise ValueError(f"frames[{k}]: {f.shape[2]} channels, frame 0 has {sheet.shape[2]}")
         cell = layout.cells[k]
@@ -406,6 +411,7 @@ def write_map_sheet(
     exr_type="half",
     channels=None,
     file_suffix=None,
+    background=None,
     **meta,
 ):
     """Write one data-map sheet ``{name}.{map_name}.sheet.{png|exr}``; return its metadata entry.
@@ -435,6 +441,8 @@ def write_map_sheet(
         names ``{map_name}.{channel}``; default ``x, y, z, w`` (first C).
     file_suffix : str, optional
         Replaces ``map_name`` in the file name (``{name}.{file_suffix}.sheet.png``).
+    background : sequence of float, optional
+        Per-channel value outside the cells' content (see :func:`assemble_sheet`).
     **meta
         Extra entry keys: ``scale`` for motion, ``near``/``far`` for depth,
         ``convention`` for normals ...
@@ -450,7 +458,7 @@ def write_map_sheet(
     _check_choice(exr_type, "exr_type", ("half", "float"))
     if not isinstance(map_name, str) or not map_name or not all(ch.isalnum() or ch == "_" for ch in map_name):
         raise ValueError(f"map_name: expected letters, digits and '_', got {map_name!r}")
-    sheet = assemble_sheet(frames, layout, clip_alpha=False)
+    sheet = assemble_sheet(frames, layout, clip_alpha=False, background=background)
     c = sheet.shape[2]
     if not 1 <= c <= 4:
         raise ValueError(f"frames: expected 1 to 4 channels, got {c}")
