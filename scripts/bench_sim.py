@@ -18,8 +18,9 @@ import numpy as np
 
 from splatter.forces import pack_forces
 from splatter.integrate import step_puffs
-from splatter.look import GravitySpec, LiftSpec, PlaneSpec, SwirlSpec, WindSpec
+from splatter.look import ClipSpec, GravitySpec, LiftSpec, LookSpec, PlaneSpec, SourceSpec, SwirlSpec, WindSpec
 from splatter.obstacles import pack_obstacles
+from splatter.simulate import plan_simulation, simulate
 
 
 def numpy_step(pos, vel, age, dt, t, ft, ot):
@@ -62,7 +63,7 @@ def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--puffs", type=int, default=20000)
     ap.add_argument("--steps", type=int, default=100)
-    ap.add_argument("--repeats", type=int, default=3, help="best of this many timings")
+    ap.add_argument("--repeats", type=int, default=5, help="best of this many timings")
     args = ap.parse_args()
     forces = (GravitySpec((0.0, -0.3, 0.0)), WindSpec(velocity=(0.6, 0.0, 0.0), gust=0.4, gust_period=2.0, grip=1.0),
               LiftSpec(accel=1.5, cooling=0.4), SwirlSpec(strength=0.4, scale=1.0, octaves=3, evolve=2.0))
@@ -96,7 +97,23 @@ def main():
     print(f"puffs {n}, steps {args.steps}, swirl modes {ft.swirl_b.shape[0]}, threads {numba.get_num_threads()}")
     print(f"numba step : {rate_numba / 1e6:8.2f} M particle-steps/s")
     print(f"numpy step : {rate_numpy / 1e6:8.2f} M particle-steps/s")
+    # The whole driver (emission, ageing, ramps, output) on a look holding ~n puffs.
+    look = LookSpec(name="bench", clip=ClipSpec(frames=64, fps=30, substeps=2, loop="exact"),
+                    sources=(SourceSpec(shape="disc", rate=n / 4.0, life=(3.0, 5.0), spread=25.0),),
+                    forces=forces, obstacles=(PlaneSpec(point=(0.0, -1.0, 0.0)),))
+    small = LookSpec(name="warm", clip=ClipSpec(frames=2), sources=look.sources, forces=forces,
+                     obstacles=look.obstacles)
+    list(simulate(small, frames=[0, 1]))  # compile
+    plan = plan_simulation(look)
+    t0 = time.perf_counter()
+    puff_steps = 0
+    for st in simulate(look, plan, frames=range(64)):
+        puff_steps += len(st) * plan.substeps
+    t_driver = time.perf_counter() - t0
+    steps = plan.frame_step(63)
     print(f"ratio      : {rate_numba / rate_numpy:8.1f}x   (max |pos difference| {err:.2e})")
+    print(f"simulate() : {steps} steps ({plan.warmup_steps} warm-up), {t_driver:.2f} s for 64 frames of "
+          f"~{puff_steps // (64 * plan.substeps)} puffs, {t_driver / 64 * 1e3:.1f} ms per frame")
 
 
 if __name__ == "__main__":

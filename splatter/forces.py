@@ -201,7 +201,7 @@ def _wind_sum(wind, t, out):
         out[3] += scale * wind[w, 2]
 
 
-@numba.njit(**KERNEL)
+@numba.njit(inline="always", **KERNEL)
 def _accel(x, y, z, vx, vy, vz, age, gravity, drag, wk, wu, lift, spring):
     """dv/dt at one puff; ``wk, wu`` from :func:`_wind_sum`."""
     k = drag + wk
@@ -220,7 +220,7 @@ def _accel(x, y, z, vx, vy, vz, age, gravity, drag, wk, wu, lift, spring):
     return ax, ay, az
 
 
-@numba.njit(**KERNEL)
+@numba.njit(inline="always", **KERNEL)
 def _vortex_at(x, y, z, vortex):
     """Rankine vortex air velocity at one point."""
     ux = 0.0

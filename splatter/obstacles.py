@@ -71,7 +71,7 @@ def pack_obstacles(obstacles) -> ObstacleTables:
                           spheres=np.array(spheres, dtype=np.float64).reshape(len(spheres), SPHERE_COLS))
 
 
-@numba.njit(**KERNEL)
+@numba.njit(inline="always", **KERNEL)
 def _respond(vx, vy, vz, nx, ny, nz, e, mu):
     """Velocity after contact with a surface of unit normal n (restitution e, friction mu)."""
     vn = vx * nx + vy * ny + vz * nz
@@ -88,7 +88,7 @@ def _respond(vx, vy, vz, nx, ny, nz, e, mu):
     return f * tx + vn2 * nx, f * ty + vn2 * ny, f * tz + vn2 * nz
 
 
-@numba.njit(**KERNEL)
+@numba.njit(inline="always", **KERNEL)
 def _collide(x, y, z, vx, vy, vz, planes, spheres):
     """Resolve contacts of one puff; returns the new state and 1 if it was killed."""
     for p in range(planes.shape[0]):
