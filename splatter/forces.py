@@ -38,7 +38,7 @@ import numpy as np
 from splatter.jit import KERNEL
 from splatter.look import DragSpec, GravitySpec, LiftSpec, SwirlSpec, VortexSpec, WindSpec
 from splatter.rng import force_generator
-from splatter.swirl import SwirlField, build_swirl, phase_table
+from splatter.swirl import build_swirl, phase_table
 
 GUST_RATIOS = (1.0, 1.93, 3.71)  # frequency multiples of 1/gust_period
 GUST_WEIGHTS = (0.6, 0.3, 0.1)
