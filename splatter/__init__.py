@@ -1,6 +1,33 @@
-"""splatter: smoke, steam, dust and mist flipbook textures rendered on the CPU."""
+"""splatter: smoke, steam, dust and mist flipbook textures rendered on the CPU.
+
+The public Python API is small:
+
+* :func:`composite` (and :func:`composite_features`): splat 2D Gaussians into
+  a linear premultiplied RGBA image;
+* :func:`load_look` and :func:`render`: the same pipeline as ``splatter render``;
+* :class:`LookError`: the one error type for bad input.
+
+The numba-compiled parts are imported on first use, so that validating a look
+(or reporting bad input) does not pay for loading the compiler.
+"""
 
 from splatter.errors import LookError, LookWarning
 
-__all__ = ["LookError", "LookWarning"]
+__all__ = ["composite", "composite_features", "load_look", "render", "LookError", "LookWarning"]
 __version__ = "0.1.0"
+
+_LAZY = {
+    "composite": ("splatter.composite", "composite"),
+    "composite_features": ("splatter.composite", "composite_features"),
+    "load_look": ("splatter.look_load", "load_look"),
+    "render": ("splatter.render", "render"),
+}
+
+
+def __getattr__(name):
+    if name in _LAZY:
+        import importlib
+
+        module, attr = _LAZY[name]
+        return getattr(importlib.import_module(module), attr)
+    raise AttributeError(f"module 'splatter' has no attribute {name!r}")

@@ -152,11 +152,12 @@ def _load(args):
 
 
 def _cmd_render(args) -> int:
-    from splatter.render import render
-
+    # Validate everything before importing the (numba-heavy) pipeline, so bad input fails fast.
     look = _load(args)
     frames = parse_frames(args.frames, look.clip.frames)
     _set_threads(args.threads)
+    from splatter.render import render
+
     result = render(look, out_dir=args.out, frames=frames, progress=not args.quiet)
     if not args.quiet:
         print(result.summary(), file=sys.stderr)
@@ -164,22 +165,22 @@ def _cmd_render(args) -> int:
 
 
 def _cmd_check(args) -> int:
+    look = _load(args)
     from splatter.check import check_look
 
-    look = _load(args)
     print(check_look(look))
     return EXIT_OK
 
 
 def _cmd_simulate(args) -> int:
-    from splatter.simulate import plan_simulation, save_states, simulate
-
     look = _load(args)
     if not args.out:
         raise _UsageError("simulate: --out FILE.npz is required")
     if not args.out.endswith(".npz"):
         raise _UsageError(f"--out: expected a file name ending in .npz, got {args.out!r}")
     frames = parse_frames(args.frames, look.clip.frames) or range(look.clip.frames)
+    from splatter.simulate import plan_simulation, save_states, simulate
+
     plan = plan_simulation(look)
     for note in plan.notes:
         print(f"splatter: note: {note}", file=sys.stderr)

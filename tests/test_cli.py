@@ -1,0 +1,117 @@
+"""The command line: exit codes, messages that name file and key, nothing half-written."""
+
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+from lookfiles import LONE_PUFF, SMALL_PLUME, write_look
+from splatter.cli import main
+
+
+def run(*args):
+    """Run the real console entry in a child process; return (code, stdout, stderr)."""
+    proc = subprocess.run([sys.executable, "-m", "splatter", *map(str, args)], capture_output=True, text=True)
+    return proc.returncode, proc.stdout, proc.stderr
+
+
+BAD_LOOKS = [
+    # (what is wrong, look text, key the message must name)
+    ("malformed TOML", "[clip\nframes = 3\n", "bad.toml:1"),
+    ("unknown key", "[clip]\nframez = 3\n[[source]]\nrate = 1\n", "clip.framez"),
+    ("wrong type", '[clip]\nframes = "three"\n[[source]]\nrate = 1\n', "clip.frames"),
+    ("absurd size", "[image]\nwidth = 99999\n[[source]]\nrate = 1\n", "image.width"),
+    ("NaN", "[clip]\nfps = nan\n[[source]]\nrate = 1\n", "clip.fps"),
+    ("bad colour", '[[source]]\ncolor = "#zzzzzz"\n', "source[0].color"),
+    ("unknown kind", '[[force]]\nkind = "breeze"\n[[source]]\nrate = 1\n', "force[0].kind"),
+    ("missing base", 'base = "gone.toml"\n[[source]]\nrate = 1\n', "base"),
+]
+
+
+@pytest.mark.parametrize("what, text, key", BAD_LOOKS, ids=[b[0] for b in BAD_LOOKS])
+@pytest.mark.parametrize("command", ["render", "check", "simulate"])
+def test_bad_look_exits_2_names_file_and_key_and_writes_nothing(tmp_path, what, text, key, command):
+    look = tmp_path / "bad.toml"
+    look.write_text(text)
+    out = tmp_path / "out"
+    args = [command, look, "--out", out / "x.npz" if command == "simulate" else out]
+    if command == "check":
+        args = [command, look]
+    code, stdout, stderr = run(*args)
+    assert code == 2, stderr
+    assert str(look) in stderr and key in stderr
+    assert "expected" in stderr and "got" in stderr
+    assert "Traceback" not in stderr
+    assert not out.exists()
+
+
+@pytest.mark.parametrize(
+    "args, fragment",
+    [
+        (["--set", "clip.frames=-4"], "clip.frames"),
+        (["--set", "source.0.rat=4"], 'did you mean "rate"'),
+        (["--frames", "9:3"], "--frames"),
+        (["--frames", "a:b"], "--frames"),
+        (["--threads", "0"], "--threads"),
+        (["--seed", "-1"], "--seed"),
+    ],
+)
+def test_bad_command_line_values_exit_2(tmp_path, args, fragment):
+    look = write_look(tmp_path, LONE_PUFF)
+    out = tmp_path / "out"
+    code, _, stderr = run("render", look, "--out", out, *args)
+    assert code == 2 and fragment in stderr and "Traceback" not in stderr
+    assert not out.exists()
+
+
+def test_unknown_option_and_missing_file_exit_2(tmp_path):
+    assert main(["render"]) == 2
+    assert main(["render", str(tmp_path / "nowhere.toml")]) == 2
+    assert main(["frobnicate"]) == 2
+
+
+def test_check_summarises_without_writing(tmp_path, capsys):
+    look = write_look(tmp_path, SMALL_PLUME, extra='\n')
+    code = main(["check", str(look), "--set", f"output.dir='{tmp_path / 'never'}'"])
+    text = capsys.readouterr().out
+    assert code == 0
+    assert "12 frames" in text and "48 x 48" in text and "alive at steady state" in text
+    assert "small_plume.0000.png" in text
+    assert not (tmp_path / "never").exists()
+
+
+def test_render_writes_named_frames_and_summary(tmp_path):
+    look = write_look(tmp_path, SMALL_PLUME)
+    out = tmp_path / "r"
+    code, _, stderr = run("render", look, "--out", out / "{name}-{seed}", "--seed", 9)
+    assert code == 0, stderr
+    folder = out / "small_plume-9"
+    names = sorted(p.name for p in folder.iterdir())
+    assert names[:2] == ["small_plume.0000.exr", "small_plume.0000.png"]
+    assert len([n for n in names if n.endswith(".png")]) == 12
+    assert not [n for n in names if n.startswith(".")]  # no temporary files left
+    assert "rendered 12 frames" in stderr
+
+
+def test_simulate_writes_the_spec_arrays(tmp_path):
+    look = write_look(tmp_path, SMALL_PLUME)
+    npz = tmp_path / "states.npz"
+    assert main(["simulate", str(look), "--out", str(npz)]) == 0
+    data = np.load(npz)
+    fs = data["frame_start"]
+    assert fs.shape == (13,) and fs[0] == 0 and fs[-1] == len(data["id"])
+    for key, tail in [("pos", (3,)), ("vel", (3,)), ("age", ()), ("life", ()), ("size", ()), ("opacity", ())]:
+        assert data[key].shape == (fs[-1],) + tail
+    assert np.all(data["age"] <= data["life"])
+
+
+def test_pack_builds_a_sheet_from_rendered_frames(tmp_path):
+    look = write_look(tmp_path, SMALL_PLUME)
+    out = tmp_path / "r"
+    assert main(["render", str(look), "--out", str(out), "--quiet", "--set", 'output.frames=["png"]']) == 0
+    assert main(["pack", str(out), "--columns", "4", "--padding", "1"]) == 0
+    meta = json.loads((out / "small_plume.sheet.json").read_text())
+    assert (meta["columns"], meta["rows"], meta["frames"]) == (4, 3, 12)
+    assert main(["pack", str(tmp_path / "empty-nowhere")]) == 2

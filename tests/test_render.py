@@ -1,0 +1,123 @@
+"""End to end: determinism, frame ranges, exact loops, crossfades, framing of the demos."""
+
+import hashlib
+from pathlib import Path
+
+import numba
+import numpy as np
+import pytest
+
+from lookfiles import LONE_PUFF, SMALL_PLUME, write_look
+from splatter.camera import border_alpha_share
+from splatter.look_load import load_look
+from splatter.render import frame_images, make_camera, render
+from splatter.simulate import plan_simulation, simulate
+from splatter.splats import split_layers
+from splatter.write_exr import read_exr
+
+LOOKS = Path(__file__).resolve().parent.parent / "looks"
+
+
+def digests(folder):
+    return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in sorted(Path(folder).iterdir())}
+
+
+def quiet_render(look, out, **kw):
+    return render(look, out_dir=str(out), progress=False, **kw)
+
+
+def test_same_seed_same_bytes_other_seed_differs(tmp_path):
+    path = write_look(tmp_path, SMALL_PLUME)
+    a = digests(quiet_render(load_look(path), tmp_path / "a").out_dir)
+    b = digests(quiet_render(load_look(path), tmp_path / "b").out_dir)
+    c = digests(quiet_render(load_look(path, seed=5), tmp_path / "c").out_dir)
+    assert a == b
+    assert a.keys() == c.keys()
+    assert all(a[k] != c[k] for k in a)
+
+
+def test_frame_range_matches_full_render_and_may_run_past_the_end(tmp_path):
+    look = load_look(write_look(tmp_path, SMALL_PLUME))
+    full = digests(quiet_render(look, tmp_path / "full").out_dir)
+    part = digests(quiet_render(look, tmp_path / "part", frames=range(4, 7)).out_dir)
+    assert part == {k: full[k] for k in part}
+    assert sorted(part) == [f"small_plume.{f:04d}.{e}" for f in (4, 5, 6) for e in ("exr", "png")]
+    # Past the clip's end the simulation simply continues.
+    past = quiet_render(look, tmp_path / "past", frames=range(12, 14))
+    assert sorted(Path(f).name for f in past.files)[0] == "small_plume.0012.exr"
+
+
+def test_thread_count_changes_no_byte(tmp_path):
+    look = load_look(write_look(tmp_path, SMALL_PLUME))
+    old = numba.get_num_threads()
+    try:
+        numba.set_num_threads(1)
+        one = digests(quiet_render(look, tmp_path / "one").out_dir)
+        numba.set_num_threads(numba.config.NUMBA_NUM_THREADS)
+        many = digests(quiet_render(look, tmp_path / "many").out_dir)
+    finally:
+        numba.set_num_threads(old)
+    assert one == many
+
+
+def test_exact_loop_frame_n_equals_frame_0_on_float_exr(tmp_path):
+    # loop = "exact" promises frame N (one past the end) equals frame 0, with
+    # swirl, gusts, lift and a ground plane all on (SMALL_PLUME has them all).
+    look = load_look(write_look(tmp_path, SMALL_PLUME))
+    n = look.clip.frames
+    res = quiet_render(look, tmp_path / "loop", frames=[0, n // 2, n])
+    f0 = read_exr(Path(res.out_dir) / "small_plume.0000.exr")
+    fn = read_exr(Path(res.out_dir) / f"small_plume.{n:04d}.exr")
+    mid = read_exr(Path(res.out_dir) / f"small_plume.{n // 2:04d}.exr")
+    for c in "RGBA":
+        assert np.max(np.abs(fn[c] - f0[c])) <= 1e-6
+    assert f0["A"].max() > 0.1
+    assert np.max(np.abs(mid["A"] - f0["A"])) > 1e-2  # the clip does move
+
+
+def test_crossfade_starts_on_frame_n_and_ends_on_the_clip(tmp_path):
+    # With loop = "crossfade", frame f < c shows frame N + f fading into frame f,
+    # so frame 0 is the simulation's frame N and frame N - 1 runs on into it.
+    text = SMALL_PLUME.replace('loop = "exact"', 'loop = "crossfade"\ncrossfade = 0.25')
+    look = load_look(write_look(tmp_path, text))
+    n = look.clip.frames
+    cross = quiet_render(look, tmp_path / "x", frames=[0, 1, 5])
+    plain_look = load_look(write_look(tmp_path, text, name="plain.toml"), overrides=["clip.loop='none'"])
+    # The crossfade render frames its camera on the whole clip plus the fade frames.
+    cam = make_camera(look)
+    plan = plan_simulation(plain_look)
+    raw = {f: split_layers(img, ch)[0] for f, img, ch, _ in
+           frame_images(plain_look, cam, simulate(plain_look, plan, frames=[1, 5, n, n + 1]))}
+    x0 = read_exr(Path(cross.out_dir) / "small_plume.0000.exr")
+    x1 = read_exr(Path(cross.out_dir) / "small_plume.0001.exr")
+    x5 = read_exr(Path(cross.out_dir) / "small_plume.0005.exr")
+    assert np.allclose(x0["A"], raw[n][..., 3], atol=1e-6)
+    w = 1 - 1 / 3  # c = round(0.25 * 12) = 3 fade frames
+    assert np.allclose(x1["A"], w * raw[n + 1][..., 3] + (1 - w) * raw[1][..., 3], atol=1e-6)
+    assert np.allclose(x5["A"], raw[5][..., 3], atol=1e-6)
+
+
+def test_lone_puff_lands_where_the_camera_says(tmp_path):
+    # Orthographic, view_width 4 over 64 px: the origin projects to the image centre.
+    res = quiet_render(load_look(write_look(tmp_path, LONE_PUFF)), tmp_path / "p", frames=[0])
+    a = read_exr(Path(res.out_dir) / "lone_puff.0000.exr")["A"]
+    rows, cols = np.indices(a.shape) + 0.5
+    cx, cy = (a * cols).sum() / a.sum(), (a * rows).sum() / a.sum()
+    assert (cx, cy) == pytest.approx((32.0, 32.0), abs=1e-3)
+    assert a.max() == pytest.approx(0.8, rel=0.02)
+
+
+@pytest.mark.parametrize("name", sorted(p.stem for p in LOOKS.glob("*.toml")))
+def test_every_demo_look_keeps_its_border_clear(name):
+    # The classic flipbook defect is a sprite cut off at the frame edge (common
+    # practice): with camera.fit every demo frame's border alpha stays < 1/255.
+    look = load_look(LOOKS / f"{name}.toml")
+    assert look.camera.fit
+    plan = plan_simulation(look)
+    cam = make_camera(look, plan)
+    worst = 0.0
+    for _, img, ch, _ in frame_images(look, cam, simulate(look, plan, frames=range(look.clip.frames)), maps=()):
+        a = img[..., -1]
+        worst = max(worst, float(a[0].max()), float(a[-1].max()), float(a[:, 0].max()), float(a[:, -1].max()))
+        assert border_alpha_share(a) < 1e-3
+    assert worst < 1 / 255
