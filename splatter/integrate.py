@@ -12,6 +12,11 @@ The motion is ``dx/dt = v + u(x, t)``, ``dv/dt = a(x, v, age, t)`` (see
 
 Each puff is independent (no sum crosses puffs), so the parallel loop gives
 the same bits on any thread count.
+
+The kernels here inline helpers from :mod:`splatter.forces`,
+:mod:`splatter.obstacles` and :mod:`splatter.swirl`; numba's on-disk cache
+only notices edits to this file, so after changing a helper delete
+``splatter/__pycache__`` (or touch this file).
 """
 
 from __future__ import annotations
