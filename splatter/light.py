@@ -31,6 +31,7 @@ from splatter.jit import KERNEL, PARALLEL
 __all__ = ["GRID", "build_density_grid", "transmittance", "DensityGrid", "light_factors"]
 
 GRID = 64
+_TAU_MAX = 14.0  # exp(-14) < 1e-6
 
 
 class DensityGrid:
@@ -156,11 +157,15 @@ def _march(density, origin, cell, pos, dirs, out):
             tau = 0.0
             if t1 > t0:
                 n = int(math.ceil((t1 - t0) / step))
-                # Trapezoid rule along the part of the ray inside the grid.
+                # Trapezoid rule along the part of the ray inside the grid;
+                # stop once the light is gone (T < 1e-6: no visible change).
+                limit = _TAU_MAX / (step * cell)
                 for s in range(n + 1):
                     t = t0 + s * step
                     w = 0.5 if s == 0 else 1.0
                     tau += w * _sample(density, f[0] + dirs[d, 0] * t, f[1] + dirs[d, 1] * t, f[2] + dirs[d, 2] * t)
+                    if tau > limit:
+                        break
             out[i, d] = tau * step * cell
 
 
