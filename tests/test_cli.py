@@ -115,3 +115,16 @@ def test_pack_builds_a_sheet_from_rendered_frames(tmp_path):
     meta = json.loads((out / "small_plume.sheet.json").read_text())
     assert (meta["columns"], meta["rows"], meta["frames"]) == (4, 3, 12)
     assert main(["pack", str(tmp_path / "empty-nowhere")]) == 2
+
+
+def test_smoke_cut_by_the_frame_border_is_warned_about(tmp_path):
+    # A puff twice as wide as a tight view: the sprite is visibly cut off.
+    look = write_look(tmp_path, LONE_PUFF)
+    code, stdout, stderr = run("render", look, "--out", tmp_path / "o", "--set", "camera.view_width=0.8")
+    assert code == 0
+    assert "frame border" in stderr and "camera.fit" in stderr
+    code, stdout, _ = run("check", look, "--set", "camera.view_width=0.8")
+    assert code == 0 and "cross the frame border" in stdout
+    # Framed with room to spare, neither says a word about it.
+    code, stdout, stderr = run("render", look, "--out", tmp_path / "p")
+    assert code == 0 and "frame border" not in stderr
