@@ -165,25 +165,33 @@ def _pair_over3(buf, q0, ramp, n8, sa, ea, sb, eb, a2, b1a, c0a, b1b, c0b, peak,
 
     Lane ``u`` of row a is inside the footprint when ``sa <= u < ea`` (row b
     likewise); other lanes get weight exactly 0, which leaves pixels unchanged.
+    ``C + w (f - C)`` is the over update ``f w + (1 - w) C`` with one multiply.
     """
     for i in range(n8):
         u = ramp[i]
-        w = peak * gauss_weight(fma(fma(a2, u, b1a), u, c0a))
+        au = a2 * u
+        w = peak * gauss_weight(fma(au + b1a, u, c0a))
         w = w if (u >= sa) & (u < ea) else _F0
-        om = _F1 - w
         q = q0 + i
-        buf[q] = fma(buf[q], om, f0 * w)
-        buf[q + _P1] = fma(buf[q + _P1], om, f1 * w)
-        buf[q + _P2] = fma(buf[q + _P2], om, f2 * w)
-        buf[q + _P3] = fma(buf[q + _P3], om, w)
-        w = peak * gauss_weight(fma(fma(a2, u, b1b), u, c0b))
+        c = buf[q]
+        buf[q] = fma(w, f0 - c, c)
+        c = buf[q + _P1]
+        buf[q + _P1] = fma(w, f1 - c, c)
+        c = buf[q + _P2]
+        buf[q + _P2] = fma(w, f2 - c, c)
+        c = buf[q + _P3]
+        buf[q + _P3] = fma(w, _F1 - c, c)
+        w = peak * gauss_weight(fma(au + b1b, u, c0b))
         w = w if (u >= sb) & (u < eb) else _F0
-        om = _F1 - w
         q = q + _USTRIDE
-        buf[q] = fma(buf[q], om, f0 * w)
-        buf[q + _P1] = fma(buf[q + _P1], om, f1 * w)
-        buf[q + _P2] = fma(buf[q + _P2], om, f2 * w)
-        buf[q + _P3] = fma(buf[q + _P3], om, w)
+        c = buf[q]
+        buf[q] = fma(w, f0 - c, c)
+        c = buf[q + _P1]
+        buf[q + _P1] = fma(w, f1 - c, c)
+        c = buf[q + _P2]
+        buf[q + _P2] = fma(w, f2 - c, c)
+        c = buf[q + _P3]
+        buf[q + _P3] = fma(w, _F1 - c, c)
 
 
 @numba.njit(inline="always", **KERNEL)
