@@ -364,8 +364,8 @@ def _render_tile(t, ntx, params, ranges, feats, peaks, mode, offsets, order, ram
                     _pair_absorb3(buf, q0, ramp, n8, sa, ea, sb, eb, a2, b1a, c0a, b1b, c0b,
                                   peak, feats[j, 0], feats[j, 1], feats[j, 2])
             else:
-                # Lanes n8..STRIDE of row a are never read by _pair_generic
-                # except as row b's "i < STRIDE" gap: zero them so they are no-ops.
+                # _pair_generic walks both rows as one run of STRIDE + n8 lanes;
+                # the gap (lanes n8..STRIDE) must weigh 0 so it changes nothing.
                 wrow[:] = _F0
                 _pair_weights(wrow, ramp, n8, sa, ea, sb, eb, a2, b1a, c0a, b1b, c0b, peak)
                 _pair_generic(buf, q0, wrow, n8, feats[j], mode)
