@@ -24,7 +24,7 @@ import time
 import numba
 import numpy as np
 
-from splatter.composite import composite
+from splatter.compositor import composite
 
 H = W = 512
 N = 20_000

@@ -4,7 +4,8 @@ The public Python API is small:
 
 * :func:`composite` (and :func:`composite_features`): splat 2D Gaussians into
   a linear premultiplied RGBA image;
-* :func:`load_look` and :func:`render`: the same pipeline as ``splatter render``;
+* :func:`load_look`: read and validate a look file (then
+  ``splatter.render.render(look)`` runs the same pipeline as ``splatter render``);
 * :class:`LookError`: the one error type for bad input.
 
 The numba-compiled parts are imported on first use, so that validating a look
@@ -13,14 +14,13 @@ The numba-compiled parts are imported on first use, so that validating a look
 
 from splatter.errors import LookError, LookWarning
 
-__all__ = ["composite", "composite_features", "load_look", "render", "LookError", "LookWarning"]
+__all__ = ["composite", "composite_features", "load_look", "LookError", "LookWarning"]
 __version__ = "0.1.0"
 
 _LAZY = {
-    "composite": ("splatter.composite", "composite"),
-    "composite_features": ("splatter.composite", "composite_features"),
+    "composite": ("splatter.compositor", "composite"),
+    "composite_features": ("splatter.compositor", "composite_features"),
     "load_look": ("splatter.look_load", "load_look"),
-    "render": ("splatter.render", "render"),
 }
 
 

@@ -1,4 +1,4 @@
-"""Private numba kernels behind :func:`splatter.composite.composite_features`.
+"""Private numba kernels behind :func:`splatter.compositor.composite_features`.
 
 Three steps, all writing into arrays they are given:
 

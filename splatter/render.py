@@ -18,7 +18,7 @@ from typing import Dict, Iterable, List, Optional
 import numpy as np
 
 from splatter.camera import Camera, border_alpha_share, fit_view
-from splatter.composite import composite_features
+from splatter.compositor import composite_features
 from splatter.errors import LookError, LookWarning
 from splatter.light import build_density_grid, light_factors, transmittance
 from splatter.look import LookSpec

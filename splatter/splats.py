@@ -30,7 +30,7 @@ __all__ = ["ScreenSplats", "make_splats", "effective_opacity", "feature_layout"]
 
 @dataclass(frozen=True)
 class ScreenSplats:
-    """Splats ready for :func:`splatter.composite.composite_features`.
+    """Splats ready for :func:`splatter.compositor.composite_features`.
 
     Attributes
     ----------

@@ -10,7 +10,7 @@ import pytest
 
 from splatter.camera import (LOW_PASS, Camera, border_alpha_share, ewa_covariance,
                              fit_view, puff_covariances)
-from splatter.composite import composite
+from splatter.compositor import composite
 
 
 def rz(deg):

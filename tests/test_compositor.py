@@ -1,4 +1,4 @@
-"""Tests for splatter.composite: fast path vs a slow float64 reference, published
+"""Tests for splatter.compositor: fast path vs a slow float64 reference, published
 compositing values, Gaussian integrals, hand-checked tiny images and input checks."""
 
 from __future__ import annotations
@@ -9,7 +9,7 @@ import numba
 import numpy as np
 import pytest
 
-from splatter.composite import composite, composite_features
+from splatter.compositor import composite, composite_features
 
 
 # ---------------------------------------------------------------------------
@@ -294,3 +294,12 @@ def test_features_need_at_least_one_channel():
     with pytest.raises(ValueError, match="features"):
         composite_features(np.zeros((1, 2)), np.eye(2)[None], np.zeros((1, 0)),
                            np.ones(1), shape=(3, 3))
+
+
+def test_public_api_names_the_function_even_after_the_pipeline_is_imported():
+    # The look contract's Python section: splatter.composite(...) is the compositor.
+    import splatter
+    import splatter.render  # noqa: F401  (imports the compositor module)
+
+    assert callable(splatter.composite)
+    assert splatter.composite is composite
