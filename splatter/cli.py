@@ -46,9 +46,10 @@ def _parser() -> argparse.ArgumentParser:
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
 
-    def look_options(sp, *, out_help):
+    def look_options(sp, *, out_help=None):
         sp.add_argument("look", metavar="LOOK", help="the look file (TOML)")
-        sp.add_argument("--out", metavar="DIR" if "folder" in out_help else "FILE", help=out_help)
+        if out_help:
+            sp.add_argument("--out", metavar="DIR" if "folder" in out_help else "FILE", help=out_help)
         sp.add_argument("--seed", type=int, metavar="N", help="replace the look's seed (an integer >= 0)")
         sp.add_argument(
             "--set",
@@ -80,9 +81,7 @@ def _parser() -> argparse.ArgumentParser:
         description="Validate the look, print what would be rendered and warn about suspicious settings. "
         "Renders and writes nothing.",
     )
-    c.add_argument("look", metavar="LOOK", help="the look file (TOML)")
-    c.add_argument("--seed", type=int, metavar="N", help="replace the look's seed")
-    c.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE", help="as for render")
+    look_options(c)
 
     s = sub.add_parser(
         "simulate",
