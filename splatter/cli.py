@@ -10,7 +10,7 @@ import argparse
 import sys
 import warnings
 from pathlib import Path
-from typing import List, Optional, Sequence
+from typing import Optional, Sequence
 
 from splatter.errors import LookError, LookWarning
 

@@ -25,7 +25,7 @@ from splatter.look import LookSpec
 from splatter.maps import normal_map
 from splatter.outputs import OutputSink
 from splatter.simulate import SimPlan, plan_simulation, simulate
-from splatter.splats import LIGHTDIR_NAMES, effective_opacity, feature_layout, make_splats, split_layers
+from splatter.splats import effective_opacity, feature_layout, make_splats, split_layers
 
 __all__ = ["render", "RenderResult", "make_camera", "output_dir", "frame_images"]
 
