@@ -31,6 +31,20 @@ __all__ = ["OutputSink", "planned_files"]
 _PREVIEW_MAX = 512
 _MAX_PENDING = 3
 _COVERED = 1.0 / 255.0
+_MAP_FADE = 1.0 / 32.0  # map texels fade to neutral below this alpha
+
+
+def _fade(value, alpha, neutral):
+    """Blend a straight map value toward ``neutral`` where the smoke is nearly transparent.
+
+    A map holds each texel's alpha-weighted mean, which stays at full strength
+    out to a puff's faint 3-sigma rim; fading it below alpha 1/32 keeps those
+    rims from showing as hard discs in the map, where nothing can be seen.
+    """
+    w = np.minimum(1.0, alpha / _MAP_FADE)
+    if value.ndim == 3:
+        w = w[..., None]
+    return (neutral + (value - neutral) * w).astype(np.float32)
 
 
 def planned_files(look: LookSpec, out_dir: str, frames) -> List[str]:
@@ -151,7 +165,7 @@ class OutputSink:
             peak = max((float(np.abs(d[a > _COVERED]).max(initial=0.0)) for d, a in zip(d_uv, alpha)), default=0.0)
             scale = _round_up_2sig(max(peak, 1e-6))
             if fmt == "png":
-                frames = [encode_signed(d, scale) for d in d_uv]
+                frames = [encode_signed(_fade(d, a, 0.0), scale) for d, a in zip(d_uv, alpha)]
                 enc = "0.5+0.5*clamp(d/s,-1,1)"
             else:
                 frames, enc = d_uv, "raw"
@@ -163,7 +177,7 @@ class OutputSink:
             far = max((float(z.max()) for z in zs if z.size), default=1.0)
             far = far if far > near else near + 1.0
             if fmt == "png":
-                frames = [np.where(a > 0, encode_depth(z, near, far), 1.0)[..., None]
+                frames = [_fade(np.where(a > 0, encode_depth(z, near, far), 1.0), a, 1.0)[..., None]
                           for z, a in zip(layers["depth.z"], alpha)]
                 enc = "linear"
             else:
@@ -184,6 +198,8 @@ class OutputSink:
         if "lightdirs.right" in layers:
             rlt = [np.stack([layers[f"lightdirs.{s}"][i] for s in ("right", "left", "top")], -1) for i in range(len(alpha))]
             bfb = [np.stack([layers[f"lightdirs.{s}"][i] for s in ("bottom", "front", "back")], -1) for i in range(len(alpha))]
+            rlt = [_fade(v, a, 0.0) for v, a in zip(rlt, alpha)]
+            bfb = [_fade(v, a, 0.0) for v, a in zip(bfb, alpha)]
             maps["lightdirs"] = write_lightdirs_sheets(d, name, rlt, bfb, layout, png_bits=look.output.png_bits)
         for entry in maps.values():
             for f in entry.get("files", [entry.get("file")]):
