@@ -16,6 +16,11 @@ Splatting", IEEE Visualization 2001; the form used by Kerbl et al., "3D
 Gaussian Splatting for Real-Time Radiance Field Rendering", ACM TOG 42(4),
 2023), plus a 0.3 px^2 low-pass on the diagonal so no splat is thinner than a
 pixel can show.
+
+The per-puff arithmetic runs in the numba kernels of
+:mod:`splatter._camera_kernels` (one pass per puff, each writing its own
+row); :func:`project_puffs` fuses :func:`puff_covariances` and
+:meth:`Camera.project`.
 """
 
 from __future__ import annotations
@@ -24,6 +29,8 @@ import math
 from dataclasses import dataclass, replace
 
 import numpy as np
+
+from splatter import _camera_kernels as _ck
 
 LOW_PASS = 0.3
 """Pixels squared added to the diagonal of every projected covariance."""
@@ -172,32 +179,16 @@ class Camera:
         cov = _check_array(cov, "cov", (3, 3))
         if cov.shape[0] != pos.shape[0]:
             raise ValueError(f"cov: expected {pos.shape[0]} matrices, got {cov.shape[0]}")
-        t, rot = self._camera_frame(pos)
-        cov_cam = rot @ cov @ rot.T
-        depth = t[:, 2]
-        n = pos.shape[0]
-        if self.projection == "orthographic":
-            k = self.width / self.view_width
-            means = np.stack([0.5 * self.width + k * t[:, 0], 0.5 * self.height + k * t[:, 1]], 1)
-            covs = k * k * cov_cam[:, :2, :2]
-            front = depth > self.near
-        else:
-            fpx = self.focal_px
-            front = depth > self.near
-            tz = np.where(front, depth, 1.0)
-            tt = np.where(front[:, None], t, np.array([0.0, 0.0, 1.0]))
-            means = np.stack([0.5 * self.width + fpx * tt[:, 0] / tz,
-                              0.5 * self.height + fpx * tt[:, 1] / tz], 1)
-            covs = ewa_covariance(tt, np.where(front[:, None, None], cov_cam, np.eye(3)), fpx, fpx)
-            means[~front] = 0.0
-        covs = covs + LOW_PASS * np.eye(2)
-        rx = 3.0 * np.sqrt(covs[:, 0, 0])
-        ry = 3.0 * np.sqrt(covs[:, 1, 1])
-        on = ((means[:, 0] + rx > 0) & (means[:, 0] - rx < self.width)
-              & (means[:, 1] + ry > 0) & (means[:, 1] - ry < self.height))
-        visible = front & on & np.all(np.isfinite(covs), axis=(1, 2)) if n else front
-        return Splats(means=means.astype(np.float32), covs=covs.astype(np.float32),
-                      depth=depth.astype(np.float32), visible=np.asarray(visible, dtype=bool))
+        return _run_project(self, pos, lambda *o: _ck._project(pos, cov, *self._kernel_frame(), *o))
+
+    def _kernel_frame(self):
+        """(rot, eye, ortho, scale, width, height, near, low_pass) for the kernels."""
+        s, u, f = self.axes
+        rot = np.ascontiguousarray(np.stack([s, -u, f]))
+        ortho = self.projection == "orthographic"
+        scale = self.width / self.view_width if ortho else self.focal_px
+        return (rot, np.asarray(self.eye, dtype=np.float64), ortho, float(scale),
+                float(self.width), float(self.height), float(self.near), LOW_PASS)
 
     def project_velocity(self, pos, vel):
         """Screen velocity of puffs in pixels per second (x right, y down).
@@ -284,36 +275,71 @@ def puff_covariances(size, aspect, quat, vel, stretch):
         with ``L = stretch * vel``: a uniform segment of length ``|L|`` has
         variance ``|L|^2 / 12`` along it.
     """
-    size = np.asarray(size, dtype=np.float64)
-    n = size.shape[0] if size.ndim == 1 else -1
+    size, aspect, quat, vel, stretch = _check_puffs(size, aspect, quat, vel, stretch)
+    n = size.shape[0]
+    out = np.empty((n, 3, 3))
+    _ck._puff_covariances(size, aspect, quat, vel, stretch, out)
+    return out
+
+
+def project_puffs(camera, pos, size, aspect, quat, vel, stretch):
+    """Puff covariances and their projection in one pass: ``camera.project(pos,
+    puff_covariances(size, aspect, quat, vel, stretch))`` without the (N, 3, 3)
+    intermediate.
+
+    Parameters
+    ----------
+    camera : Camera
+    pos : (N, 3) float64 ndarray
+        World positions.
+    size, aspect, quat, vel, stretch
+        As for :func:`puff_covariances`.
+
+    Returns
+    -------
+    Splats
+        The same values as the two-step path to float64 round-off.
+    """
+    if not isinstance(camera, Camera):
+        raise TypeError(f"camera: expected a Camera, got {type(camera).__name__}")
+    pos = _check_array(pos, "pos", (3,))
+    n = pos.shape[0]
+    if np.shape(size) != (n,):
+        raise ValueError(f"size: expected shape ({n},), got {np.shape(size)}")
+    size, aspect, quat, vel, stretch = _check_puffs(size, aspect, quat, vel, stretch)
+    return _run_project(camera, pos, lambda *o: _ck._project_puffs(
+        pos, size, aspect, quat, vel, stretch, *camera._kernel_frame(), *o))
+
+
+def _check_puffs(size, aspect, quat, vel, stretch):
+    """The puff arrays as contiguous float64, shapes checked against ``size``."""
+    size = np.ascontiguousarray(size, dtype=np.float64)
     if size.ndim != 1:
         raise ValueError(f"size: expected shape (N,), got {size.shape}")
-    aspect = np.asarray(aspect, dtype=np.float64)
-    quat = np.asarray(quat, dtype=np.float64)
-    vel = np.asarray(vel, dtype=np.float64)
-    stretch = np.asarray(stretch, dtype=np.float64)
+    n = size.shape[0]
+    out = [size]
     for name, arr, shp in (("aspect", aspect, (n,)), ("quat", quat, (n, 4)),
                            ("vel", vel, (n, 3)), ("stretch", stretch, (n,))):
+        arr = np.ascontiguousarray(arr, dtype=np.float64)
         if arr.shape != shp:
             raise ValueError(f"{name}: expected shape {shp}, got {arr.shape}")
-    norm = np.linalg.norm(quat, axis=1, keepdims=True)
-    if np.any(norm == 0):
+        out.append(arr)
+    # One pass over the quaternions (np.all(..., axis=1) is several times slower).
+    if n and not np.einsum("ij,ij->i", out[2], out[2]).all():
         raise ValueError("quat: expected non-zero quaternions")
-    w, x, y, z = (quat / norm).T
-    rot = np.empty((n, 3, 3))
-    rot[:, 0, 0] = 1 - 2 * (y * y + z * z)
-    rot[:, 0, 1] = 2 * (x * y - w * z)
-    rot[:, 0, 2] = 2 * (x * z + w * y)
-    rot[:, 1, 0] = 2 * (x * y + w * z)
-    rot[:, 1, 1] = 1 - 2 * (x * x + z * z)
-    rot[:, 1, 2] = 2 * (y * z - w * x)
-    rot[:, 2, 0] = 2 * (x * z - w * y)
-    rot[:, 2, 1] = 2 * (y * z + w * x)
-    rot[:, 2, 2] = 1 - 2 * (x * x + y * y)
-    var = np.stack([size**2, (size * aspect) ** 2, (size * aspect) ** 2], 1)
-    cov = (rot * var[:, None, :]) @ rot.transpose(0, 2, 1)
-    seg = stretch[:, None] * vel
-    return cov + seg[:, :, None] * seg[:, None, :] / 12.0
+    return out
+
+
+def _run_project(camera, pos, kernel):
+    """Allocate the Splats arrays for ``pos.shape[0]`` puffs and fill them with ``kernel``."""
+    n = pos.shape[0]
+    means = np.empty((n, 2), dtype=np.float32)
+    covs = np.empty((n, 2, 2), dtype=np.float32)
+    depth = np.empty(n, dtype=np.float32)
+    visible = np.empty(n, dtype=np.bool_)
+    if n:
+        kernel(means, covs, depth, visible)
+    return Splats(means=means, covs=covs, depth=depth, visible=visible)
 
 
 def fit_view(camera, points, radii, *, margin):
@@ -409,7 +435,7 @@ def border_alpha_share(alpha):
 
 
 def _check_array(value, name, tail):
-    arr = np.asarray(value, dtype=np.float64)
+    arr = np.ascontiguousarray(value, dtype=np.float64)
     if arr.ndim != 1 + len(tail) or arr.shape[1:] != tail:
         raise ValueError(f"{name}: expected shape (N, {', '.join(map(str, tail))}), got {arr.shape}")
     if not np.all(np.isfinite(arr)):

@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 from splatter.camera import (LOW_PASS, Camera, border_alpha_share, ewa_covariance,
-                             fit_view, puff_covariances)
+                             fit_view, project_puffs, puff_covariances)
 from splatter.compositor import composite
 
 
@@ -249,3 +249,59 @@ def test_camera_rejects_bad_parameters():
         Camera(fov=180.0)
     with pytest.raises(ValueError, match="pos"):
         Camera().project(np.zeros((2, 2)), np.zeros((2, 3, 3)))
+
+
+def test_puff_covariance_matches_scipy_rotation():
+    # R diag(var) R^T with R from scipy's quaternion-to-matrix conversion
+    # (scipy.spatial.transform.Rotation, scalar-last order), plus L L^T / 12.
+    from scipy.spatial.transform import Rotation
+
+    rng = np.random.default_rng(21)
+    n = 50
+    size = rng.uniform(0.05, 1.0, n)
+    aspect = rng.uniform(0.2, 1.5, n)
+    quat = rng.normal(size=(n, 4))
+    vel = rng.normal(size=(n, 3))
+    stretch = rng.uniform(0.0, 0.3, n)
+    cov = puff_covariances(size, aspect, quat, vel, stretch)
+    rot = Rotation.from_quat(quat[:, [1, 2, 3, 0]]).as_matrix()
+    var = np.stack([size**2, (size * aspect) ** 2, (size * aspect) ** 2], 1)
+    seg = stretch[:, None] * vel
+    want = np.einsum("nij,nj,nkj->nik", rot, var, rot) + np.einsum("ni,nk->nik", seg, seg) / 12
+    np.testing.assert_allclose(cov, want, rtol=0, atol=1e-12)
+
+
+@pytest.mark.parametrize("projection", ["orthographic", "perspective"])
+def test_project_puffs_equals_the_two_step_path(projection):
+    # The fused pass gives what project(pos, puff_covariances(...)) gives,
+    # including puffs behind the eye (eye at z = 6 looking down -z).
+    rng = np.random.default_rng(5)
+    n = 400
+    pos = rng.uniform([-3, -3, -4], [3, 3, 9], (n, 3))
+    size = rng.uniform(0.02, 0.4, n)
+    aspect = rng.uniform(0.3, 1.0, n)
+    quat = rng.normal(size=(n, 4))
+    vel = rng.normal(size=(n, 3))
+    stretch = rng.uniform(0.0, 0.1, n)
+    cam = Camera(projection=projection, eye=(0.5, 0.2, 6.0), target=(0.0, 0.0, 0.0),
+                 width=160, height=120, view_width=5.0, fov=50.0, near=0.1)
+    two = cam.project(pos, puff_covariances(size, aspect, quat, vel, stretch))
+    one = project_puffs(cam, pos, size, aspect, quat, vel, stretch)
+    assert 0 < two.visible.sum() < n and not two.visible[pos[:, 2] > 7.0].any()
+    np.testing.assert_array_equal(one.visible, two.visible)
+    np.testing.assert_array_equal(one.depth, two.depth)
+    np.testing.assert_allclose(one.means, two.means, rtol=1e-6, atol=1e-4)
+    np.testing.assert_allclose(one.covs, two.covs, rtol=1e-6, atol=1e-6)
+    assert one.means.dtype == np.float32 and one.covs.shape == (n, 2, 2)
+
+
+def test_project_puffs_input_errors_name_the_parameter():
+    cam = Camera()
+    ok = dict(pos=np.zeros((2, 3)), size=np.ones(2), aspect=np.ones(2),
+              quat=np.tile([1.0, 0, 0, 0], (2, 1)), vel=np.zeros((2, 3)), stretch=np.zeros(2))
+    for name, bad in (("size", np.ones(3)), ("quat", np.zeros((2, 4))), ("vel", np.zeros((2, 2))),
+                      ("pos", np.full((2, 3), np.nan))):
+        with pytest.raises(ValueError, match=name):
+            project_puffs(cam, **dict(ok, **{name: bad}))
+    with pytest.raises(TypeError, match="camera"):
+        project_puffs("camera", **ok)
