@@ -150,8 +150,8 @@ def main():
           f"  [{fp / b_par / 1e9:6.3f}]")
     print(f"numba, 1 thread : {t_one * 1e3:8.2f} ms  {rate_one / 1e9:6.3f} G px/s"
           f"  [{fp / b_one / 1e9:6.3f}]")
-    print(f"numpy loop ({m} splats, {fp_np / 1e6:.2f} M px): {t_np * 1e3:8.1f} ms  "
-          f"{rate_np / 1e6:6.1f} M px/s")
+    print(f"numpy loop on the first {m} splats ({fp_np / 1e6:.2f} M footprint px; rate ="
+          f" those px / time): {t_np * 1e3:8.1f} ms  {rate_np / 1e6:6.1f} M px/s")
     print(f"speed-up {default_threads} threads vs numpy: {rate_par / rate_np:7.1f}x")
     print(f"speed-up {default_threads} threads vs 1 thread: {rate_par / rate_one:5.2f}x")
     print(f"1-thread and {default_threads}-thread images bit-identical: "
