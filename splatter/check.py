@@ -6,6 +6,7 @@ from typing import List
 
 import numpy as np
 
+from splatter.camera import project_puffs
 from splatter.look import LookSpec
 from splatter.outputs import planned_files
 from splatter.render import make_camera, output_dir
@@ -25,8 +26,6 @@ def border_report(look: LookSpec, camera, plan, frames) -> List[str]:
     Projects every puff of ``frames`` (no compositing) and counts the frames
     where a puff of noticeable opacity has its 3-sigma ellipse cut by the edge.
     """
-    from splatter.camera import puff_covariances
-
     w, h = look.image.width, look.image.height
     hits, worst = 0, 0.0
     n = 0
@@ -34,8 +33,7 @@ def border_report(look: LookSpec, camera, plan, frames) -> List[str]:
         n += 1
         if len(state.size) == 0:
             continue
-        cov = puff_covariances(state.size, state.aspect, state.quat, state.vel, state.stretch)
-        s = camera.project(state.pos, cov)
+        s = project_puffs(camera, state.pos, state.size, state.aspect, state.quat, state.vel, state.stretch)
         op = effective_opacity(state.opacity, state.density, look.shading.blend)
         rx = 3.0 * np.sqrt(np.asarray(s.covs[:, 0, 0], dtype=np.float64))
         ry = 3.0 * np.sqrt(np.asarray(s.covs[:, 1, 1], dtype=np.float64))

@@ -23,7 +23,7 @@ from typing import Dict, Optional, Tuple
 
 import numpy as np
 
-from splatter.camera import Camera, puff_covariances
+from splatter.camera import Camera, project_puffs
 
 __all__ = ["ScreenSplats", "make_splats", "effective_opacity", "feature_layout"]
 
@@ -118,8 +118,7 @@ def make_splats(
     m = len(state.size)
     if m == 0:
         return _empty(k, channels)
-    cov3 = puff_covariances(state.size, state.aspect, state.quat, state.vel, state.stretch)
-    screen = camera.project(state.pos, cov3)
+    screen = project_puffs(camera, state.pos, state.size, state.aspect, state.quat, state.vel, state.stretch)
     keep = np.asarray(screen.visible, dtype=bool)
     opac = effective_opacity(state.opacity, state.density, blend)
     keep &= opac > 0.0
