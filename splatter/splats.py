@@ -96,7 +96,8 @@ def make_splats(
     state : FrameState-like
         Per-puff arrays ``pos (M, 3)``, ``vel (M, 3)``, ``size``, ``aspect``,
         ``quat (M, 4)``, ``stretch``, ``opacity``, ``density``, ``color (M, 3)``,
-        ``glow (M, 3)``, ``source``, ``slot``.
+        ``glow (M, 3)``, ordered by source and spawn slot (as
+        :func:`splatter.simulate.simulate` yields them).
     camera : Camera
     blend : {"over", "add", "absorb"}
     fps : float
@@ -127,7 +128,9 @@ def make_splats(
         return _empty(k, channels)
     depth = np.asarray(screen.depth)[idx]
     if blend == "over":
-        order = np.lexsort((np.asarray(state.slot)[idx], np.asarray(state.source)[idx], -depth.astype(np.float64)))
+        # The simulation hands puffs over ordered by (source, slot, id), so a
+        # stable sort on depth breaks ties the same way at an exact loop's seam.
+        order = np.argsort(-depth, kind="stable")
         idx = idx[order]
         depth = depth[order]
     feats = np.empty((idx.size, k), dtype=np.float32)
