@@ -37,25 +37,38 @@ def numpy_step(pos, vel, age, dt, t, ft, ot):
     k = np.concatenate([sw.k for sw in ft.swirls])
     theta = pos @ k.T + (ft.swirl_w * t + ft.swirl_phi)
     air = np.cos(theta) @ ft.swirl_b
+    pos0, vel0 = pos, vel
     vel = vel + dt * acc
     pos = pos + dt * (vel + air)
     for p in ot.planes:
         d = (pos - p[0:3]) @ p[3:6]
         hit = d < 0
         if hit.any():
-            n = p[3:6]
+            # The kernel's contact rule (splatter.obstacles): impact at the
+            # crossing, consistent with leapfrog, then restitution and friction.
+            n, e, mu = p[3:6], p[6], p[7]
+            d1 = d[hit]
+            d0 = (pos0[hit] - p[0:3]) @ n
             v = vel[hit]
             vn = v @ n
-            into = vn < 0
-            # back to the surface, plus e times the overshoot when moving in
-            pos[hit] -= (d[hit] * np.where(into, 1.0 + p[6], 1.0))[:, None] * n
+            an = ((v - vel0[hit]) @ n) / dt
+            crossed = d0 >= 0
+            f = np.where(crossed, d0 / np.where(crossed, d0 - d1, 1.0), 0.5)
+            vi = np.where(crossed, vn + an * (f - 0.5) * dt, vn)
+            r = np.where(crossed, (1.0 - f) * dt, 0.0)
+            into = vi < 0
             vt = v - vn[:, None] * n
             speed_t = np.linalg.norm(vt, axis=1)
             safe = np.where(speed_t > 0, speed_t, 1.0)
-            f = np.where(speed_t > 0, np.maximum(0.0, 1.0 - p[7] * (1 + p[6]) * np.abs(vn) / safe), 0.0)
-            f = np.where(into, f, 1.0)
-            vn2 = np.where(into, -p[6] * vn, vn)
-            vel[hit] = f[:, None] * vt + vn2[:, None] * n
+            k = np.where(speed_t > 0, np.maximum(0.0, 1.0 - mu * (1 + e) * (-vi) / safe), 0.0)
+            vplus = -e * vi
+            above = np.maximum(0.0, vplus * r + 0.5 * an * r * r)
+            vn2 = vplus + an * (0.5 - f) * dt
+            new_pos = pos[hit] - d1[:, None] * n
+            new_pos = np.where(into[:, None], new_pos + above[:, None] * n + ((k - 1.0) * r)[:, None] * vt, new_pos)
+            new_vel = np.where(into[:, None], k[:, None] * vt + vn2[:, None] * n, v)
+            pos[hit] = new_pos
+            vel[hit] = new_vel
     return pos, vel
 
 

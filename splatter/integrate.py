@@ -111,7 +111,7 @@ def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, li
             vx1 = vx + h * ax
             vy1 = vy + h * ay
             vz1 = vz + h * az
-        x1, y1, z1, vx1, vy1, vz1, k = _collide(x1, y1, z1, vx1, vy1, vz1, planes, spheres)
+        x1, y1, z1, vx1, vy1, vz1, k = _collide(x1, y1, z1, vx1, vy1, vz1, planes, spheres, x, y, z, vx, vy, vz, h)
         pos[i, 0] = x1
         pos[i, 1] = y1
         pos[i, 2] = z1

@@ -69,11 +69,12 @@ def test_rebound_height_ratio_is_e_squared(e):
     # Textbook impact mechanics [from memory]: v_n' = -e v_n, so the rebound
     # height ratio is e^2 (e = 0.8 -> 0.64; three bounces e^6 = 0.262144).
     # reference-checks: semi-implicit Euler reaches 0.64 within about 2 % at
-    # dt = 1/240 and 0.5 % at dt = 1e-3.  The integrator's apex error grows as
-    # g dt / (e sqrt(2 g H)), so e = 0.5 at dt = 1/240 gets 2.5 %.
+    # dt = 1/240 and 0.5 % at dt = 1e-3; the issue asks 2 % for e = 0.5 and 0.8.
     fine = _drop(e, 1e-3, 3.0)
-    assert abs(fine[0] / e ** 2 - 1) < (0.005 if e == 0.8 else 0.01)
+    assert abs(fine[0] / e ** 2 - 1) < 0.005
     coarse = _drop(e, 1 / 240, 3.0)
-    assert abs(coarse[0] / e ** 2 - 1) < (0.02 if e == 0.8 else 0.025)
-    if e == 0.8:
-        assert abs(coarse[2] / e ** 6 - 1) < 0.02
+    assert abs(coarse[0] / e ** 2 - 1) < 0.02
+    assert abs(coarse[2] / e ** 6 - 1) < 0.02
+    # The contact is resolved at the crossing, consistent with leapfrog, so
+    # under constant gravity the ratio is exact but for sampling the apex.
+    assert abs(coarse[0] / e ** 2 - 1) < 1e-3
