@@ -1,5 +1,3 @@
-import sys
+from splatter.cli import run
 
-from splatter.cli import main
-
-sys.exit(main())
+run()
