@@ -152,64 +152,81 @@ class OutputSink:
         layout = sheet_layout(
             len(self._sheet_frames), w, h, columns=spec.columns, rows=spec.rows, padding=spec.padding, pow2=spec.pow2
         )
-        fmt, name, d = spec.format, look.name, self.out_dir
-        maps = {}
         layers = self._sheet_layers
         alpha = [f[..., 3] for f in self._sheet_frames]
-        common = dict(format=fmt, png_bits=look.output.png_bits, exr_type=look.output.exr_type)
+        common = dict(format=spec.format, png_bits=look.output.png_bits, exr_type=look.output.exr_type)
+        maps = {}
         if "motion.x" in layers:
-            # Pixels per frame -> sheet UV units per frame (cells may be resampled).
-            sx = layout.cells[0].w / w / layout.width
-            sy = layout.cells[0].h / h / layout.height
-            d_uv = [np.stack([mx * sx, my * sy], axis=-1) for mx, my in zip(layers["motion.x"], layers["motion.y"])]
-            peak = max((float(np.abs(d[a > _COVERED]).max(initial=0.0)) for d, a in zip(d_uv, alpha)), default=0.0)
-            scale = _round_up_2sig(max(peak, 1e-6))
-            if fmt == "png":
-                frames = [encode_signed(_fade(d, a, 0.0), scale) for d, a in zip(d_uv, alpha)]
-                enc = "0.5+0.5*clamp(d/s,-1,1)"
-            else:
-                frames, enc = d_uv, "raw"
-            maps["motion"] = write_map_sheet(d, name, "motion", frames, layout, encoding=enc, channels=("x", "y"),
-                                             background=(0.5, 0.5) if fmt == "png" else (0.0, 0.0), scale=scale, units="sheet uv per frame", **common)
+            maps["motion"] = self._motion_sheet(layout, layers, alpha, w, h, common)
         if "depth.z" in layers:
-            zs = [z[a > _COVERED] for z, a in zip(layers["depth.z"], alpha)]
-            near = min((float(z.min()) for z in zs if z.size), default=0.0)
-            far = max((float(z.max()) for z in zs if z.size), default=1.0)
-            far = far if far > near else near + 1.0
-            if fmt == "png":
-                frames = [_fade(np.where(a > 0, encode_depth(z, near, far), 1.0), a, 1.0)[..., None]
-                          for z, a in zip(layers["depth.z"], alpha)]
-                enc = "linear"
-            else:
-                frames, enc = [z[..., None] for z in layers["depth.z"]], "raw"
-            maps["depth"] = write_map_sheet(d, name, "depth", frames, layout, encoding=enc, channels=("z",),
-                                            background=(1.0,) if fmt == "png" else (far,), near=near, far=far, units="world", **common)
+            maps["depth"] = self._depth_sheet(layout, layers["depth.z"], alpha, common)
         if "normal.x" in layers:
-            y_down = look.output.normal_y == "down"
-            normals = [np.stack([layers[f"normal.{c}"][i] for c in "xyz"], axis=-1) for i in range(len(alpha))]
-            if fmt == "png":
-                frames, enc = [encode_normal(n, y_down=y_down) for n in normals], "n*0.5+0.5"
-            else:
-                frames, enc = normals, "raw"
-            flat = (0.5, 0.5, 1.0) if fmt == "png" else (0.0, 0.0, 1.0)
-            maps["normal"] = write_map_sheet(d, name, "normal", frames, layout, encoding=enc, channels=("x", "y", "z"),
-                                             background=flat,
-                                             convention="+y down" if y_down else "+y up", **common)
+            maps["normal"] = self._normal_sheet(layout, layers, alpha, common)
         if "lightdirs.right" in layers:
-            rlt = [np.stack([layers[f"lightdirs.{s}"][i] for s in ("right", "left", "top")], -1) for i in range(len(alpha))]
-            bfb = [np.stack([layers[f"lightdirs.{s}"][i] for s in ("bottom", "front", "back")], -1) for i in range(len(alpha))]
-            rlt = [_fade(v, a, 0.0) for v, a in zip(rlt, alpha)]
-            bfb = [_fade(v, a, 0.0) for v, a in zip(bfb, alpha)]
-            maps["lightdirs"] = write_lightdirs_sheets(d, name, rlt, bfb, layout, png_bits=look.output.png_bits)
+            maps["lightdirs"] = self._lightdirs_sheets(layout, layers, alpha)
         for entry in maps.values():
             for f in entry.get("files", [entry.get("file")]):
-                self.files.append(os.path.join(d, f))
-        loop = look.clip.loop
+                self.files.append(os.path.join(self.out_dir, f))
         self.files += write_sheet(
-            d, name, self._sheet_frames, layout, format=fmt, alpha=look.output.png_alpha,
-            png_bits=look.output.png_bits, exr_type=look.output.exr_type, fps=look.clip.fps, loop=loop,
+            self.out_dir, look.name, self._sheet_frames, layout, format=spec.format, alpha=look.output.png_alpha,
+            png_bits=look.output.png_bits, exr_type=look.output.exr_type, fps=look.clip.fps, loop=look.clip.loop,
             maps=maps, exposure=look.shading.exposure,
         )
+
+    def _motion_sheet(self, layout, layers, alpha, w, h, common) -> dict:
+        """Screen motion in sheet UV units per frame; the scale is the clip's largest."""
+        # Pixels per frame -> sheet UV units per frame (cells may be resampled).
+        sx = layout.cells[0].w / w / layout.width
+        sy = layout.cells[0].h / h / layout.height
+        d_uv = [np.stack([mx * sx, my * sy], axis=-1) for mx, my in zip(layers["motion.x"], layers["motion.y"])]
+        peak = max((float(np.abs(d[a > _COVERED]).max(initial=0.0)) for d, a in zip(d_uv, alpha)), default=0.0)
+        scale = _round_up_2sig(max(peak, 1e-6))
+        png = common["format"] == "png"
+        if png:
+            frames, enc = [encode_signed(_fade(d, a, 0.0), scale) for d, a in zip(d_uv, alpha)], "0.5+0.5*clamp(d/s,-1,1)"
+        else:
+            frames, enc = d_uv, "raw"
+        return write_map_sheet(self.out_dir, self.look.name, "motion", frames, layout, encoding=enc,
+                               channels=("x", "y"), background=(0.5, 0.5) if png else (0.0, 0.0), scale=scale,
+                               units="sheet uv per frame", **common)
+
+    def _depth_sheet(self, layout, depths, alpha, common) -> dict:
+        """Alpha-weighted view depth; PNG normalised between the clip's nearest and farthest smoke."""
+        zs = [z[a > _COVERED] for z, a in zip(depths, alpha)]
+        near = min((float(z.min()) for z in zs if z.size), default=0.0)
+        far = max((float(z.max()) for z in zs if z.size), default=1.0)
+        far = far if far > near else near + 1.0
+        png = common["format"] == "png"
+        if png:
+            frames = [_fade(np.where(a > 0, encode_depth(z, near, far), 1.0), a, 1.0)[..., None]
+                      for z, a in zip(depths, alpha)]
+            enc = "linear"
+        else:
+            frames, enc = [z[..., None] for z in depths], "raw"
+        return write_map_sheet(self.out_dir, self.look.name, "depth", frames, layout, encoding=enc, channels=("z",),
+                               background=(1.0,) if png else (far,), near=near, far=far, units="world", **common)
+
+    def _normal_sheet(self, layout, layers, alpha, common) -> dict:
+        """View-space normals; PNG encoded n * 0.5 + 0.5 in the look's Y convention."""
+        y_down = self.look.output.normal_y == "down"
+        normals = [np.stack([layers[f"normal.{c}"][i] for c in "xyz"], axis=-1) for i in range(len(alpha))]
+        png = common["format"] == "png"
+        if png:
+            frames, enc = [encode_normal(n, y_down=y_down) for n in normals], "n*0.5+0.5"
+        else:
+            frames, enc = normals, "raw"
+        return write_map_sheet(self.out_dir, self.look.name, "normal", frames, layout, encoding=enc,
+                               channels=("x", "y", "z"), background=(0.5, 0.5, 1.0) if png else (0.0, 0.0, 1.0),
+                               convention="+y down" if y_down else "+y up", **common)
+
+    def _lightdirs_sheets(self, layout, layers, alpha) -> dict:
+        """Six light-direction factors packed into two RGB PNG sheets."""
+        def pack(sides):
+            return [_fade(np.stack([layers[f"lightdirs.{s}"][i] for s in sides], -1), a, 0.0)
+                    for i, a in enumerate(alpha)]
+
+        return write_lightdirs_sheets(self.out_dir, self.look.name, pack(("right", "left", "top")),
+                                      pack(("bottom", "front", "back")), layout, png_bits=self.look.output.png_bits)
 
     def _write_previews(self) -> None:
         look, d, name = self.look, self.out_dir, self.look.name
