@@ -18,11 +18,11 @@ Usage: python scripts/bench_composite.py [--runs 7] [--numpy-splats 2000]
 from __future__ import annotations
 
 import argparse
-import statistics
-import time
 
 import numba
 import numpy as np
+
+from _timing import timed
 
 from splatter.compositor import composite
 
@@ -102,17 +102,6 @@ def numpy_over(means, covs, colors, opac):
         view[..., :3] += colors[i] * a[..., None]
         view[..., 3] += a
     return img
-
-
-def timed(fn, runs):
-    """(median seconds, best seconds, last result) over ``runs`` calls."""
-    times = []
-    out = None
-    for _ in range(runs):
-        t0 = time.perf_counter()
-        out = fn()
-        times.append(time.perf_counter() - t0)
-    return statistics.median(times), min(times), out
 
 
 def main():

@@ -18,11 +18,11 @@ Usage: python scripts/bench_project.py [--runs 15] [--n 20000]
 from __future__ import annotations
 
 import argparse
-import statistics
-import time
 
 import numba
 import numpy as np
+
+from _timing import timed
 
 from splatter.camera import LOW_PASS, Camera, ewa_covariance, project_puffs, puff_covariances
 
@@ -86,17 +86,6 @@ def workload(n, seed=2024):
     vel = rng.normal(0.0, 0.5, (n, 3))
     stretch = rng.uniform(0.0, 0.05, n)
     return pos, size, aspect, quat, vel, stretch
-
-
-def timed(fn, runs):
-    """(median seconds, best seconds, last result) over ``runs`` calls."""
-    times = []
-    out = None
-    for _ in range(runs):
-        t0 = time.perf_counter()
-        out = fn()
-        times.append(time.perf_counter() - t0)
-    return statistics.median(times), min(times), out
 
 
 def main():
