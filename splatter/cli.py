@@ -249,6 +249,10 @@ def main(argv: Optional[Sequence[str]] = None) -> int:
         return EXIT_INTERRUPTED
     except BrokenPipeError:
         return EXIT_OK
+    except OSError as err:  # the disk or the folder, not the look: say which file, no traceback
+        where = f" {err.filename}" if getattr(err, "filename", None) else ""
+        print(f"splatter: error: cannot write{where}: {err.strerror or err}", file=sys.stderr)
+        return EXIT_INTERNAL
     except Exception:  # an internal failure: show everything so it can be reported
         import traceback
 

@@ -128,3 +128,13 @@ def test_smoke_cut_by_the_frame_border_is_warned_about(tmp_path):
     # Framed with room to spare, neither says a word about it.
     code, stdout, stderr = run("render", look, "--out", tmp_path / "p")
     assert code == 0 and "frame border" not in stderr
+
+
+def test_unwritable_output_folder_is_a_clear_failure(tmp_path):
+    # Not bad input (exit 2) but a failure to write (exit 1), named, without a traceback.
+    look = write_look(tmp_path, LONE_PUFF)
+    blocker = tmp_path / "a_file"
+    blocker.write_text("")
+    code, _, stderr = run("render", look, "--out", blocker / "frames", "--quiet")
+    assert code == 1
+    assert str(blocker / "frames") in stderr and "Traceback" not in stderr
