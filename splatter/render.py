@@ -30,6 +30,7 @@ from splatter.splats import effective_opacity, feature_layout, make_splats, spli
 __all__ = ["render", "RenderResult", "make_camera", "output_dir", "frame_images"]
 
 _BORDER_WARN = 1.0 / 255.0
+_FIT_INV_ALPHA = 4.0 * 255.0  # camera.fit frames each puff out to alpha 1 / (4 * 255)
 
 
 @dataclass
@@ -93,9 +94,11 @@ def make_camera(look: LookSpec, plan: Optional[SimPlan] = None, frames: Optional
     pts, rad = [], []
     blend = look.shading.blend
     for state in simulate(look, plan, frames=frames):
-        # Frame what can be seen: a puff of peak opacity a shows alpha >= 1/255
-        # out to r = sigma * sqrt(2 ln(255 a)), never past the 3-sigma cutoff.
-        peak = effective_opacity(state.opacity, state.density, blend) * 255.0
+        # Frame what can be seen: a puff of peak opacity a shows alpha >= t out
+        # to r = sigma * sqrt(2 ln(a / t)), never past the 3-sigma cutoff. t is
+        # a quarter of an 8-bit step, so faint rims that overlap near the edge
+        # still add up to less than 1/255 there.
+        peak = effective_opacity(state.opacity, state.density, blend) * _FIT_INV_ALPHA
         visible = peak > 1.0
         reach = np.minimum(3.0, np.sqrt(2.0 * np.log(np.maximum(peak[visible], 1.0)))) / 3.0
         # The long axis of a stretched puff: size, or half the smear length.
