@@ -145,8 +145,12 @@ def quantize(x, bits):
     if bits not in (8, 16):
         raise ValueError(f"bits: expected 8 or 16, got {bits!r}")
     top = float(2**bits - 1)
-    v = np.nan_to_num(np.asarray(x, dtype=np.float64), nan=0.0)
-    v = np.floor(np.clip(v, 0.0, 1.0) * top + 0.5)
+    v = np.array(x, dtype=np.float64)  # one working copy, then in place
+    np.nan_to_num(v, copy=False, nan=0.0)
+    np.clip(v, 0.0, 1.0, out=v)
+    v *= top
+    v += 0.5
+    np.floor(v, out=v)
     return v.astype(np.uint8 if bits == 8 else np.uint16)
 
 
