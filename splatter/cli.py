@@ -74,7 +74,8 @@ def _parser() -> argparse.ArgumentParser:
         help="render frames A to B-1 only (A:B, A: or a single frame A); may run past the clip's end",
     )
     r.add_argument("--threads", type=int, metavar="N", help="number of compute threads (default: all cores)")
-    r.add_argument("--quiet", action="store_true", help="no progress bar and no summary line")
+    r.add_argument("--quiet", action="store_true",
+                   help="no progress bar and no summary line (notes and warnings are still shown)")
 
     c = sub.add_parser(
         "check",
@@ -157,7 +158,11 @@ def _cmd_render(args) -> int:
     frames = parse_frames(args.frames, look.clip.frames)
     _set_threads(args.threads)
     from splatter.render import render
+    from splatter.simulate import plan_simulation
 
+    # What the simulation had to change (loop snapping, seams) is said even with --quiet.
+    for note in plan_simulation(look).notes:
+        print(f"splatter: note: {note}", file=sys.stderr)
     result = render(look, out_dir=args.out, frames=frames, progress=not args.quiet)
     if not args.quiet:
         print(result.summary(), file=sys.stderr)

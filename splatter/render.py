@@ -233,9 +233,6 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
     t_start = time.perf_counter()
     timings: Dict[str, float] = {}
     plan = plan_simulation(look)
-    if progress:
-        for note in plan.notes:
-            print(f"splatter: note: {note}", file=sys.stderr)
     wanted = list(frames) if frames is not None else list(range(look.clip.frames))
     folder = output_dir(look, out_dir)
     if progress:

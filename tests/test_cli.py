@@ -138,3 +138,12 @@ def test_unwritable_output_folder_is_a_clear_failure(tmp_path):
     code, _, stderr = run("render", look, "--out", blocker / "frames", "--quiet")
     assert code == 1
     assert str(blocker / "frames") in stderr and "Traceback" not in stderr
+
+
+def test_a_loop_that_cannot_close_is_named_even_when_quiet(tmp_path):
+    text = LONE_PUFF.replace("[clip]", '[clip]\nloop = "exact"')
+    look = write_look(tmp_path, text)
+    code, stdout, _ = run("check", look)
+    assert code == 0 and "source[0].bursts" in stdout and "seam" in stdout
+    code, _, stderr = run("render", look, "--out", tmp_path / "o", "--quiet")
+    assert code == 0 and "source[0].bursts" in stderr and "seam" in stderr
