@@ -64,7 +64,7 @@ def check_look(look: LookSpec) -> str:
         f"shading   blend {look.shading.blend}" + (", lit with self-shadowing" if look.shading.light else ""),
     ]
     for i, src in enumerate(look.sources):
-        rate = plan.rates[i] if hasattr(plan, "rates") else src.rate
+        rate = plan.rates[i]
         life = src.life[0] if src.life[0] == src.life[1] else f"{src.life[0]:g}-{src.life[1]:g}"
         bursts = f", {sum(b.count for b in src.bursts)} puffs in bursts" if src.bursts else ""
         lines.append(f"source[{i}] {src.shape} at {list(src.center)}, {rate:g} puffs/s, life {life} s{bursts}")

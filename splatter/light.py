@@ -212,13 +212,11 @@ def build_density_grid(pos, size, tau0, *, grid: int = GRID) -> DensityGrid:
     # Blur with the median puff size; deposit already spreads one cell.
     sigma_cells = max(0.0, float(np.median(size)) / cell)
     weights = _gaussian_weights(math.sqrt(max(sigma_cells**2 - 1.0 / 6.0, 0.25)))
-    tmp = np.empty_like(raw)
     for axis in range(3):
         src = np.ascontiguousarray(np.moveaxis(raw, axis, 0))
         dst = np.empty_like(src)
         _blur_axis0(src, weights, dst)
         raw = np.ascontiguousarray(np.moveaxis(dst, 0, axis))
-    del tmp
     return DensityGrid(raw, origin, cell)
 
 

@@ -403,7 +403,7 @@ def _output(v, ctx):
     checkers = {
         "dir": dir_text,
         "frames": list_of(*L.FRAME_FORMATS),
-        "png_bits": lambda x, c: _png_bits(x, c),
+        "png_bits": _png_bits,
         "png_alpha": choice("straight", "premultiplied"),
         "exr_type": choice("half", "float"),
         "sheet": lambda x, c: _check_table(x, c, L.SheetSpec, _SHEET),
@@ -420,8 +420,7 @@ def _png_bits(v, ctx):
     return int(v)
 
 
-def _seed(v, ctx):
-    return number(0, 2**63 - 1, integer=True)(v, ctx)
+_seed = number(0, 2**63 - 1, integer=True)
 
 
 def build_spec(data: Dict[str, Any], origin: Callable, *, default_name: str, path: Optional[str]) -> L.LookSpec:

@@ -165,7 +165,9 @@ def frame_images(look: LookSpec, camera: Camera, states, *, maps=None, timings=N
 
     Yields
     ------
-    (frame, image, channels)
+    (frame, image, channels, sigma)
+        ``sigma`` is the frame's median splat radius in pixels (for normal
+        maps), or 0 when the look asks for no normal map.
     """
     maps = look.output.maps if maps is None else maps
     channels = feature_layout(motion="motion" in maps, depth="depth" in maps, lightdirs="lightdirs" in maps)
@@ -182,7 +184,9 @@ def frame_images(look: LookSpec, camera: Camera, states, *, maps=None, timings=N
         timings["light"] = timings.get("light", 0.0) + t_light
         timings["project"] = timings.get("project", 0.0) + (t1 - t0)
         timings["composite"] = timings.get("composite", 0.0) + (t2 - t1)
-        sigma = float(np.median(np.sqrt(0.5 * (sp.covs[:, 0, 0] + sp.covs[:, 1, 1])))) if len(sp.opacities) else 1.0
+        sigma = 0.0
+        if "normal" in maps and len(sp.opacities):
+            sigma = float(np.median(np.sqrt(0.5 * (sp.covs[:, 0, 0] + sp.covs[:, 1, 1]))))
         yield state.frame, image, channels, sigma
 
 
