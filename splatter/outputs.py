@@ -23,7 +23,7 @@ from splatter.encode import encode_depth, encode_normal, encode_signed
 from splatter.look import LookSpec
 from splatter.preview import write_contact_sheet, write_gif, write_mp4
 from splatter.sheet import sheet_layout, write_lightdirs_sheets, write_map_sheet, write_sheet
-from splatter.write_exr import write_exr
+from splatter.write_exr import rgba_channels, write_exr
 from splatter.write_png import write_png
 
 __all__ = ["OutputSink", "planned_files"]
@@ -72,14 +72,11 @@ class OutputSink:
     look : LookSpec
     out_dir : str
         Existing output folder.
-    n_frames : int
-        How many frames will be added (the sheet's cell count).
     """
 
-    def __init__(self, look: LookSpec, out_dir: str, n_frames: int):
+    def __init__(self, look: LookSpec, out_dir: str):
         self.look = look
         self.out_dir = out_dir
-        self.n_frames = n_frames
         self.files: List[str] = []
         self.write_seconds = 0.0
         self._lock = threading.Lock()
@@ -116,7 +113,7 @@ class OutputSink:
             if ext == "png":
                 write_png(path, rgba, bits=out.png_bits, alpha=out.png_alpha, exposure=self.look.shading.exposure)
             else:
-                channels = {c: rgba[..., i] for i, c in enumerate("RGBA")}
+                channels = rgba_channels(rgba)
                 channels.update(layers)
                 write_exr(path, channels, pixel_type=out.exr_type)
             written.append(path)
@@ -240,7 +237,7 @@ class OutputSink:
                 write_mp4(path, self._preview, look.clip.fps, exposure=exp)
             else:
                 path = os.path.join(d, f"{name}.contact.png")
-                write_contact_sheet(path, self._preview, label=True, exposure=exp)
+                write_contact_sheet(path, self._preview, numbers=self._frame_numbers, exposure=exp)
             self.files.append(path)
 
 

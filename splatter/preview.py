@@ -183,7 +183,8 @@ def write_mp4(path, frames_premult_linear, fps, *, exposure=0.0, quality=8, repe
     return os.fspath(path)
 
 
-def write_contact_sheet(path, frames_premult_linear, *, columns=None, label=True, exposure=0.0, gap=2):
+def write_contact_sheet(path, frames_premult_linear, *, columns=None, label=True, numbers=None, exposure=0.0,
+                        gap=2):
     """Write all frames on one PNG, over the checker, each labelled with its number.
 
     Parameters
@@ -196,6 +197,9 @@ def write_contact_sheet(path, frames_premult_linear, *, columns=None, label=True
         Grid columns; default near-square (see :func:`splatter.sheet.sheet_layout`).
     label : bool
         Draw the frame number at the top-left of each frame (Pillow's default font).
+    numbers : sequence of int, optional
+        The frame numbers to draw, one per frame (a render of frames 10 to 15
+        labels them 10 to 15); default 0, 1, 2, ...
     exposure : float
         Stops applied to the frames' colour.
     gap : int
@@ -207,6 +211,11 @@ def write_contact_sheet(path, frames_premult_linear, *, columns=None, label=True
         ``path``.
     """
     codes = _preview_frames(frames_premult_linear, exposure)
+    if numbers is None:
+        numbers = range(len(codes))
+    numbers = [int(k) for k in numbers]
+    if len(numbers) != len(codes):
+        raise ValueError(f"numbers: expected {len(codes)} frame numbers, got {len(numbers)}")
     h, w = codes[0].shape[:2]
     lay = sheet_layout(len(codes), w, h, columns=columns, padding=gap)
     img = np.full((lay.height, lay.width, 3), 128, dtype=np.uint8)
@@ -216,8 +225,8 @@ def write_contact_sheet(path, frames_premult_linear, *, columns=None, label=True
         pil = Image.fromarray(img)
         draw = ImageDraw.Draw(pil)
         font = ImageFont.load_default()
-        for cell in lay.cells:
-            text = str(cell.frame)
+        for cell, number in zip(lay.cells, numbers):
+            text = str(number)
             x0, y0, x1, y1 = draw.textbbox((cell.x + 2, cell.y + 1), text, font=font)
             draw.rectangle((x0 - 1, y0 - 1, x1 + 1, y1 + 1), fill=(0, 0, 0))
             draw.text((cell.x + 2, cell.y + 1), text, fill=(255, 255, 255), font=font)

@@ -81,7 +81,7 @@ from PIL import Image
 
 from splatter.encode import dilate_colour, quantize, to_display
 from splatter.fileio import atomic_write_text
-from splatter.write_exr import write_exr
+from splatter.write_exr import rgba_channels, write_exr
 from splatter.write_png import write_png_encoded
 
 __all__ = [
@@ -385,7 +385,7 @@ def write_sheet(
         write_png_encoded(path, quantize(disp, png_bits), srgb=True, text=text)
         color = "srgb"
     else:
-        write_exr(path, {c: sheet[..., i] for i, c in enumerate("RGBA")}, pixel_type=exr_type)
+        write_exr(path, rgba_channels(sheet), pixel_type=exr_type)
         alpha, color = "premultiplied", "linear"
     meta = {"version": SCHEMA_VERSION, "image": image, "format": format}
     meta.update(layout.to_json())

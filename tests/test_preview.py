@@ -80,6 +80,21 @@ def test_contact_sheet(tmp_path):
     np.testing.assert_array_equal(b[y0 + 16 : y0 + 32, x0 : x0 + 48], over_checker(frames[7])[16:])
 
 
+def test_contact_sheet_labels_the_frame_numbers_given(tmp_path):
+    # A render of frames 10..19 labels its cells 10..19, not 0..9.
+    frames = _clip(n=10)
+    default = np.asarray(Image.open(write_contact_sheet(tmp_path / "a.png", frames, columns=5)))
+    same = np.asarray(Image.open(write_contact_sheet(tmp_path / "b.png", frames, columns=5, numbers=range(10))))
+    later = np.asarray(Image.open(write_contact_sheet(tmp_path / "c.png", frames, columns=5, numbers=range(10, 20))))
+    np.testing.assert_array_equal(default, same)
+    assert (later != default).any()
+    # Only the label corners change; the frames themselves do not.
+    x0, y0 = 2 * (48 + 4) + 2, 1 * (32 + 4) + 2
+    np.testing.assert_array_equal(later[y0 + 16 : y0 + 32, x0 : x0 + 48], default[y0 + 16 : y0 + 32, x0 : x0 + 48])
+    with pytest.raises(ValueError, match="numbers"):
+        write_contact_sheet(tmp_path / "d.png", frames, numbers=[1, 2])
+
+
 def test_bad_input(tmp_path):
     with pytest.raises(ValueError, match="fps"):
         write_gif(tmp_path / "x.gif", _clip(), fps=0)
