@@ -161,9 +161,10 @@ def _cmd_render(args) -> int:
     from splatter.simulate import plan_simulation
 
     # What the simulation had to change (loop snapping, seams) is said even with --quiet.
-    for note in plan_simulation(look).notes:
+    plan = plan_simulation(look)
+    for note in plan.notes:
         print(f"splatter: note: {note}", file=sys.stderr)
-    result = render(look, out_dir=args.out, frames=frames, progress=not args.quiet)
+    result = render(look, out_dir=args.out, frames=frames, progress=not args.quiet, plan=plan)
     if not args.quiet:
         print(result.summary(), file=sys.stderr)
     return EXIT_OK

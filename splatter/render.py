@@ -216,7 +216,7 @@ def _announce_compile() -> None:
 
 
 def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[Iterable[int]] = None,
-           progress: bool = True) -> RenderResult:
+           progress: bool = True, plan: Optional[SimPlan] = None) -> RenderResult:
     """Render a look and write the files its ``[output]`` table asks for.
 
     Parameters
@@ -229,6 +229,8 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
         clip's end; the simulation continues.
     progress : bool
         Show a progress bar on stderr.
+    plan : SimPlan, optional
+        The look's :func:`~splatter.simulate.plan_simulation`, when the caller has it already.
 
     Returns
     -------
@@ -236,7 +238,7 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
     """
     t_start = time.perf_counter()
     timings: Dict[str, float] = {}
-    plan = plan_simulation(look)
+    plan = plan or plan_simulation(look)
     wanted = list(frames) if frames is not None else list(range(look.clip.frames))
     folder = output_dir(look, out_dir)
     if progress:
