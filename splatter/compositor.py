@@ -22,8 +22,8 @@ from splatter import _composite_kernels as _k
 BLENDS = ("over", "add", "absorb")
 """Blend modes accepted by :func:`composite` and :func:`composite_features`."""
 
-TILE = _k.TILE
-"""Screen tile edge in pixels: tiles are the unit of parallel work."""
+TILE = (_k.TILE_H, _k.TILE_W)
+"""Screen tile (height, width) in pixels: tiles are the unit of parallel work."""
 
 _MAX_OPACITY = 1.0 - 1e-6
 """``absorb`` clips opacity here so the peak optical depth stays finite."""
@@ -168,22 +168,26 @@ def composite_features(means, covs, features, opacities, *, shape, blend="over")
         peaks = -np.log1p(-np.minimum(opacities, _MAX_OPACITY))
     else:
         peaks = opacities
-    params = np.empty((n, 8), dtype=np.float64)
-    ranges = np.empty((n, 8), dtype=np.int64)
+    peaks = np.ascontiguousarray(peaks, dtype=np.float32)
+    params = np.empty((n, _k.N_PARAMS), dtype=np.float64)
+    ranges = np.empty((n, _k.N_RANGES), dtype=np.int64)
+    tlen = np.empty(n, dtype=np.int64)
     _k._prepare(np.ascontiguousarray(means, dtype=np.float64),
                 np.ascontiguousarray(covs, dtype=np.float64),
-                height, width, TILE, params, ranges)
-    ntx = -(-width // TILE)
-    nty = -(-height // TILE)
+                peaks, height, width, params, ranges, tlen)
+    toff = np.cumsum(tlen)
+    ranges[:, _k.N_RANGES - 1] = toff - tlen
+    tables = np.empty(int(toff[-1]) if n else 0, dtype=np.float32)
+    _k._fill_tables(params, ranges, peaks, tables)
+    ntx = -(-width // _k.TILE_W)
+    nty = -(-height // _k.TILE_H)
     offsets = np.empty(ntx * nty + 1, dtype=np.int64)
     _k._count_pairs(ranges, ntx, offsets)
     order = np.empty(int(offsets[-1]), dtype=np.int64)
     _k._bin(ranges, ntx, offsets, np.empty(ntx * nty, dtype=np.int64), order)
-    ramp = np.arange(_k.STRIDE, dtype=np.float32)
-    _k._render(params, ranges,
-               np.ascontiguousarray(features, dtype=np.float32),
-               np.ascontiguousarray(peaks, dtype=np.float32),
-               mode, offsets, order, ramp, out)
+    kernel = _k.render_kernel(mode, nk == 3)
+    kernel(params, ranges, tables, np.ascontiguousarray(features, dtype=np.float32),
+           peaks, offsets, order, out)
     return out
 
 
