@@ -406,48 +406,49 @@ def _tile(t, ntx, params, ranges, tables, feats, peaks, offsets, order, out, mod
 
 # One parallel kernel per (blend mode, K == 3): each inlines _tile with
 # constant arguments, so its inner loops hold only the operations it needs.
+# ``tile_order`` lists the tiles in the order the parallel loop takes them.
 
 @numba.njit(**PARALLEL)
-def _render_over3(params, ranges, tables, feats, peaks, offsets, order, out):
+def _render_over3(params, ranges, tables, feats, peaks, offsets, order, tile_order, out):
     ntx = (out.shape[1] + TILE_W - 1) // TILE_W
-    for t in numba.prange(offsets.shape[0] - 1):
-        _tile(t, ntx, params, ranges, tables, feats, peaks, offsets, order, out, MODE_OVER, True)
-
-
-@numba.njit(**PARALLEL)
-def _render_add3(params, ranges, tables, feats, peaks, offsets, order, out):
-    ntx = (out.shape[1] + TILE_W - 1) // TILE_W
-    for t in numba.prange(offsets.shape[0] - 1):
-        _tile(t, ntx, params, ranges, tables, feats, peaks, offsets, order, out, MODE_ADD, True)
+    for i in numba.prange(tile_order.shape[0]):
+        _tile(tile_order[i], ntx, params, ranges, tables, feats, peaks, offsets, order, out, MODE_OVER, True)
 
 
 @numba.njit(**PARALLEL)
-def _render_absorb3(params, ranges, tables, feats, peaks, offsets, order, out):
+def _render_add3(params, ranges, tables, feats, peaks, offsets, order, tile_order, out):
     ntx = (out.shape[1] + TILE_W - 1) // TILE_W
-    for t in numba.prange(offsets.shape[0] - 1):
-        _tile(t, ntx, params, ranges, tables, feats, peaks, offsets, order, out, MODE_ABSORB,
+    for i in numba.prange(tile_order.shape[0]):
+        _tile(tile_order[i], ntx, params, ranges, tables, feats, peaks, offsets, order, out, MODE_ADD, True)
+
+
+@numba.njit(**PARALLEL)
+def _render_absorb3(params, ranges, tables, feats, peaks, offsets, order, tile_order, out):
+    ntx = (out.shape[1] + TILE_W - 1) // TILE_W
+    for i in numba.prange(tile_order.shape[0]):
+        _tile(tile_order[i], ntx, params, ranges, tables, feats, peaks, offsets, order, out, MODE_ABSORB,
               True)
 
 
 @numba.njit(**PARALLEL)
-def _render_over_k(params, ranges, tables, feats, peaks, offsets, order, out):
+def _render_over_k(params, ranges, tables, feats, peaks, offsets, order, tile_order, out):
     ntx = (out.shape[1] + TILE_W - 1) // TILE_W
-    for t in numba.prange(offsets.shape[0] - 1):
-        _tile(t, ntx, params, ranges, tables, feats, peaks, offsets, order, out, MODE_OVER, False)
+    for i in numba.prange(tile_order.shape[0]):
+        _tile(tile_order[i], ntx, params, ranges, tables, feats, peaks, offsets, order, out, MODE_OVER, False)
 
 
 @numba.njit(**PARALLEL)
-def _render_add_k(params, ranges, tables, feats, peaks, offsets, order, out):
+def _render_add_k(params, ranges, tables, feats, peaks, offsets, order, tile_order, out):
     ntx = (out.shape[1] + TILE_W - 1) // TILE_W
-    for t in numba.prange(offsets.shape[0] - 1):
-        _tile(t, ntx, params, ranges, tables, feats, peaks, offsets, order, out, MODE_ADD, False)
+    for i in numba.prange(tile_order.shape[0]):
+        _tile(tile_order[i], ntx, params, ranges, tables, feats, peaks, offsets, order, out, MODE_ADD, False)
 
 
 @numba.njit(**PARALLEL)
-def _render_absorb_k(params, ranges, tables, feats, peaks, offsets, order, out):
+def _render_absorb_k(params, ranges, tables, feats, peaks, offsets, order, tile_order, out):
     ntx = (out.shape[1] + TILE_W - 1) // TILE_W
-    for t in numba.prange(offsets.shape[0] - 1):
-        _tile(t, ntx, params, ranges, tables, feats, peaks, offsets, order, out, MODE_ABSORB,
+    for i in numba.prange(tile_order.shape[0]):
+        _tile(tile_order[i], ntx, params, ranges, tables, feats, peaks, offsets, order, out, MODE_ABSORB,
               False)
 
 

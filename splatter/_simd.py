@@ -32,7 +32,7 @@ from numba.extending import intrinsic, models, overload, register_model
 from splatter.jit import KERNEL
 
 __all__ = ["f32x8", "vload", "vstore", "vsplat", "vramp", "vadd", "vsub", "vmul", "vfma",
-           "vmin", "vmax", "vkeep_below", "vkeep_between", "vpowers", "vexp"]
+           "vmin", "vmax", "vfloor", "vpow2i", "vkeep_below", "vpowers", "vexp"]
 
 
 class F32x8Type(types.Type):
@@ -250,39 +250,6 @@ def _vkeep_below(typingctx, v, count):
 
 
 @intrinsic
-def _vkeep_between(typingctx, v, lo, hi):
-    """Lanes lo <= u <= hi keep v; the others become +0."""
-    if not (v == f32x8 and lo == types.float32 and hi == types.float32):
-        return None
-
-    def codegen(context, builder, signature, args):
-        lanes = ir.Constant(_VEC, [float(i) for i in range(8)])
-        keep = None
-        for bound, op in ((args[1], ">="), (args[2], "<=")):
-            c = builder.insert_element(ir.Constant(_VEC, ir.Undefined), bound,
-                                       ir.Constant(ir.IntType(32), 0))
-            c = builder.shuffle_vector(c, c, ir.Constant(_IVEC, [0] * 8))
-            k = builder.fcmp_ordered(op, lanes, c)
-            keep = k if keep is None else builder.and_(keep, k)
-        return builder.select(keep, args[0], ir.Constant(_VEC, [0.0] * 8))
-
-    return f32x8(v, lo, hi), codegen
-
-
-def vkeep_between(v, lo, hi):
-    """Lanes ``lo <= u <= hi`` (``u = 0..7``) keep ``v``; the others become +0."""
-    u = np.arange(8)
-    return np.where((u >= lo) & (u <= hi), v, _F32(0.0)).astype(_F32)
-
-
-@overload(vkeep_between)
-def _ov_vkeep_between(v, lo, hi):
-    if v == f32x8 and lo == types.float32 and hi == types.float32:
-        return lambda v, lo, hi: _vkeep_between(v, lo, hi)
-    return None
-
-
-@intrinsic
 def _vpowers(typingctx, r):
     """(1, r, r^2, ..., r^7) from a float32 r, by three squarings and three products."""
     if r != types.float32:
@@ -323,36 +290,6 @@ def vpowers(r):
 def _ov_vpowers(r):
     if r == types.float32:
         return lambda r: _vpowers(r)
-    return None
-
-
-def _permute_intrinsic(lanes):
-    @intrinsic
-    def op(typingctx, v):
-        if v != f32x8:
-            return None
-
-        def codegen(context, builder, signature, args):
-            return builder.shuffle_vector(args[0], args[0], ir.Constant(_IVEC, list(lanes)))
-
-        return f32x8(v), codegen
-
-    return op
-
-
-_vspread = tuple(_permute_intrinsic([2 * k + p // 4 for p in range(8)]) for k in range(4))
-
-
-def vspread(v, k):
-    """Lanes ``2k`` and ``2k + 1`` of ``v``, each repeated four times."""
-    return np.repeat(v[2 * k:2 * k + 2], 4).astype(_F32)
-
-
-@overload(vspread)
-def _ov_vspread(v, k):
-    if v == f32x8 and isinstance(k, types.IntegerLiteral):
-        op = _vspread[k.literal_value]
-        return lambda v, k: op(v)
     return None
 
 
