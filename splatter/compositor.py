@@ -14,6 +14,7 @@ beyond, and ``a_i(x) = opacity_i * g_i(x)``.
 from __future__ import annotations
 
 import numbers
+import threading
 
 import numba
 import numpy as np
@@ -30,6 +31,9 @@ _MAX_OPACITY = 1.0 - 1e-6
 """``absorb`` clips opacity here so the peak optical depth stays finite."""
 
 _MODES = {"over": _k.MODE_OVER, "add": _k.MODE_ADD, "absorb": _k.MODE_ABSORB}
+
+_SCRATCH = threading.local()
+"""Per-thread reusable work arrays (see :func:`_table_scratch`)."""
 
 
 def composite(means, covs, colors, opacities, *, shape, blend="over"):
@@ -180,7 +184,7 @@ def composite_features(means, covs, features, opacities, *, shape, blend="over")
                 peaks, height, width, params, ranges, tlen)
     toff = np.cumsum(tlen)
     ranges[:, _k.N_RANGES - 1] = toff - tlen
-    tables = np.empty(int(toff[-1]) if n else 0, dtype=np.float32)
+    tables = _table_scratch(int(toff[-1]) if n else 0)
     _k._fill_tables(params, ranges, peaks, tables)
     ntx = -(-width // _k.TILE_W)
     nty = -(-height // _k.TILE_H)
@@ -198,6 +202,21 @@ def composite_features(means, covs, features, opacities, *, shape, blend="over")
     kernel(params, ranges, tables, np.ascontiguousarray(features, dtype=np.float32),
            peaks, offsets, order, tile_order, out)
     return out
+
+
+def _table_scratch(size):
+    """A float32 work array of ``size`` entries, reused by the calling thread.
+
+    The row-profile tables of a frame's splats take a few MB; a fresh array
+    each call costs more in page faults (about 4 ms for 20,000 splats here)
+    than filling it. Each Python thread keeps its own, so concurrent calls
+    never share one.
+    """
+    buf = getattr(_SCRATCH, "tables", None)
+    if buf is None or buf.shape[0] < size:
+        buf = np.empty(max(size, 1 << 16), dtype=np.float32)
+        _SCRATCH.tables = buf
+    return buf[:size]
 
 
 def _check_shape(shape):
