@@ -63,19 +63,24 @@ def reference(means, covs, feats, opac, shape, blend):
 def random_splats(rng, n, h, w, k=3):
     # Centres reach 10 px past every edge so many splats straddle the border.
     means = np.stack([rng.uniform(-10, w + 10, n), rng.uniform(-10, h + 10, n)], 1)
-    sig = rng.uniform(0.6, 9.0, n)
-    aspect = rng.uniform(0.2, 1.0, n)
+    covs = random_covs(rng, n, (0.6, 9.0), (0.2, 1.0))
+    feats = rng.uniform(-1, 2, (n, k))
+    opac = rng.uniform(0.0, 1.0, n)
+    return (means.astype(np.float32), covs.astype(np.float32),
+            feats.astype(np.float32), opac.astype(np.float32))
+
+
+def random_covs(rng, n, sigma, aspect):
+    """n covariances: long-axis sigma and short/long ratio uniform in the ranges, any angle."""
+    sig = rng.uniform(*sigma, n)
+    aspect = rng.uniform(*aspect, n)
     theta = rng.uniform(0, np.pi, n)
     c, s = np.cos(theta), np.sin(theta)
     rot = np.stack([np.stack([c, -s], -1), np.stack([s, c], -1)], -2)
     diag = np.zeros((n, 2, 2))
     diag[:, 0, 0] = sig**2
     diag[:, 1, 1] = (sig * aspect) ** 2
-    covs = rot @ diag @ rot.transpose(0, 2, 1)
-    feats = rng.uniform(-1, 2, (n, k))
-    opac = rng.uniform(0.0, 1.0, n)
-    return (means.astype(np.float32), covs.astype(np.float32),
-            feats.astype(np.float32), opac.astype(np.float32))
+    return rot @ diag @ rot.transpose(0, 2, 1)
 
 
 @pytest.mark.parametrize("blend", ["over", "add", "absorb"])
@@ -314,15 +319,7 @@ def test_large_splats_match_reference(blend):
     h, w = 180, 300
     n = 12
     means = np.stack([rng.uniform(0, w, n), rng.uniform(0, h, n)], 1)
-    sig = rng.uniform(20.0, 60.0, n)
-    aspect = rng.uniform(0.1, 1.0, n)
-    theta = rng.uniform(0, np.pi, n)
-    c, s = np.cos(theta), np.sin(theta)
-    rot = np.stack([np.stack([c, -s], -1), np.stack([s, c], -1)], -2)
-    diag = np.zeros((n, 2, 2))
-    diag[:, 0, 0] = sig**2
-    diag[:, 1, 1] = (sig * aspect) ** 2
-    covs = rot @ diag @ rot.transpose(0, 2, 1)
+    covs = random_covs(rng, n, (20.0, 60.0), (0.1, 1.0))
     feats = rng.uniform(0, 1, (n, 3))
     opac = rng.uniform(0.2, 1.0, n)
     got = composite_features(means, covs, feats, opac, shape=(h, w), blend=blend)
