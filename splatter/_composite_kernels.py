@@ -249,6 +249,22 @@ def _blend(buf, q, w, feat, fv0, fv1, fv2, mode, three):
 
 
 @numba.njit(inline="always", **KERNEL)
+def _row_span(dy, mx, slope, isyy, wsq, ftc0, ftc1):
+    """The pixels of row ``dy`` (from the splat's centre) inside the ellipse and the tile.
+
+    Returns ``(xc, lo, count)``: the row's centre ``x``, its first pixel
+    column (float64) and its pixel count (0 or less: none). Branch-free, so
+    a loop over rows vectorizes.
+    """
+    left = 9.0 - dy * dy * isyy
+    hw = math.sqrt(wsq * max(left, 0.0))
+    xc = mx + slope * dy
+    lo = max(np.ceil(xc - hw - 0.5), ftc0)
+    hi = min(np.floor(xc + hw - 0.5), ftc1)
+    return xc, lo, (hi - lo + 1.0 if left >= 0.0 else 0.0)
+
+
+@numba.njit(inline="always", **KERNEL)
 def _rows_table(buf, j, ra, nrows, tr0, tc0, tc1, params, ranges, tables, feat,
                 fv0, fv1, fv2, rf64, rf32, mode, three):
     """Blend rows ``ra .. ra + nrows - 1`` of splat ``j`` by its row-profile table.
@@ -274,17 +290,13 @@ def _rows_table(buf, j, ra, nrows, tr0, tc0, tc1, params, ranges, tables, feat,
     # Each row in float64, with no integer conversion so the loop vectorizes.
     for i in range(nrows):
         dy = dy0 + i
-        left = 9.0 - dy * dy * isyy
-        hw = math.sqrt(wsq * max(left, 0.0))
-        xc = mx + slope * dy
-        lo = max(np.ceil(xc - hw - 0.5), ftc0)
-        hi = min(np.floor(xc + hw - 0.5), ftc1)
+        xc, lo, cnt = _row_span(dy, mx, slope, isyy, wsq, ftc0, ftc1)
         nc = np.floor(xc)
         phi = nc + 0.5 - xc
         beta = -a * phi
         k0 = lo - nc
         rlo[i] = lo - ftc0
-        rcnt[i] = hi - lo + 1.0 if left >= 0.0 else 0.0
+        rcnt[i] = cnt
         rtk[i] = toff + k0
         rscale[i] = np.float32(beta * k0 - 0.5 * (a * phi * phi + dy * dy * isyy))
         rrho[i] = np.float32(beta)
@@ -328,18 +340,14 @@ def _rows_direct(buf, j, ra, nrows, tr0, tc0, tc1, params, peak, feat, fv0, fv1,
     vpeak = vsplat(peak)
     mhalf = vsplat(np.float32(-0.5))
     eight = vsplat(np.float32(LANES))
+    ftc0 = np.float64(tc0)
+    ftc1 = np.float64(tc1)
     for i in range(nrows):
         dy = (ra + i) + 0.5 - my
-        left = 9.0 - dy * dy * isyy
-        if left < 0.0:
+        _, lo, fcnt = _row_span(dy, mx, slope, isyy, wsq, ftc0, ftc1)
+        if fcnt <= 0.0:
             continue
-        hw = math.sqrt(wsq * left)
-        xc = mx + slope * dy
-        lo = max(np.ceil(xc - hw - 0.5), np.float64(tc0))
-        hi = min(np.floor(xc + hw - 0.5), np.float64(tc1))
-        if hi < lo:
-            continue
-        cnt = int(hi - lo + 1.0)
+        cnt = int(fcnt)
         # q(u) = a u^2 + b1 u + c0 along the row, u = pixel - lo.
         dx0 = lo + 0.5 - mx
         vb = vsplat(np.float32(2.0 * (a * dx0 + cb * dy)))
@@ -407,52 +415,48 @@ def _tile(t, ntx, params, ranges, tables, feats, peaks, offsets, order, out, mod
                     out[tr0 + r, tc0 + c, k] = _F0
 
 
-# One parallel kernel per (blend mode, K == 3): each inlines _tile with
-# constant arguments, so its inner loops hold only the operations it needs.
-# ``tile_order`` lists the tiles in the order the parallel loop takes them.
+@numba.njit(inline="always", **KERNEL)
+def _tiles(params, ranges, tables, feats, peaks, offsets, order, tile_order, out, mode, three):
+    """Every tile, in ``tile_order`` (the order the parallel loop takes them)."""
+    ntx = (out.shape[1] + TILE_W - 1) // TILE_W
+    for i in numba.prange(tile_order.shape[0]):
+        _tile(tile_order[i], ntx, params, ranges, tables, feats, peaks, offsets, order, out,
+              mode, three)
+
+
+# One parallel kernel per (blend mode, K == 3): each inlines _tiles with
+# constant arguments, so its inner loops hold only the operations it needs,
+# and each is compiled (and cached) on its own, when first used.
 
 @numba.njit(**PARALLEL)
 def _render_over3(params, ranges, tables, feats, peaks, offsets, order, tile_order, out):
-    ntx = (out.shape[1] + TILE_W - 1) // TILE_W
-    for i in numba.prange(tile_order.shape[0]):
-        _tile(tile_order[i], ntx, params, ranges, tables, feats, peaks, offsets, order, out, MODE_OVER, True)
+    _tiles(params, ranges, tables, feats, peaks, offsets, order, tile_order, out, MODE_OVER, True)
 
 
 @numba.njit(**PARALLEL)
 def _render_add3(params, ranges, tables, feats, peaks, offsets, order, tile_order, out):
-    ntx = (out.shape[1] + TILE_W - 1) // TILE_W
-    for i in numba.prange(tile_order.shape[0]):
-        _tile(tile_order[i], ntx, params, ranges, tables, feats, peaks, offsets, order, out, MODE_ADD, True)
+    _tiles(params, ranges, tables, feats, peaks, offsets, order, tile_order, out, MODE_ADD, True)
 
 
 @numba.njit(**PARALLEL)
 def _render_absorb3(params, ranges, tables, feats, peaks, offsets, order, tile_order, out):
-    ntx = (out.shape[1] + TILE_W - 1) // TILE_W
-    for i in numba.prange(tile_order.shape[0]):
-        _tile(tile_order[i], ntx, params, ranges, tables, feats, peaks, offsets, order, out, MODE_ABSORB,
-              True)
+    _tiles(params, ranges, tables, feats, peaks, offsets, order, tile_order, out, MODE_ABSORB, True)
 
 
 @numba.njit(**PARALLEL)
 def _render_over_k(params, ranges, tables, feats, peaks, offsets, order, tile_order, out):
-    ntx = (out.shape[1] + TILE_W - 1) // TILE_W
-    for i in numba.prange(tile_order.shape[0]):
-        _tile(tile_order[i], ntx, params, ranges, tables, feats, peaks, offsets, order, out, MODE_OVER, False)
+    _tiles(params, ranges, tables, feats, peaks, offsets, order, tile_order, out, MODE_OVER, False)
 
 
 @numba.njit(**PARALLEL)
 def _render_add_k(params, ranges, tables, feats, peaks, offsets, order, tile_order, out):
-    ntx = (out.shape[1] + TILE_W - 1) // TILE_W
-    for i in numba.prange(tile_order.shape[0]):
-        _tile(tile_order[i], ntx, params, ranges, tables, feats, peaks, offsets, order, out, MODE_ADD, False)
+    _tiles(params, ranges, tables, feats, peaks, offsets, order, tile_order, out, MODE_ADD, False)
 
 
 @numba.njit(**PARALLEL)
 def _render_absorb_k(params, ranges, tables, feats, peaks, offsets, order, tile_order, out):
-    ntx = (out.shape[1] + TILE_W - 1) // TILE_W
-    for i in numba.prange(tile_order.shape[0]):
-        _tile(tile_order[i], ntx, params, ranges, tables, feats, peaks, offsets, order, out, MODE_ABSORB,
-              False)
+    _tiles(params, ranges, tables, feats, peaks, offsets, order, tile_order, out, MODE_ABSORB,
+           False)
 
 
 _KERNELS = {

@@ -60,6 +60,12 @@ def _is_f32_array(arr):
     return (isinstance(arr, types.Array) and arr.dtype == types.float32 and arr.ndim == 1)
 
 
+def _splat_ir(builder, x):
+    """LLVM IR: the float ``x`` in all 8 lanes."""
+    v = builder.insert_element(ir.Constant(_VEC, ir.Undefined), x, ir.Constant(ir.IntType(32), 0))
+    return builder.shuffle_vector(v, v, ir.Constant(_IVEC, [0] * 8))
+
+
 def _lane_ptr(context, builder, arrty, arr, idx, idxty):
     """Pointer to ``arr[idx]`` as ``<8 x float>*`` (no bounds check)."""
     ary = context.make_array(arrty)(context, builder, arr)
@@ -104,9 +110,7 @@ def _vsplat(typingctx, x):
     sig = f32x8(x)
 
     def codegen(context, builder, signature, args):
-        v = builder.insert_element(ir.Constant(_VEC, ir.Undefined), args[0],
-                                   ir.Constant(ir.IntType(32), 0))
-        return builder.shuffle_vector(v, v, ir.Constant(_IVEC, [0] * 8))
+        return _splat_ir(builder, args[0])
 
     return sig, codegen
 
@@ -239,9 +243,7 @@ def _vkeep_below(typingctx, v, count):
         return None
 
     def codegen(context, builder, signature, args):
-        c = builder.insert_element(ir.Constant(_VEC, ir.Undefined), args[1],
-                                   ir.Constant(ir.IntType(32), 0))
-        c = builder.shuffle_vector(c, c, ir.Constant(_IVEC, [0] * 8))
+        c = _splat_ir(builder, args[1])
         lanes = ir.Constant(_VEC, [float(i) for i in range(8)])
         keep = builder.fcmp_ordered("<", lanes, c)
         return builder.select(keep, args[0], ir.Constant(_VEC, [0.0] * 8))
@@ -256,11 +258,6 @@ def _vpowers(typingctx, r):
         return None
 
     def codegen(context, builder, signature, args):
-        def splat(x):
-            v = builder.insert_element(ir.Constant(_VEC, ir.Undefined), x,
-                                       ir.Constant(ir.IntType(32), 0))
-            return builder.shuffle_vector(v, v, ir.Constant(_IVEC, [0] * 8))
-
         one = ir.Constant(_VEC, [1.0] * 8)
         r1 = args[0]
         r2 = builder.fmul(r1, r1)
@@ -269,7 +266,7 @@ def _vpowers(typingctx, r):
         out = None
         for bit, rv in ((1, r1), (2, r2), (4, r4)):
             sel = ir.Constant(ir.VectorType(ir.IntType(1), 8), [bool(u & bit) for u in range(8)])
-            f = builder.select(sel, splat(rv), one)
+            f = builder.select(sel, _splat_ir(builder, rv), one)
             out = f if out is None else builder.fmul(out, f)
         return out
 
