@@ -65,7 +65,7 @@ import math
 import numba
 import numpy as np
 
-from splatter._simd import (vadd, vexp, vfma, vkeep_below, vload, vmul, vpowers, vramp,
+from splatter._simd import (prefetch, vadd, vexp, vfma, vkeep_below, vload, vmul, vpowers, vramp,
                             vsplat, vstore, vsub)
 from splatter.jit import KERNEL, PARALLEL
 
@@ -363,6 +363,30 @@ def _rows_direct(buf, j, ra, nrows, tr0, tc0, tc1, params, peak, feat, fv0, fv1,
 
 
 @numba.njit(inline="always", **KERNEL)
+def _prefetch_ahead(s, first, order, params, ranges, tables, feats):
+    """Ask for the data of the splats two and one places further down the list.
+
+    Splats come in depth order, so their rows of ``params``, ``ranges`` and
+    ``feats`` and their tables lie all over memory; without this every splat
+    starts with a few cache misses.
+    """
+    if s - 2 >= first:
+        j2 = order[s - 2]
+        prefetch(ranges, j2 * N_RANGES)
+        prefetch(ranges, j2 * N_RANGES + N_RANGES - 1)
+        prefetch(params, j2 * N_PARAMS)
+        prefetch(params, j2 * N_PARAMS + N_PARAMS - 1)
+        prefetch(feats, j2 * feats.shape[1])
+    if s - 1 >= first:
+        j1 = order[s - 1]
+        kh = ranges[j1, _KH]
+        if kh >= 0:
+            t0 = ranges[j1, _TOFF]
+            for i in range(0, _table_length(kh), 16):
+                prefetch(tables, t0 + i)
+
+
+@numba.njit(inline="always", **KERNEL)
 def _tile(t, ntx, params, ranges, tables, feats, peaks, offsets, order, out, mode, three):
     """Composite every splat binned to tile ``t`` and write the tile into ``out``."""
     height = out.shape[0]
@@ -379,8 +403,10 @@ def _tile(t, ntx, params, ranges, tables, feats, peaks, offsets, order, out, mod
     rf64 = np.empty((3, TILE_H), dtype=np.float64)
     rf32 = np.empty((3, TILE_H + LANES), dtype=np.float32)
     # Front to back: the tile's list holds the caller's back-to-front order.
-    for s in range(offsets[t + 1] - 1, offsets[t] - 1, -1):
+    first = offsets[t]
+    for s in range(offsets[t + 1] - 1, first - 1, -1):
         j = order[s]
+        _prefetch_ahead(s, first, order, params, ranges, tables, feats)
         ra = max(ranges[j, _R0], tr0)
         rb = min(ranges[j, _R1], tr0 + th - 1)
         if rb < ra:

@@ -32,7 +32,7 @@ from numba.extending import intrinsic, models, overload, register_model
 from splatter.jit import KERNEL
 
 __all__ = ["f32x8", "vload", "vstore", "vsplat", "vramp", "vadd", "vsub", "vmul", "vfma",
-           "vmin", "vmax", "vfloor", "vpow2i", "vkeep_below", "vpowers", "vexp"]
+           "vmin", "vmax", "vfloor", "vpow2i", "vkeep_below", "vpowers", "vexp", "prefetch"]
 
 
 class F32x8Type(types.Type):
@@ -169,6 +169,42 @@ def _ov_vsplat(x):
 @overload(vramp)
 def _ov_vramp():
     return lambda: _vramp()
+
+
+@intrinsic
+def _prefetch(typingctx, arr, idx):
+    if not (isinstance(arr, types.Array) and isinstance(idx, types.Integer)):
+        return None
+    sig = types.none(arr, idx)
+
+    def codegen(context, builder, signature, args):
+        ary = context.make_array(signature.args[0])(context, builder, args[0])
+        i = context.cast(builder, args[1], signature.args[1], types.intp)
+        byte = ir.IntType(8).as_pointer()
+        i32 = ir.IntType(32)
+        fnty = ir.FunctionType(ir.VoidType(), [byte, i32, i32, i32])
+        fn = cgutils.get_or_insert_function(builder.module, fnty, "llvm.prefetch.p0")
+        # read, keep in all cache levels, data cache
+        builder.call(fn, [builder.bitcast(builder.gep(ary.data, [i]), byte),
+                          ir.Constant(i32, 0), ir.Constant(i32, 3), ir.Constant(i32, 1)])
+        return context.get_dummy_value()
+
+    return sig, codegen
+
+
+def prefetch(arr, i):
+    """Hint the processor to fetch flat element ``i`` of ``arr`` into cache.
+
+    Compiled, it is one prefetch instruction, which never faults, so ``i``
+    may lie outside the array; in plain Python it does nothing.
+    """
+
+
+@overload(prefetch)
+def _ov_prefetch(arr, i):
+    if isinstance(arr, types.Array) and isinstance(i, types.Integer):
+        return lambda arr, i: _prefetch(arr, i)
+    return None
 
 
 # --- arithmetic ---------------------------------------------------------------------
