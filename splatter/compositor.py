@@ -128,9 +128,10 @@ def composite_features(means, covs, features, opacities, *, shape, blend="over")
     every pixel is computed by one thread with the same operations in the same
     order, so the result is bit-identical for any thread count. Weights are
     evaluated in float32 from a per-splat table of the row profile and one
-    exponential of a linear function per row (relative error below
-    2e-6 against float64; see :mod:`splatter._composite_kernels`). Splats with a
-    peak weight below 1e-30 are skipped.
+    exponential of a linear function per row (relative error below 2e-6
+    against float64 for sigma up to 60 px; see
+    :mod:`splatter._composite_kernels`). Splats with a peak weight below 1e-30
+    are skipped.
     """
     height, width = _check_shape(shape)
     if not isinstance(blend, str):
