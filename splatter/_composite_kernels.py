@@ -66,8 +66,8 @@ import math
 import numba
 import numpy as np
 
-from splatter._simd import (prefetch, vadd, vexp, vfma, vkeep_below, vload, vmul, vpowers, vramp,
-                            vsplat, vstore, vsub)
+from splatter._simd import (prefetch, vadd, vexp, vfma, vkeep_below, vload, vmul, vpowers,
+                            vramp, vsplat, vstore, vsub)
 from splatter.jit import KERNEL, PARALLEL
 
 MODE_OVER = 0

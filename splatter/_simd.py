@@ -19,6 +19,9 @@ nearest integer to ``x / ln 2`` and ``r = x - n ln 2`` (ln 2 split in two so
 degree 4 fitted for relative minimax error on ``|r| <= ln(2)/2`` (Lawson
 iterations in float64; fit error 3.1e-9). Measured in float32 against
 float64 ``exp`` on ``[-87, 88]``: relative error below 1e-7 (about 1.4 ulp).
+
+``prefetch`` (not a vector operation) lets a kernel ask for memory it will
+read soon, where the access pattern is known but the processor cannot guess it.
 """
 
 from __future__ import annotations
@@ -193,10 +196,12 @@ def _prefetch(typingctx, arr, idx):
 
 
 def prefetch(arr, i):
-    """Hint the processor to fetch flat element ``i`` of ``arr`` into cache.
+    """Hint the processor to fetch element ``i`` of ``arr``'s buffer into cache.
 
-    Compiled, it is one prefetch instruction, which never faults, so ``i``
-    may lie outside the array; in plain Python it does nothing.
+    ``i`` counts elements from the start of the data in memory order (for a
+    C-contiguous 2-D array, ``row * ncols + col``). Compiled, it is one
+    prefetch instruction, which never faults, so ``i`` may lie outside the
+    array; in plain Python it does nothing.
     """
 
 

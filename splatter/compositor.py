@@ -194,9 +194,10 @@ def composite_features(means, covs, features, opacities, *, shape, blend="over")
     order = np.empty(int(offsets[-1]), dtype=np.int64)
     _k._bin(ranges, ntx, offsets, np.empty(ntx * nty, dtype=np.int64), order)
     # numba hands each thread one contiguous run of the loop; taking the tiles
-    # in order of (tile row + tile column) mod threads, a checkerboard for two
-    # threads, gives every thread tiles from all over the image, so smoke that
-    # sits in one band or one corner still keeps every thread busy.
+    # in order of (tile row + tile column) mod threads (alternate bands of a
+    # frame up to a tile wide, a checkerboard on wider ones) gives every
+    # thread tiles from all over the image, so smoke that sits in one band or
+    # one corner still keeps every thread busy.
     ty, tx = np.divmod(np.arange(ntx * nty), ntx)
     tile_order = np.argsort((ty + tx) % numba.get_num_threads(), kind="stable")
     kernel = _k.render_kernel(mode, nk == 3)
