@@ -480,46 +480,23 @@ def _tiles(params, ranges, tables, feats, peaks, offsets, order, tile_order, out
               mode, three)
 
 
-# One parallel kernel per (blend mode, K == 3): each inlines _tiles with
-# constant arguments, so its inner loops hold only the operations it needs,
-# and each is compiled (and cached) on its own, when first used.
+def _make_render_kernel(mode, three):
+    """The parallel tile kernel with ``mode`` and ``three`` fixed.
 
-@numba.njit(**PARALLEL)
-def _render_over3(params, ranges, tables, feats, peaks, offsets, order, tile_order, out):
-    _tiles(params, ranges, tables, feats, peaks, offsets, order, tile_order, out, MODE_OVER, True)
+    numba treats the closure's ``mode`` and ``three`` as constants, so the
+    inlined tile code holds only the operations of that blend mode and
+    channel layout; numba's cache keys each variant by those values, so each
+    is compiled (and cached) on its own, when first used.
+    """
+    @numba.njit(**PARALLEL)
+    def render(params, ranges, tables, feats, peaks, offsets, order, tile_order, out):
+        _tiles(params, ranges, tables, feats, peaks, offsets, order, tile_order, out, mode, three)
 
-
-@numba.njit(**PARALLEL)
-def _render_add3(params, ranges, tables, feats, peaks, offsets, order, tile_order, out):
-    _tiles(params, ranges, tables, feats, peaks, offsets, order, tile_order, out, MODE_ADD, True)
-
-
-@numba.njit(**PARALLEL)
-def _render_absorb3(params, ranges, tables, feats, peaks, offsets, order, tile_order, out):
-    _tiles(params, ranges, tables, feats, peaks, offsets, order, tile_order, out, MODE_ABSORB, True)
+    return render
 
 
-@numba.njit(**PARALLEL)
-def _render_over_k(params, ranges, tables, feats, peaks, offsets, order, tile_order, out):
-    _tiles(params, ranges, tables, feats, peaks, offsets, order, tile_order, out, MODE_OVER, False)
-
-
-@numba.njit(**PARALLEL)
-def _render_add_k(params, ranges, tables, feats, peaks, offsets, order, tile_order, out):
-    _tiles(params, ranges, tables, feats, peaks, offsets, order, tile_order, out, MODE_ADD, False)
-
-
-@numba.njit(**PARALLEL)
-def _render_absorb_k(params, ranges, tables, feats, peaks, offsets, order, tile_order, out):
-    _tiles(params, ranges, tables, feats, peaks, offsets, order, tile_order, out, MODE_ABSORB,
-           False)
-
-
-_KERNELS = {
-    (MODE_OVER, True): _render_over3, (MODE_ADD, True): _render_add3,
-    (MODE_ABSORB, True): _render_absorb3, (MODE_OVER, False): _render_over_k,
-    (MODE_ADD, False): _render_add_k, (MODE_ABSORB, False): _render_absorb_k,
-}
+_KERNELS = {(mode, three): _make_render_kernel(mode, three)
+            for mode in (MODE_OVER, MODE_ADD, MODE_ABSORB) for three in (True, False)}
 
 
 def render_kernel(mode, three):
