@@ -103,7 +103,6 @@ PEAK_MIN = 1e-30
 
 _P1 = np.uint64(_PLANE)
 _P2 = np.uint64(2 * _PLANE)
-_P3 = np.uint64(3 * _PLANE)
 _L = np.uint64(LANES)
 _F0 = np.float32(0.0)
 _F1 = np.float32(1.0)
@@ -112,8 +111,8 @@ _F1 = np.float32(1.0)
 _MX, _MY, _A, _B, _C, _SLOPE, _ISYY, _WSQ = range(8)
 N_PARAMS = 8
 # Columns of the per-splat int64 ranges; _TOFF is filled in by the caller.
-_R0, _R1, _C0, _C1, _TY0, _TY1, _TX0, _TX1, _KH, _TOFF = range(10)
-N_RANGES = 10
+_R0, _R1, _TY0, _TY1, _TX0, _TX1, _KH, _TOFF = range(8)
+N_RANGES = 8
 
 
 @numba.njit(inline="always", **KERNEL)
@@ -128,11 +127,10 @@ def _prepare(means, covs, peaks, height, width, params, ranges, tlen):
 
     params : (N, 8) float64 out: mx, my, conic a, b, c, slope ``Sxy/Syy``,
         ``1/Syy`` and ``det/Syy``.
-    ranges : (N, 10) int64 out: row0, row1, col0, col1 (inclusive pixel
-        ranges clipped to the image), ty0, ty1, tx0, tx1 (inclusive tile
-        ranges), the table half-length ``kh`` (-1: direct path) and the
-        table offset (left 0 here); row1 < row0 marks a splat that changes
-        no pixel.
+    ranges : (N, 8) int64 out: row0, row1 (inclusive pixel rows clipped to
+        the image), ty0, ty1, tx0, tx1 (inclusive tile ranges), the table
+        half-length ``kh`` (-1: direct path) and the table offset (left 0
+        here); row1 < row0 marks a splat that changes no pixel.
     tlen : (N,) int64 out: table length (0 on the direct path).
     """
     for j in numba.prange(means.shape[0]):
@@ -162,8 +160,6 @@ def _prepare(means, covs, peaks, height, width, params, ranges, tlen):
             r0, r1, c0, c1 = 0, -1, 0, -1
         ranges[j, _R0] = r0
         ranges[j, _R1] = r1
-        ranges[j, _C0] = c0
-        ranges[j, _C1] = c1
         live = r1 >= r0
         ranges[j, _TY0] = r0 // TILE_H if live else 0
         ranges[j, _TY1] = r1 // TILE_H if live else -1
