@@ -24,7 +24,7 @@ import numpy as np
 
 from _timing import timed
 
-from splatter.compositor import composite
+from splatter.raster.compositor import composite
 
 H = W = 512
 N = 20_000

@@ -24,7 +24,7 @@ import numpy as np
 
 from _timing import timed
 
-from splatter.camera import LOW_PASS, Camera, ewa_covariance, project_puffs, puff_covariances
+from splatter.view.camera import LOW_PASS, Camera, ewa_covariance, project_puffs, puff_covariances
 
 
 def numpy_puff_covariances(size, aspect, quat, vel, stretch):

@@ -95,7 +95,7 @@ shadow = 0.9
 
 
 def run(look_path, out_dir, overrides=()):
-    from splatter.look_load import load_look
+    from splatter.look.load import load_look
     from splatter.render import render
 
     look = load_look(look_path, overrides=list(overrides))
@@ -118,8 +118,8 @@ def main() -> int:
     lit = work / "lit.toml"
     lit.write_text(textwrap.dedent(LOOK.format(frames=args.frames)) + textwrap.dedent(LIGHT))
 
-    from splatter.look_load import load_look
-    from splatter.simulate import plan_simulation, simulate
+    from splatter.look.load import load_look
+    from splatter.sim.driver import plan_simulation, simulate
 
     look = load_look(unlit)
     plan = plan_simulation(look)

@@ -16,11 +16,11 @@ import time
 import numba
 import numpy as np
 
-from splatter.forces import pack_forces
-from splatter.integrate import step_puffs
-from splatter.look import ClipSpec, GravitySpec, LiftSpec, LookSpec, PlaneSpec, SourceSpec, SwirlSpec, WindSpec
-from splatter.obstacles import pack_obstacles
-from splatter.simulate import plan_simulation, simulate
+from splatter.sim.forces import pack_forces
+from splatter.sim.integrate import step_puffs
+from splatter.look.records import ClipSpec, GravitySpec, LiftSpec, LookSpec, PlaneSpec, SourceSpec, SwirlSpec, WindSpec
+from splatter.sim.obstacles import pack_obstacles
+from splatter.sim.driver import plan_simulation, simulate
 
 
 def numpy_step(pos, vel, age, dt, t, ft, ot):
@@ -44,7 +44,7 @@ def numpy_step(pos, vel, age, dt, t, ft, ot):
         d = (pos - p[0:3]) @ p[3:6]
         hit = d < 0
         if hit.any():
-            # The kernel's contact rule (splatter.obstacles): impact at the
+            # The kernel's contact rule (splatter.sim.obstacles): impact at the
             # crossing, consistent with leapfrog, then restitution and friction.
             n, e, mu = p[3:6], p[6], p[7]
             d1 = d[hit]

@@ -12,15 +12,15 @@ The numba-compiled parts are imported on first use, so that validating a look
 (or reporting bad input) does not pay for loading the compiler.
 """
 
-from splatter.errors import LookError, LookWarning
+from splatter.core.errors import LookError, LookWarning
 
 __all__ = ["composite", "composite_features", "load_look", "LookError", "LookWarning"]
 __version__ = "0.1.0"
 
 _LAZY = {
-    "composite": ("splatter.compositor", "composite"),
-    "composite_features": ("splatter.compositor", "composite_features"),
-    "load_look": ("splatter.look_load", "load_look"),
+    "composite": ("splatter.raster.compositor", "composite"),
+    "composite_features": ("splatter.raster.compositor", "composite_features"),
+    "load_look": ("splatter.look.load", "load_look"),
 }
 
 

@@ -1,3 +1,4 @@
 from splatter.cli import run
 
-run()
+if __name__ == "__main__":
+    run()

@@ -4,21 +4,15 @@ from __future__ import annotations
 
 from typing import List
 
-import numpy as np
-
-from splatter.camera import project_puffs
-from splatter.look import LookSpec
-from splatter.outputs import planned_files
+from splatter.view.camera import project_puffs
+from splatter.look.records import LookSpec
+from splatter.deliver.names import planned_files
 from splatter.render import make_camera, output_dir
-from splatter.simulate import plan_simulation, simulate
-from splatter.splats import effective_opacity
+from splatter.sim.driver import plan_simulation, simulate
+from splatter.view.framing import cut_by_border
+from splatter.view.splats import effective_opacity
 
 __all__ = ["check_look", "border_report"]
-
-# A puff whose 3-sigma ellipse crosses the frame edge with at least this peak
-# opacity leaves a visible cut (about 1/255 of alpha at its 3-sigma rim).
-_VISIBLE_AT_RIM = (1.0 / 255.0) / np.exp(-4.5)
-
 
 def border_report(look: LookSpec, camera, plan, frames) -> List[str]:
     """Warnings for puffs whose visible footprint crosses the frame border.
@@ -35,11 +29,7 @@ def border_report(look: LookSpec, camera, plan, frames) -> List[str]:
             continue
         s = project_puffs(camera, state.pos, state.size, state.aspect, state.quat, state.vel, state.stretch)
         op = effective_opacity(state.opacity, state.density, look.shading.blend)
-        rx = 3.0 * np.sqrt(np.asarray(s.covs[:, 0, 0], dtype=np.float64))
-        ry = 3.0 * np.sqrt(np.asarray(s.covs[:, 1, 1], dtype=np.float64))
-        mx, my = np.asarray(s.means[:, 0], dtype=np.float64), np.asarray(s.means[:, 1], dtype=np.float64)
-        cut = (mx - rx < 0) | (mx + rx > w) | (my - ry < 0) | (my + ry > h)
-        cut &= np.asarray(s.visible, dtype=bool) & (op >= _VISIBLE_AT_RIM)
+        cut = cut_by_border(s, op, w, h)
         if cut.any():
             hits += 1
             worst = max(worst, float(op[cut].max()))
@@ -68,8 +58,8 @@ def check_look(look: LookSpec) -> str:
         life = src.life[0] if src.life[0] == src.life[1] else f"{src.life[0]:g}-{src.life[1]:g}"
         bursts = f", {sum(b.count for b in src.bursts)} puffs in bursts" if src.bursts else ""
         lines.append(f"source[{i}] {src.shape} at {list(src.center)}, {rate:g} puffs/s, life {life} s{bursts}")
-    kinds = [type(f).__name__.replace("Spec", "").lower() for f in look.forces]
-    obst = [type(o).__name__.replace("Spec", "").lower() for o in look.obstacles]
+    kinds = [f.kind for f in look.forces]
+    obst = [o.kind for o in look.obstacles]
     lines.append(f"forces    {', '.join(kinds) or 'none'}; obstacles {', '.join(obst) or 'none'}")
     lines.append(f"puffs     about {plan.steady_state_puffs:,.0f} alive at steady state")
     folder = output_dir(look)

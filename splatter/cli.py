@@ -13,7 +13,7 @@ import warnings
 from pathlib import Path
 from typing import Optional, Sequence
 
-from splatter.errors import LookError, LookWarning
+from splatter.core.errors import LookError, LookWarning
 
 EXIT_OK, EXIT_INTERNAL, EXIT_BAD_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
 
@@ -145,7 +145,7 @@ def _set_threads(n: Optional[int]) -> None:
 
 
 def _load(args):
-    from splatter.look_load import load_look
+    from splatter.look.load import load_look
 
     if args.seed is not None and args.seed < 0:
         raise _UsageError(f"--seed: expected an integer >= 0, got {args.seed}")
@@ -158,7 +158,7 @@ def _cmd_render(args) -> int:
     frames = parse_frames(args.frames, look.clip.frames)
     _set_threads(args.threads)
     from splatter.render import render
-    from splatter.simulate import plan_simulation
+    from splatter.sim.driver import plan_simulation
 
     # What the simulation had to change (loop snapping, seams) is said even with --quiet.
     plan = plan_simulation(look)
@@ -185,7 +185,7 @@ def _cmd_simulate(args) -> int:
     if not args.out.endswith(".npz"):
         raise _UsageError(f"--out: expected a file name ending in .npz, got {args.out!r}")
     frames = parse_frames(args.frames, look.clip.frames) or range(look.clip.frames)
-    from splatter.simulate import plan_simulation, save_states, simulate
+    from splatter.sim.driver import plan_simulation, save_states, simulate
 
     plan = plan_simulation(look)
     for note in plan.notes:
@@ -197,7 +197,7 @@ def _cmd_simulate(args) -> int:
 
 
 def _cmd_pack(args) -> int:
-    from splatter.pack import pack_folder
+    from splatter.deliver.pack import pack_folder
 
     for flag in ("columns", "rows"):
         v = getattr(args, flag)

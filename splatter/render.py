@@ -7,7 +7,6 @@ Memory stays at one frame's puffs and image (plus what the sheet needs).
 
 from __future__ import annotations
 
-import glob
 import os
 import sys
 import time
@@ -17,20 +16,20 @@ from typing import Dict, Iterable, List, Optional
 
 import numpy as np
 
-from splatter.camera import Camera, border_alpha_share, fit_view
-from splatter.compositor import composite_features
-from splatter.errors import LookError, LookWarning
-from splatter.light import build_density_grid, light_factors, transmittance
-from splatter.look import LookSpec
-from splatter.maps import normal_map
-from splatter.outputs import OutputSink
-from splatter.simulate import SimPlan, plan_simulation, simulate
-from splatter.splats import effective_opacity, feature_layout, make_splats, split_layers
+from splatter.view.camera import Camera
+from splatter.view.framing import border_alpha_share, fit_camera, max_border_alpha
+from splatter.raster.compositor import composite_features, kernels_cached
+from splatter.core.errors import LookError, LookWarning
+from splatter.core.thresholds import VISIBLE_ALPHA
+from splatter.view.light import light_puffs
+from splatter.look.records import LookSpec
+from splatter.raster.maps import normal_map
+from splatter.deliver.sink import OutputSink
+from splatter.sim.driver import SimPlan, plan_simulation, simulate
+from splatter.view.splats import effective_opacity, feature_layout, make_splats, split_layers
 
 __all__ = ["render", "RenderResult", "make_camera", "output_dir", "frame_images"]
 
-_BORDER_WARN = 1.0 / 255.0
-_FIT_INV_ALPHA = 4.0 * 255.0  # camera.fit frames each puff out to alpha 1 / (4 * 255)
 
 
 @dataclass
@@ -91,63 +90,15 @@ def make_camera(look: LookSpec, plan: Optional[SimPlan] = None, frames: Optional
     plan = plan or plan_simulation(look)
     if frames is None:
         frames = range(look.clip.frames + _crossfade_frames(look))
-    pts, rad = [], []
     blend = look.shading.blend
-    for state in simulate(look, plan, frames=frames):
-        # Frame what can be seen: a puff of peak opacity a shows alpha >= t out
-        # to r = sigma * sqrt(2 ln(a / t)), never past the 3-sigma cutoff. t is
-        # a quarter of an 8-bit step, so faint rims that overlap near the edge
-        # still add up to less than 1/255 there.
-        peak = effective_opacity(state.opacity, state.density, blend) * _FIT_INV_ALPHA
-        visible = peak > 1.0
-        reach = np.minimum(3.0, np.sqrt(2.0 * np.log(np.maximum(peak[visible], 1.0)))) / 3.0
-        # The long axis of a stretched puff: size, or half the smear length.
-        smear = np.linalg.norm(state.vel[visible], axis=1) * state.stretch[visible] * 0.5
-        pts.append(state.pos[visible])
-        rad.append(np.maximum(state.size[visible], smear / 3.0) * reach)
-    points = np.concatenate(pts) if pts else np.zeros((0, 3))
-    radii = np.concatenate(rad) if rad else np.zeros(0)
-    if points.shape[0] == 0:
-        return cam
-    return fit_view(cam, points, radii, margin=c.margin)
+    return fit_camera(cam, simulate(look, plan, frames=frames), margin=c.margin,
+                      opacity_of=lambda s: effective_opacity(s.opacity, s.density, blend))
 
 
 def _crossfade_frames(look: LookSpec) -> int:
     if look.clip.loop != "crossfade":
         return 0
     return max(1, int(round(look.clip.crossfade * look.clip.frames)))
-
-
-def _light_inputs(state, look: LookSpec, camera: Camera, want_lightdirs: bool):
-    """Per-puff light factor (M, 3) and six light-direction factors (M, 6)."""
-    sh = look.shading
-    if sh.light is None and not want_lightdirs:
-        return None, None, 0.0
-    t0 = time.perf_counter()
-    opac = effective_opacity(state.opacity, state.density, "absorb")
-    tau0 = -np.log1p(-np.minimum(opac, 1.0 - 1e-6))
-    grid = build_density_grid(state.pos, state.size, tau0)
-    dirs = []
-    if sh.light is not None:
-        dirs.append(np.asarray(sh.light.direction, dtype=np.float64))
-    if want_lightdirs:
-        right, up, forward = camera.axes
-        back = -forward
-        # right, left, top, bottom, front (toward the viewer), back
-        dirs += [right, -right, up, -up, back, -back]
-    trans = transmittance(grid, state.pos, np.array(dirs))
-    factor = None
-    col = 0
-    if sh.light is not None:
-        L = sh.light
-        factor = light_factors(trans[:, 0], ambient=sh.ambient, shadow=L.shadow, color=L.color, intensity=L.intensity,
-                               ambient_color=sh.ambient_color)
-        col = 1
-    lightdirs = None
-    if want_lightdirs:
-        shadow = sh.light.shadow if sh.light is not None else 1.0
-        lightdirs = 1.0 - shadow * (1.0 - trans[:, col : col + 6])
-    return factor, lightdirs, time.perf_counter() - t0
 
 
 def frame_images(look: LookSpec, camera: Camera, states, *, maps=None, timings=None):
@@ -174,7 +125,9 @@ def frame_images(look: LookSpec, camera: Camera, states, *, maps=None, timings=N
     timings = timings if timings is not None else {}
     shape = (look.image.height, look.image.width)
     for state in states:
-        factor, lightdirs, t_light = _light_inputs(state, look, camera, "lightdirs" in maps)
+        t0 = time.perf_counter()
+        factor, lightdirs = light_puffs(state, look.shading, camera.axes, "lightdirs" in maps)
+        t_light = time.perf_counter() - t0
         t0 = time.perf_counter()
         sp = make_splats(state, camera, blend=look.shading.blend, fps=look.clip.fps, channels=channels,
                          light_factor=factor, lightdir_factors=lightdirs)
@@ -206,11 +159,7 @@ def _timed(it, timings, key):
 
 def _announce_compile() -> None:
     """Say once, on a cold cache, that the first run compiles its kernels."""
-    here = os.path.dirname(os.path.abspath(__file__))
-    cache_dir = os.environ.get("NUMBA_CACHE_DIR")
-    pattern = os.path.join(cache_dir, "**", "*_composite_kernels*.nbi") if cache_dir else os.path.join(
-        here, "__pycache__", "*_composite_kernels*.nbi")
-    if not glob.glob(pattern, recursive=True):
+    if not kernels_cached():
         print("splatter: compiling kernels (first run only; later runs load them from the cache)", flush=True,
               file=sys.stderr)
 
@@ -230,11 +179,24 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
     progress : bool
         Show a progress bar on stderr.
     plan : SimPlan, optional
-        The look's :func:`~splatter.simulate.plan_simulation`, when the caller has it already.
+        The look's :func:`~splatter.sim.driver.plan_simulation`, when the caller has it already.
 
     Returns
     -------
     RenderResult
+
+    Examples
+    --------
+    >>> import pathlib, tempfile
+    >>> from splatter.look.load import load_look
+    >>> folder = pathlib.Path(tempfile.mkdtemp())
+    >>> _ = (folder / "lamp_haze.toml").write_text(
+    ...     '[clip]\\nframes = 4\\n[image]\\nwidth = 32\\nheight = 32\\n[camera]\\nfit = true\\n'
+    ...     '[[source]]\\nrate = 20\\nlife = 1\\n[output]\\nsheet = { columns = 2 }\\n')
+    >>> result = render(load_look(folder / "lamp_haze.toml"), out_dir=str(folder / "out"), progress=False)
+    >>> sorted(pathlib.Path(f).name for f in result.files)  # doctest: +NORMALIZE_WHITESPACE
+    ['lamp_haze.0000.png', 'lamp_haze.0001.png', 'lamp_haze.0002.png', 'lamp_haze.0003.png',
+     'lamp_haze.sheet.json', 'lamp_haze.sheet.png']
     """
     t_start = time.perf_counter()
     timings: Dict[str, float] = {}
@@ -275,7 +237,7 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
             rgba, layers = split_layers(image, channels)
             if "normal" in maps:
                 layers.update(normal_map(rgba[..., 3], sigma))
-            border = _max_border(rgba[..., 3])
+            border = max_border_alpha(rgba[..., 3])
             if border > worst[0]:
                 worst = (border, frame, border_alpha_share(rgba[..., 3]))
             t_w = time.perf_counter()
@@ -294,7 +256,7 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
     timings["total"] = time.perf_counter() - t_start
     result.seconds = timings
     result.max_border_alpha = worst[0]
-    if worst[0] >= _BORDER_WARN:
+    if worst[0] >= VISIBLE_ALPHA:
         warnings.warn(
             f"smoke touches the frame border: alpha up to {worst[0]:.3f} on the outermost pixels "
             f"(frame {worst[1]}, {100 * worst[2]:.2f}% of that frame's alpha); the sprite will look cut off. "
@@ -304,6 +266,3 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
         )
     return result
 
-
-def _max_border(alpha: np.ndarray) -> float:
-    return float(max(alpha[0].max(), alpha[-1].max(), alpha[:, 0].max(), alpha[:, -1].max()))

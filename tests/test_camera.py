@@ -1,4 +1,4 @@
-"""Tests for splatter.camera: EWA projection values, rendered moments, framing,
+"""Tests for splatter.view.camera: EWA projection values, rendered moments, framing,
 puff covariances and screen velocity."""
 
 from __future__ import annotations
@@ -8,9 +8,9 @@ import math
 import numpy as np
 import pytest
 
-from splatter.camera import (LOW_PASS, Camera, border_alpha_share, ewa_covariance,
-                             fit_view, project_puffs, puff_covariances)
-from splatter.compositor import composite
+from splatter.view.camera import LOW_PASS, Camera, ewa_covariance, project_puffs, puff_covariances
+from splatter.view.framing import border_alpha_share, fit_view
+from splatter.raster.compositor import composite
 
 
 def rz(deg):

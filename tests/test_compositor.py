@@ -1,4 +1,4 @@
-"""Tests for splatter.compositor: fast path vs a slow float64 reference, published
+"""Tests for splatter.raster.compositor: fast path vs a slow float64 reference, published
 compositing values, Gaussian integrals, hand-checked tiny images and input checks."""
 
 from __future__ import annotations
@@ -9,7 +9,7 @@ import numba
 import numpy as np
 import pytest
 
-from splatter.compositor import composite, composite_features
+from splatter.raster.compositor import composite, composite_features
 
 
 # ---------------------------------------------------------------------------

@@ -4,15 +4,9 @@ import numpy as np
 import pytest
 from scipy import ndimage
 
-from splatter.encode import (
-    dilate_colour,
-    encode_depth,
-    encode_normal,
-    encode_signed,
-    quantize,
-    to_display,
-    unpremultiply,
-)
+from splatter.deliver.dilate import dilate_colour
+from splatter.deliver.display import quantize, to_display, unpremultiply
+from splatter.deliver.map_encode import encode_depth, encode_normal, encode_signed
 
 
 def _px(r, g, b, a):

@@ -4,7 +4,7 @@ import os
 
 import pytest
 
-from splatter.fileio import atomic_path, atomic_write, atomic_write_text
+from splatter.deliver.fileio import atomic_path, atomic_write, atomic_write_text
 
 
 def test_success_replaces_target_and_leaves_no_temp(tmp_path):

@@ -5,10 +5,10 @@ import math
 import numpy as np
 import pytest
 
-from splatter.forces import pack_forces, snap_period
-from splatter.integrate import air_velocity, step_puffs
-from splatter.look import DragSpec, LiftSpec, VortexSpec, WindSpec
-from splatter.obstacles import pack_obstacles
+from splatter.sim.forces import pack_forces, snap_period
+from splatter.sim.integrate import air_velocity, step_puffs
+from splatter.look.records import DragSpec, LiftSpec, VortexSpec, WindSpec
+from splatter.sim.obstacles import pack_obstacles
 
 NONE = pack_obstacles(())
 

@@ -5,7 +5,7 @@ import math
 import numpy as np
 import pytest
 
-from splatter.light import build_density_grid, light_factors, transmittance
+from splatter.view.light import build_density_grid, light_factors, transmittance
 
 
 def test_one_gaussian_puff_through_its_centre():

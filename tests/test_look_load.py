@@ -4,9 +4,9 @@ import textwrap
 
 import pytest
 
-from splatter.errors import LookError
-from splatter.look import LookSpec, SourceSpec, WindSpec
-from splatter.look_load import load_look, parse_override
+from splatter.core.errors import LookError
+from splatter.look.records import LookSpec, SourceSpec, WindSpec
+from splatter.look.load import load_look, parse_override
 
 
 def write(tmp_path, name, text):

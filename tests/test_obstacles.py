@@ -3,11 +3,20 @@
 import numpy as np
 import pytest
 
-from splatter.forces import pack_forces
-from splatter.integrate import step_puffs
-from splatter.look import ClipSpec, GravitySpec, LookSpec, PlaneSpec, SourceSpec, SphereSpec
-from splatter.obstacles import pack_obstacles, resolve_contacts
-from splatter.simulate import simulate
+from splatter.sim.forces import pack_forces
+from splatter.sim.integrate import step_puffs
+from splatter.look.records import ClipSpec, GravitySpec, LookSpec, PlaneSpec, SourceSpec, SphereSpec
+from splatter.sim.obstacles import pack_obstacles
+from splatter.sim.driver import simulate
+
+
+def _one_step(pos, vel, obstacles, dt=1e-3):
+    """One production step with no forces, so only the contact changes the state."""
+    pos = np.array(pos, dtype=np.float64)
+    vel = np.array(vel, dtype=np.float64)
+    killed = step_puffs(pos, vel, np.zeros(len(pos)), dt=dt, time=0.0, forces=pack_forces((), seed=0),
+                        obstacles=pack_obstacles(obstacles))
+    return pos, vel, killed
 
 
 @pytest.mark.parametrize("mu, expected", [(0.2, 2.4), (0.5, 1.5), (1.0, 0.0)])
@@ -16,30 +25,31 @@ def test_friction_worked_values(mu, expected):
     # Friction for Cloth Animation", ACM TOG 21(3), 2002 [from memory]:
     # v_t' = max(0, 1 - mu dv_n / |v_t|) v_t, dv_n = (1 + e)|v_n|.
     # v = (3 tangent, -2 normal), e = 0.5 -> dv_n = 3.
-    tables = pack_obstacles((PlaneSpec(point=(0, 0, 0), normal=(0, 1, 0), bounce=0.5, friction=mu),))
-    pos, vel, killed = resolve_contacts([[0.0, -0.01, 0.0]], [[3.0, -2.0, 0.0]], tables)
+    # The puff starts 0.001 above the plane and crosses it during the step.
+    pos, vel, killed = _one_step([[0.0, 0.001, 0.0]], [[3.0, -2.0, 0.0]],
+                                 (PlaneSpec(point=(0, 0, 0), normal=(0, 1, 0), bounce=0.5, friction=mu),))
     np.testing.assert_allclose(vel[0], [expected, 1.0, 0.0], atol=1e-12)  # v_n' = -e v_n = 1
     assert pos[0, 1] >= 0.0
     assert not killed[0]
 
 
 def test_separating_puff_is_only_pushed_out():
-    tables = pack_obstacles((PlaneSpec(bounce=0.5, friction=1.0),))
-    pos, vel, _ = resolve_contacts([[0.0, -0.2, 0.0]], [[1.0, 0.5, 0.0]], tables)
-    np.testing.assert_allclose(pos[0], [0.0, 0.0, 0.0], atol=1e-15)
+    pos, vel, _ = _one_step([[0.0, -0.2, 0.0]], [[1.0, 0.5, 0.0]], (PlaneSpec(bounce=0.5, friction=1.0),))
+    np.testing.assert_allclose(pos[0], [1e-3, 0.0, 0.0], atol=1e-15)
     np.testing.assert_array_equal(vel[0], [1.0, 0.5, 0.0])
 
 
 def test_sphere_pushes_out_along_its_normal():
-    tables = pack_obstacles((SphereSpec(center=(1, 0, 0), radius=1.0, bounce=0.0, friction=0.0),))
-    pos, vel, _ = resolve_contacts([[1.0, 0.5, 0.0]], [[0.0, -2.0, 1.0]], tables)
-    np.testing.assert_allclose(pos[0], [1.0, 1.0, 0.0], atol=1e-12)
-    np.testing.assert_allclose(vel[0], [0.0, 0.0, 1.0], atol=1e-12)  # normal part removed (e = 0)
+    # Starting inside (no crossing in the step): projected out along the normal.
+    pos, vel, _ = _one_step([[1.0, 0.5, 0.0]], [[0.0, -2.0, 1.0]],
+                            (SphereSpec(center=(1, 0, 0), radius=1.0, bounce=0.0, friction=0.0),), dt=1e-12)
+    np.testing.assert_allclose(pos[0], [1.0, 1.0, 0.0], atol=1e-11)
+    np.testing.assert_allclose(vel[0], [0.0, 0.0, 1.0], atol=1e-11)  # normal part removed (e = 0)
 
 
 def test_kill_on_contact():
-    tables = pack_obstacles((PlaneSpec(kill=True), SphereSpec(center=(5, 5, 5), radius=1.0, kill=True)))
-    _, _, killed = resolve_contacts([[0, -0.1, 0], [0, 1, 0], [5, 5.5, 5]], np.zeros((3, 3)), tables)
+    _, _, killed = _one_step([[0, -0.1, 0], [0, 1, 0], [5, 5.5, 5]], np.zeros((3, 3)),
+                             (PlaneSpec(kill=True), SphereSpec(center=(5, 5, 5), radius=1.0, kill=True)))
     np.testing.assert_array_equal(killed, [True, False, True])
     look = LookSpec(name="kill", clip=ClipSpec(frames=40, fps=30, warmup=0.0),
                     sources=(SourceSpec(rate=60.0, center=(0, 0.5, 0), direction=(0, -1, 0), speed=(2.0, 2.0),

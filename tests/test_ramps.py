@@ -3,7 +3,7 @@
 import numpy as np
 from scipy.interpolate import interp1d
 
-from splatter.ramps import evaluate_color_ramp, evaluate_ramp
+from splatter.sim.ramps import evaluate_color_ramp, evaluate_ramp
 
 
 def test_scalar_ramp_matches_piecewise_linear_reference():

@@ -8,12 +8,12 @@ import numpy as np
 import pytest
 
 from lookfiles import LONE_PUFF, SMALL_PLUME, write_look
-from splatter.camera import border_alpha_share
-from splatter.look_load import load_look
+from splatter.view.framing import border_alpha_share
+from splatter.look.load import load_look
 from splatter.render import frame_images, make_camera, render
-from splatter.simulate import plan_simulation, simulate
-from splatter.splats import split_layers
-from splatter.write_exr import read_exr
+from splatter.sim.driver import plan_simulation, simulate
+from splatter.view.splats import split_layers
+from splatter.deliver.exr import read_exr
 
 LOOKS = Path(__file__).resolve().parent.parent / "looks"
 

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from splatter.rng import BLOCK, force_generator, puff_uniforms
+from splatter.sim.rng import BLOCK, force_generator, puff_uniforms
 
 
 def test_draws_depend_only_on_the_slot():

@@ -7,10 +7,10 @@ import numpy as np
 import pytest
 
 from lookfiles import LIT_BALL, LONE_PUFF, write_look
-from splatter.look_load import load_look
+from splatter.look.load import load_look
 from splatter.render import render
-from splatter.write_exr import read_exr
-from splatter.write_png import read_png
+from splatter.deliver.exr import read_exr
+from splatter.deliver.png import read_png
 
 
 def render_one(tmp_path, text, overrides=(), name="look.toml", frames=(0,)):

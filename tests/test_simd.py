@@ -1,4 +1,4 @@
-"""Tests for splatter._simd, the 8-lane float32 vector type of the compositor
+"""Tests for splatter.raster._simd, the 8-lane float32 vector type of the compositor
 kernels: each operation against numpy (the general-purpose reference here),
 compiled and as plain Python."""
 
@@ -9,7 +9,7 @@ import platform
 import numba
 import numpy as np
 
-from splatter import _simd as S
+from splatter.raster import _simd as S
 
 
 @numba.njit

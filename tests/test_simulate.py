@@ -5,9 +5,9 @@ import os
 import numpy as np
 import pytest
 
-from splatter.look import (BurstSpec, ClipSpec, GravitySpec, LiftSpec, LookSpec, PlaneSpec, SourceSpec, SwirlSpec,
+from splatter.look.records import (BurstSpec, ClipSpec, GravitySpec, LiftSpec, LookSpec, PlaneSpec, SourceSpec, SwirlSpec,
                            VortexSpec, WindSpec)
-from splatter.simulate import FrameState, plan_simulation, save_states, simulate
+from splatter.sim.driver import FrameState, plan_simulation, save_states, simulate
 
 FIELDS = ("id", "slot", "source", "pos", "vel", "age", "life", "size", "opacity", "color", "glow", "aspect", "quat",
           "stretch", "density")

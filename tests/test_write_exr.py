@@ -6,7 +6,7 @@ import numpy as np
 import OpenEXR
 import pytest
 
-from splatter.write_exr import channel_types, read_exr, rgba_channels, write_exr
+from splatter.deliver.exr import channel_types, read_exr, rgba_channels, write_exr
 
 
 def _frame(h=5, w=7, seed=0):

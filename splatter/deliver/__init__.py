@@ -1,0 +1,1 @@
+"""Stage 5, delivery: display encoding, PNG/EXR writers, sprite sheets, previews, packing, the output sink."""

@@ -1,0 +1,92 @@
+"""Every file name a render writes, written down once.
+
+``render`` writes through these functions, ``check`` lists through
+:func:`planned_files`, and ``pack`` recognises frames through
+:data:`FRAME_FILE`, so the three can never disagree about a name.
+
+Examples
+--------
+>>> frame_file("quay_vent", 7, "png")
+'quay_vent.0007.png'
+>>> sheet_file("quay_vent", "exr"), sheet_meta_file("quay_vent")
+('quay_vent.sheet.exr', 'quay_vent.sheet.json')
+>>> map_sheet_file("quay_vent", "motion", "png")
+'quay_vent.motion.sheet.png'
+>>> FRAME_FILE.match("quay_vent.0007.exr").group("name", "frame", "ext")
+('quay_vent', '0007', 'exr')
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from typing import Iterable, List
+
+from splatter.look.records import LookSpec
+
+__all__ = [
+    "FRAME_FILE", "frame_file", "sheet_file", "sheet_meta_file", "map_sheet_file", "LIGHTDIR_SHEETS",
+    "preview_file", "planned_files",
+]
+
+FRAME_FILE = re.compile(r"^(?P<name>[^.]+)\.(?P<frame>\d{4,})\.(?P<ext>png|exr)$")
+"""A frame file: ``{name}.{frame:04d}.{ext}``, name without dots."""
+
+LIGHTDIR_SHEETS = ("lightdirs_rlt", "lightdirs_bfb")
+"""The two light-direction map sheets, each holding three directions."""
+
+
+def frame_file(name: str, frame: int, ext: str) -> str:
+    """``{name}.{frame:04d}.{ext}``: one frame of the sequence."""
+    return f"{name}.{frame:04d}.{ext}"
+
+
+def sheet_file(name: str, fmt: str) -> str:
+    """``{name}.sheet.{fmt}``: the sprite sheet."""
+    return f"{name}.sheet.{fmt}"
+
+
+def sheet_meta_file(name: str) -> str:
+    """``{name}.sheet.json``: the sheet's metadata."""
+    return f"{name}.sheet.json"
+
+
+def map_sheet_file(name: str, map_name: str, fmt: str) -> str:
+    """``{name}.{map_name}.sheet.{fmt}``: a sheet of one extra map."""
+    return f"{name}.{map_name}.sheet.{fmt}"
+
+
+def preview_file(name: str, kind: str) -> str:
+    """``{name}.preview.gif``, ``{name}.preview.mp4`` or ``{name}.contact.png``."""
+    return f"{name}.contact.png" if kind == "contact" else f"{name}.preview.{kind}"
+
+
+def planned_files(look: LookSpec, out_dir: str, frames: Iterable[int]) -> List[str]:
+    """The paths a render of ``frames`` writes, in the order ``check`` lists them.
+
+    Parameters
+    ----------
+    look : LookSpec
+    out_dir : str
+        The output folder, placeholders already filled in.
+    frames : iterable of int
+        Frame numbers rendered.
+
+    Returns
+    -------
+    list of str
+    """
+    name, out = look.name, look.output
+    frames = list(frames)
+    files = [frame_file(name, f, ext) for ext in out.frames for f in frames]
+    if out.sheet is not None and frames:
+        fmt = out.sheet.format
+        files += [sheet_file(name, fmt), sheet_meta_file(name)]
+        for m in out.maps:
+            if m == "lightdirs":
+                files += [map_sheet_file(name, s, "png") for s in LIGHTDIR_SHEETS]
+            else:
+                files.append(map_sheet_file(name, m, fmt))
+    if frames:
+        files += [preview_file(name, p) for p in out.preview]
+    return [os.path.join(out_dir, f) for f in files]

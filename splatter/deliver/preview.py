@@ -1,0 +1,225 @@
+"""Previews for people, not engines: looping GIF, MP4 and a labelled contact sheet.
+
+Every preview shows the frames over a neutral grey checker so that alpha is
+visible: the premultiplied linear frame is composited over the checker in
+linear light (``C = C_frame + (1 - a) C_checker``, Porter-Duff over) and the
+result is sRGB-encoded (IEC 61966-2-1) to 8 bits.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+
+import numpy as np
+from PIL import Image, ImageDraw, ImageFont
+
+from splatter.core.args import check_image, check_positive
+from splatter.core.colorspace import srgb_decode, srgb_encode
+from splatter.deliver.display import quantize
+from splatter.deliver.fileio import atomic_path
+from splatter.deliver.sheet import sheet_layout
+from splatter.deliver.png import write_png_encoded
+
+__all__ = ["checker", "over_checker", "write_gif", "write_mp4", "write_contact_sheet"]
+
+# Two neutral greys, given as sRGB code values (102 and 153 of 255) so the
+# checker looks even on screen; composited in linear light.
+_CHECKER_CODES = (102, 153)
+
+
+def checker(height, width, *, square=None):
+    """A neutral grey checkerboard in linear light.
+
+    Parameters
+    ----------
+    height, width : int
+        Image size.
+    square : int, optional
+        Side of one square in pixels; default ``max(4, min(height, width) // 16)``.
+
+    Returns
+    -------
+    (height, width) float32 ndarray
+        Linear grey levels (sRGB codes 102 and 153, decoded); the top-left
+        square is the darker one.
+    """
+    if square is None:
+        square = max(4, min(height, width) // 16)
+    lo, hi = srgb_decode(np.array(_CHECKER_CODES, np.float64) / 255.0)
+    rr = np.arange(height)[:, None] // square
+    cc = np.arange(width)[None, :] // square
+    return np.where((rr + cc) % 2 == 0, lo, hi).astype(np.float32)
+
+
+def over_checker(rgba_premult_linear, *, exposure=0.0, square=None):
+    """Composite a premultiplied linear frame over the checker; return sRGB codes.
+
+    Parameters
+    ----------
+    rgba_premult_linear : (H, W, 4) float ndarray
+        Linear premultiplied RGBA.
+    exposure : float
+        Stops applied to the frame's colour (not to the checker).
+    square : int, optional
+        Checker square size, see :func:`checker`.
+
+    Returns
+    -------
+    (H, W, 3) uint8 ndarray
+        sRGB-encoded, rounded half up.
+    """
+    f = check_image(np.asarray(rgba_premult_linear, dtype=np.float32), "rgba_premult_linear")
+    bg = checker(f.shape[0], f.shape[1], square=square)
+    a = np.clip(f[..., 3:4], 0.0, 1.0)
+    lin = f[..., :3] * np.float32(2.0 ** float(exposure)) + (1.0 - a) * bg[..., None]
+    return quantize(srgb_encode(np.clip(lin, 0.0, 1.0)), 8)
+
+
+def _preview_frames(frames, exposure, even=False):
+    """sRGB codes of every frame over the checker; optionally padded to even size."""
+    out = []
+    for k, f in enumerate(frames):
+        f = check_image(np.asarray(f, dtype=np.float32), f"frames[{k}]")
+        if even and (f.shape[0] % 2 or f.shape[1] % 2):
+            # yuv420p needs even sizes: extend with transparent texels (the checker shows).
+            f = np.pad(f, ((0, f.shape[0] % 2), (0, f.shape[1] % 2), (0, 0)))
+        if out and f.shape[:2] != out[0].shape[:2]:
+            raise ValueError(f"frames[{k}]: shape {f.shape[:2]} differs from frame 0 {out[0].shape[:2]}")
+        out.append(over_checker(f, exposure=exposure))
+    if not out:
+        raise ValueError("frames: expected at least one frame")
+    return out
+
+
+def write_gif(path, frames_premult_linear, fps, *, exposure=0.0):
+    """Write an animated GIF that loops forever, atomically.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        Target ``.gif`` file.
+    frames_premult_linear : iterable of (H, W, 4) float ndarray
+        Linear premultiplied RGBA frames, all the same size.
+    fps : float
+        Playback rate. GIF delays are whole centiseconds, so the rate is
+        rounded to ``100 / round(100 / fps)`` (30 fps plays at 33.3).
+    exposure : float
+        Stops applied to the frames' colour.
+
+    Returns
+    -------
+    str
+        ``path``.
+
+    Notes
+    -----
+    Written with Pillow: a palette of up to 256 colours per frame, the
+    ``NETSCAPE2.0`` loop count 0 (forever). Pillow merges consecutive frames
+    that are identical into one longer frame.
+    """
+    import imageio.v3 as iio
+
+    fps = check_positive(fps, "fps")
+    codes = np.stack(_preview_frames(frames_premult_linear, exposure))
+    duration_ms = 10.0 * max(1, round(100.0 / fps))
+    with atomic_path(path, suffix=".gif") as tmp:
+        iio.imwrite(tmp, codes, plugin="pillow", extension=".gif", duration=duration_ms, loop=0)
+    return os.fspath(path)
+
+
+def write_mp4(path, frames_premult_linear, fps, *, exposure=0.0, quality=8, repeat=1):
+    """Write an H.264 MP4 (yuv420p) with the ffmpeg bundled by imageio-ffmpeg, atomically.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        Target ``.mp4`` file.
+    frames_premult_linear : iterable of (H, W, 4) float ndarray
+        Linear premultiplied RGBA frames, all the same size. Odd sizes are
+        extended by one transparent row/column (yuv420p needs even sizes).
+    fps : float
+        Frame rate.
+    exposure : float
+        Stops applied to the frames' colour.
+    quality : float
+        imageio-ffmpeg quality, 0 (worst) to 10 (best).
+    repeat : int
+        Times the clip is written in a row. MP4 has no loop flag: players
+        (and browsers with ``<video loop>``) loop it; ``repeat > 1`` makes a
+        longer file for players that do not.
+
+    Returns
+    -------
+    str
+        ``path``.
+    """
+    import imageio.v2 as iio2
+
+    fps = check_positive(fps, "fps")
+    if isinstance(repeat, bool) or not isinstance(repeat, int) or repeat < 1:
+        raise ValueError(f"repeat: expected an integer >= 1, got {repeat!r}")
+    if not 0 <= quality <= 10:
+        raise ValueError(f"quality: expected a number from 0 to 10, got {quality!r}")
+    codes = _preview_frames(frames_premult_linear, exposure, even=True)
+    with atomic_path(path, suffix=".mp4") as tmp:
+        writer = iio2.get_writer(tmp, format="FFMPEG", mode="I", fps=fps, codec="libx264", quality=quality,
+                                 pixelformat="yuv420p", macro_block_size=1, ffmpeg_log_level="error")
+        try:
+            for _ in range(repeat):
+                for c in codes:
+                    writer.append_data(c)
+        finally:
+            writer.close()
+    return os.fspath(path)
+
+
+def write_contact_sheet(path, frames_premult_linear, *, columns=None, label=True, numbers=None, exposure=0.0,
+                        gap=2):
+    """Write all frames on one PNG, over the checker, each labelled with its number.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        Target ``.png`` file.
+    frames_premult_linear : sequence of (H, W, 4) float ndarray
+        Linear premultiplied RGBA frames, all the same size.
+    columns : int, optional
+        Grid columns; default near-square (see :func:`splatter.deliver.sheet.sheet_layout`).
+    label : bool
+        Draw the frame number at the top-left of each frame (Pillow's default font).
+    numbers : sequence of int, optional
+        The frame numbers to draw, one per frame (a render of frames 10 to 15
+        labels them 10 to 15); default 0, 1, 2, ...
+    exposure : float
+        Stops applied to the frames' colour.
+    gap : int
+        Pixels of mid grey around each frame.
+
+    Returns
+    -------
+    str
+        ``path``.
+    """
+    codes = _preview_frames(frames_premult_linear, exposure)
+    if numbers is None:
+        numbers = range(len(codes))
+    numbers = [int(k) for k in numbers]
+    if len(numbers) != len(codes):
+        raise ValueError(f"numbers: expected {len(codes)} frame numbers, got {len(numbers)}")
+    h, w = codes[0].shape[:2]
+    lay = sheet_layout(len(codes), w, h, columns=columns, padding=gap)
+    img = np.full((lay.height, lay.width, 3), 128, dtype=np.uint8)
+    for cell, c in zip(lay.cells, codes):
+        img[cell.y : cell.y + h, cell.x : cell.x + w] = c
+    if label:
+        pil = Image.fromarray(img)
+        draw = ImageDraw.Draw(pil)
+        font = ImageFont.load_default()
+        for cell, number in zip(lay.cells, numbers):
+            text = str(number)
+            x0, y0, x1, y1 = draw.textbbox((cell.x + 2, cell.y + 1), text, font=font)
+            draw.rectangle((x0 - 1, y0 - 1, x1 + 1, y1 + 1), fill=(0, 0, 0))
+            draw.text((cell.x + 2, cell.y + 1), text, fill=(255, 255, 255), font=font)
+        img = np.asarray(pil)
+    return write_png_encoded(path, img, srgb=True, text={"Software": "splatter"})

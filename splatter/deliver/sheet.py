@@ -1,0 +1,399 @@
+"""Sprite sheets (flipbooks): lay frames out on a grid, write the image and its metadata.
+
+Layout (common practice for flipbooks)
+--------------------------------------
+Frames fill the sheet row by row from the top-left: frame ``k`` sits in column
+``k mod C`` and row ``k // C``. By default the grid is the smallest near-square
+one that holds every frame (``C = ceil(sqrt(n))``, ``R = ceil(n / C)``).
+
+* Without ``pow2`` each cell is the frame plus ``padding`` pixels on every
+  side; the sheet is ``C x R`` cells, rounded up to a multiple of 4 pixels
+  (for block compression; the extra space is at the right and bottom).
+* With ``pow2`` the sheet's width and height are the smallest powers of two
+  at least the unpadded grid size (``C * frame_w`` by ``R * frame_h``); each
+  cell is ``sheet // C`` by ``sheet // R`` and a frame whose size differs from
+  the cell's inner area (cell minus padding) is resampled into it with a
+  Lanczos filter (Pillow, ``a = 3``), per channel on premultiplied linear
+  float values.
+
+Padding texels belong to their cell. In straight-alpha PNG sheets every
+transparent texel (padding included) takes the colour of the nearest covered
+texel (dilation), so bilinear filtering and mipmaps do not pull black into
+the edges of the smoke. A gutter of ``2**k`` pixels keeps mip level ``k`` from
+mixing neighbouring cells.
+
+Metadata: ``{name}.sheet.json`` (schema version 1)
+--------------------------------------------------
+A JSON object with these keys::
+
+    version       1
+    image         file name of the sheet image, in the same folder
+    format        "png" or "exr"
+    width, height sheet size in pixels
+    columns, rows grid size
+    frames        number of frames (cells beyond it are empty)
+    frame_width, frame_height   size of the source frames in pixels
+    cell_width, cell_height     size of one cell (content plus padding)
+    padding       gutter in pixels on each side of the content
+    pow2          true when the sheet was sized to powers of two
+    resampled     true when frames were resampled to fit their cells
+    fps           playback rate, frames per second (a JSON number)
+    loop          "none", "exact" (the frame after the last is frame 0) or
+                  "crossfade" (the clip was blended across the seam)
+    alpha         "straight" or "premultiplied"
+    color         "srgb" (PNG: sRGB-encoded colour) or "linear" (EXR)
+    cells         list, one per frame in order: {frame, x, y, w, h}, the
+                  content rectangle in pixels, x to the right and y down from
+                  the top-left of the sheet; as texture coordinates
+                  u = x / width, v = y / height (top-left origin)
+    maps          object, one entry per extra map sheet (may be empty):
+                  {file, format, encoding, channels, ...}; all map sheets
+                  share the colour sheet's layout and cells
+
+Map entries (from :func:`write_map_sheet`; ``encoding`` says how to read
+the stored values ``c`` in [0, 1] back, extra keys give the constants):
+
+* motion: ``file`` ``{name}.motion.sheet.png``, ``encoding``
+  ``"0.5+0.5*clamp(d/s,-1,1)"``, ``channels`` ``["x", "y"]`` (red, green),
+  ``scale`` ``s``: ``d = (2c - 1) s`` is the displacement to the next frame in
+  sheet UV units (x right, y down). EXR map sheets store ``d`` itself
+  (``encoding`` ``"raw"``).
+* depth: ``encoding`` ``"linear"``, ``near``, ``far``:
+  ``z = near + c (far - near)``; background is 1.
+* normal: ``encoding`` ``"n*0.5+0.5"``, ``convention`` ``"+y up"`` (glTF 2.0)
+  or ``"+y down"`` (green flipped); +x right, +z toward the viewer.
+* lightdirs: two RGB sheets, ``files`` ``[A, B]``; ``channels``
+  ``[["right", "left", "top"], ["bottom", "front", "back"]]``: how much light
+  each texel receives from a light on that side, in [0, 1].
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import math
+import os
+from typing import NamedTuple
+
+import numpy as np
+from PIL import Image
+
+from splatter.core.args import check_choice, check_int, check_positive
+from splatter.core.choices import EXR_TYPES, FRAME_FORMATS, LOOP_MODES, PNG_ALPHAS, PNG_BITS
+from splatter.deliver.dilate import dilate_colour
+from splatter.deliver.display import quantize, to_display
+from splatter.deliver.fileio import atomic_write_text
+from splatter.deliver.exr import rgba_channels, write_exr
+from splatter.deliver.names import sheet_file, sheet_meta_file
+from splatter.deliver.png import write_png_encoded
+
+__all__ = [
+    "Cell",
+    "SheetLayout",
+    "sheet_layout",
+    "assemble_sheet",
+    "write_sheet",
+    "write_map_sheet",
+    "write_lightdirs_sheets",
+    "SCHEMA_VERSION",
+]
+
+SCHEMA_VERSION = 1
+
+
+class Cell(NamedTuple):
+    """Content rectangle of one frame in the sheet, pixels from the top-left."""
+
+    frame: int
+    x: int
+    y: int
+    w: int
+    h: int
+
+
+@dataclasses.dataclass(frozen=True)
+class SheetLayout:
+    """Where every frame goes in a sprite sheet (see the module docstring).
+
+    Attributes
+    ----------
+    frames : int
+        Number of frames.
+    frame_width, frame_height : int
+        Size of the source frames.
+    columns, rows : int
+        Grid size.
+    padding : int
+        Gutter on each side of a cell's content.
+    pow2 : bool
+        Sheet sized to powers of two.
+    width, height : int
+        Sheet size in pixels.
+    cell_width, cell_height : int
+        Cell size (content plus padding).
+    cells : tuple of Cell
+        Content rectangle of each frame, in frame order.
+    """
+
+    frames: int
+    frame_width: int
+    frame_height: int
+    columns: int
+    rows: int
+    padding: int
+    pow2: bool
+    width: int
+    height: int
+    cell_width: int
+    cell_height: int
+    cells: tuple
+
+    @property
+    def resampled(self) -> bool:
+        """True when frames are resampled to fit the cells' content area."""
+        c = self.cells[0]
+        return (c.w, c.h) != (self.frame_width, self.frame_height)
+
+    def to_json(self) -> dict:
+        """The layout part of the metadata (plain JSON types)."""
+        return {
+            "width": self.width,
+            "height": self.height,
+            "columns": self.columns,
+            "rows": self.rows,
+            "frames": self.frames,
+            "frame_width": self.frame_width,
+            "frame_height": self.frame_height,
+            "cell_width": self.cell_width,
+            "cell_height": self.cell_height,
+            "padding": self.padding,
+            "pow2": self.pow2,
+            "resampled": self.resampled,
+            "cells": [c._asdict() for c in self.cells],
+        }
+
+
+def _round_up(n, m):
+    return -(-n // m) * m
+
+
+def _next_pow2(n):
+    return 1 << max(0, (int(n) - 1).bit_length())
+
+
+def sheet_layout(n_frames, frame_w, frame_h, *, columns=None, rows=None, padding=0, pow2=False):
+    """Compute the grid, sheet size and cell rectangles for a flipbook.
+
+    Parameters
+    ----------
+    n_frames : int
+        Number of frames, >= 1.
+    frame_w, frame_h : int
+        Frame size in pixels.
+    columns, rows : int, optional
+        Grid size; a missing one is derived from the other, both missing give
+        the near-square default ``columns = ceil(sqrt(n))``,
+        ``rows = ceil(n / columns)``. ``columns * rows`` must hold every frame.
+    padding : int
+        Gutter in pixels on each side of every cell's content, >= 0.
+    pow2 : bool
+        Power-of-two sheet; frames are resampled into the cells when needed.
+
+    Returns
+    -------
+    SheetLayout
+
+    Examples
+    --------
+    64 frames of 256 px with a 2 px gutter fill an 8 x 8 grid row by row from
+    the top-left, so frame 10 sits in column 2 of row 1:
+
+    >>> layout = sheet_layout(64, 256, 256, columns=8, padding=2)
+    >>> layout.columns, layout.rows, layout.width, layout.height
+    (8, 8, 2080, 2080)
+    >>> layout.cells[10]
+    Cell(frame=10, x=522, y=262, w=256, h=256)
+    """
+    n = check_int(n_frames, "n_frames")
+    fw = check_int(frame_w, "frame_w")
+    fh = check_int(frame_h, "frame_h")
+    pad = check_int(padding, "padding", minimum=0)
+    if columns is None and rows is None:
+        cols = math.isqrt(n - 1) + 1 if n > 1 else 1  # ceil(sqrt(n)), exact in integers
+        rws = -(-n // cols)
+    elif rows is None:
+        cols = check_int(columns, "columns")
+        rws = -(-n // cols)
+    elif columns is None:
+        rws = check_int(rows, "rows")
+        cols = -(-n // rws)
+    else:
+        cols = check_int(columns, "columns")
+        rws = check_int(rows, "rows")
+        if cols * rws < n:
+            raise ValueError(f"columns, rows: a {cols} x {rws} grid holds {cols * rws} frames, need {n}")
+    if pow2:
+        width = max(4, _next_pow2(cols * fw))
+        height = max(4, _next_pow2(rws * fh))
+        cw, ch = width // cols, height // rws
+    else:
+        cw, ch = fw + 2 * pad, fh + 2 * pad
+        width, height = _round_up(cols * cw, 4), _round_up(rws * ch, 4)
+    iw, ih = cw - 2 * pad, ch - 2 * pad
+    if iw < 1 or ih < 1:
+        raise ValueError(f"padding: {pad} px on each side leaves no room in a {cw} x {ch} cell")
+    cells = tuple(Cell(k, (k % cols) * cw + pad, (k // cols) * ch + pad, iw, ih) for k in range(n))
+    return SheetLayout(n, fw, fh, cols, rws, pad, bool(pow2), width, height, cw, ch, cells)
+
+
+def _resample(frame, w, h):
+    """Lanczos-resample an (H, W, C) float32 frame to (h, w, C), per channel (Pillow mode "F")."""
+    out = np.empty((h, w, frame.shape[2]), dtype=np.float32)
+    for c in range(frame.shape[2]):
+        plane = Image.fromarray(np.ascontiguousarray(frame[..., c], dtype=np.float32))
+        out[..., c] = np.asarray(plane.resize((w, h), Image.Resampling.LANCZOS))
+    return out
+
+
+def assemble_sheet(frames, layout, *, clip_alpha=True, background=None):
+    """Place frames into one sheet image.
+
+    Parameters
+    ----------
+    frames : iterable of (H, W, C) float ndarray
+        Exactly ``layout.frames`` frames of ``layout.frame_height`` by
+        ``layout.frame_width``, all with the same ``C``; premultiplied linear
+        colour for images, any values for maps. Consumed one at a time: memory
+        is O(sheet).
+    layout : SheetLayout
+    clip_alpha : bool
+        After resampling, clip the last channel to [0, 1] and the others to
+        >= 0 (Lanczos lobes overshoot); set False for signed data maps.
+    background : sequence of float, optional
+        Value of every texel outside the cells' content (gutters and unused
+        cells), one per channel; default 0. Data maps use their neutral value
+        (a flat normal, zero motion) so filtering across a gutter stays neutral.
+
+    Returns
+    -------
+    (layout.height, layout.width, C) float32 ndarray
+    """
+    if not isinstance(layout, SheetLayout):
+        raise TypeError(f"layout: expected a SheetLayout, got {type(layout).__name__}")
+    sheet = None
+    k = -1
+    for k, frame in enumerate(frames):
+        if k >= layout.frames:
+            raise ValueError(f"frames: more than the layout's {layout.frames} frames")
+        f = np.asarray(frame)
+        if f.ndim == 2:
+            f = f[..., None]
+        if f.ndim != 3 or f.shape[:2] != (layout.frame_height, layout.frame_width):
+            raise ValueError(
+                f"frames[{k}]: expected shape ({layout.frame_height}, {layout.frame_width}, C), got {np.shape(frame)}"
+            )
+        if sheet is None:
+            sheet = np.zeros((layout.height, layout.width, f.shape[2]), dtype=np.float32)
+            if background is not None:
+                sheet[...] = np.asarray(background, dtype=np.float32).reshape(-1)[: f.shape[2]]
+        elif f.shape[2] != sheet.shape[2]:
+            raise ValueError(f"frames[{k}]: {f.shape[2]} channels, frame 0 has {sheet.shape[2]}")
+        cell = layout.cells[k]
+        f = f.astype(np.float32, copy=False)
+        if (cell.w, cell.h) != f.shape[1::-1]:
+            f = _resample(f, cell.w, cell.h)
+            if clip_alpha:
+                np.clip(f[..., :-1], 0.0, None, out=f[..., :-1])
+                np.clip(f[..., -1], 0.0, 1.0, out=f[..., -1])
+        sheet[cell.y : cell.y + cell.h, cell.x : cell.x + cell.w] = f
+    if k + 1 != layout.frames:
+        raise ValueError(f"frames: got {k + 1} frames, the layout has {layout.frames}")
+    return sheet
+
+
+def write_sheet(
+    dir,
+    name,
+    frames_premult_linear,
+    layout,
+    *,
+    format="png",
+    alpha="straight",
+    png_bits=8,
+    exr_type="half",
+    fps=30,
+    loop="none",
+    maps=None,
+    exposure=0.0,
+):
+    """Write ``{name}.sheet.{png|exr}`` and ``{name}.sheet.json``.
+
+    Parameters
+    ----------
+    dir : str or os.PathLike
+        Existing output folder.
+    name : str
+        Base name of the files.
+    frames_premult_linear : iterable of (H, W, 4) float ndarray
+        Linear premultiplied RGBA frames, ``layout.frames`` of them.
+    layout : SheetLayout
+    format : {"png", "exr"}
+        PNG: sRGB colour, 8 or 16 bits, ``alpha`` as given; straight-alpha
+        sheets are dilated (every alpha-0 texel takes the nearest covered
+        colour). EXR: linear premultiplied (the OpenEXR convention, so
+        ``alpha`` is ignored), ``exr_type`` HALF or FLOAT.
+    alpha : {"straight", "premultiplied"}
+        PNG alpha association.
+    png_bits : {8, 16}
+    exr_type : {"half", "float"}
+    fps : float
+        Playback rate stored in the metadata.
+    loop : {"none", "exact", "crossfade"}
+        Stored in the metadata.
+    maps : dict of str to dict, optional
+        Map entries returned by :func:`write_map_sheet` (or
+        :func:`write_lightdirs_sheets`), stored under ``"maps"``.
+    exposure : float
+        Stops applied before display encoding (PNG only; EXR stays scene-linear).
+
+    Returns
+    -------
+    list of str
+        The image path and the JSON path.
+    """
+    check_choice(format, "format", FRAME_FORMATS)
+    check_choice(alpha, "alpha", PNG_ALPHAS)
+    check_choice(png_bits, "png_bits", PNG_BITS)
+    check_choice(exr_type, "exr_type", EXR_TYPES)
+    check_choice(loop, "loop", LOOP_MODES)
+    check_positive(fps, "fps")
+    if maps is not None and not isinstance(maps, dict):
+        raise TypeError(f"maps: expected a dict of map entries, got {type(maps).__name__}")
+    dir = os.fspath(dir)
+    sheet = assemble_sheet(frames_premult_linear, layout)
+    if sheet.shape[2] != 4:
+        raise ValueError(f"frames_premult_linear: expected 4 channels (RGBA), got {sheet.shape[2]}")
+    image = sheet_file(name, format)
+    path = os.path.join(dir, image)
+    if format == "png":
+        disp = to_display(sheet, alpha=alpha, color="srgb", exposure=exposure)
+        del sheet
+        if alpha == "straight":
+            disp = dilate_colour(disp)
+        text = {"Software": "splatter"}
+        if alpha == "premultiplied":
+            text["splatter.alpha"] = "premultiplied"
+        write_png_encoded(path, quantize(disp, png_bits), srgb=True, text=text)
+        color = "srgb"
+    else:
+        write_exr(path, rgba_channels(sheet), pixel_type=exr_type)
+        alpha, color = "premultiplied", "linear"
+    meta = {"version": SCHEMA_VERSION, "image": image, "format": format}
+    meta.update(layout.to_json())
+    meta.update({"fps": float(fps), "loop": loop, "alpha": alpha, "color": color, "maps": dict(maps or {})})
+    # Keep "cells" and "maps" last so the header reads first.
+    meta["cells"] = meta.pop("cells")
+    meta["maps"] = meta.pop("maps")
+    json_path = os.path.join(dir, sheet_meta_file(name))
+    atomic_write_text(json_path, json.dumps(meta, indent=1) + "\n")
+    return [path, json_path]

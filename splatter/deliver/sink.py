@@ -1,0 +1,165 @@
+"""Where finished frames go: frame files, sprite sheets, previews, map sheets.
+
+:class:`OutputSink` receives each composited frame in order and writes its
+frame files on a background thread (so encoding and writing overlap the
+compositing of the next frame); at :meth:`OutputSink.finish` it writes the
+sheets and previews, which need the whole clip.  Frames kept for sheets cost
+about one sheet of memory (every frame is a cell of it); previews keep a copy
+no larger than 512 px on a side.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import threading
+import time
+from concurrent.futures import Future, ThreadPoolExecutor
+from typing import Dict, List
+
+import numpy as np
+
+from splatter.deliver.exr import rgba_channels, write_exr
+from splatter.deliver.map_sheets import write_depth_sheet, write_lightdirs_map, write_motion_sheet, write_normal_sheet
+from splatter.deliver.names import frame_file, preview_file
+from splatter.deliver.png import write_png
+from splatter.deliver.preview import write_contact_sheet, write_gif, write_mp4
+from splatter.deliver.sheet import sheet_layout, write_sheet
+from splatter.look.records import LookSpec
+
+__all__ = ["OutputSink"]
+
+_PREVIEW_MAX = 512
+_MAX_PENDING = 3
+
+
+class OutputSink:
+    """Write what the look's ``[output]`` asks for, frame by frame.
+
+    Parameters
+    ----------
+    look : LookSpec
+    out_dir : str
+        Existing output folder.
+    """
+
+    def __init__(self, look: LookSpec, out_dir: str):
+        self.look = look
+        self.out_dir = out_dir
+        self.files: List[str] = []
+        self.write_seconds = 0.0
+        self._lock = threading.Lock()
+        self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="splatter-writer")
+        self._pending: List[Future] = []
+        self._sheet_frames: List[np.ndarray] = []
+        self._sheet_layers: Dict[str, List[np.ndarray]] = {}
+        self._preview: List[np.ndarray] = []
+        self._frame_numbers: List[int] = []
+
+    # ------------------------------------------------------------ per frame
+
+    def add(self, frame: int, rgba: np.ndarray, layers: Dict[str, np.ndarray]) -> None:
+        """Queue one frame: premultiplied linear ``rgba (H, W, 4) float32`` and straight map ``layers``."""
+        out = self.look.output
+        self._frame_numbers.append(frame)
+        if out.sheet is not None:
+            self._sheet_frames.append(rgba)
+            for k, v in layers.items():
+                self._sheet_layers.setdefault(k, []).append(v)
+        if out.preview:
+            self._preview.append(_shrink(rgba, _PREVIEW_MAX))
+        if out.frames:
+            while len(self._pending) >= _MAX_PENDING:
+                self._pending.pop(0).result()
+            self._pending.append(self._pool.submit(self._write_frame, frame, rgba, layers))
+
+    def _write_frame(self, frame: int, rgba: np.ndarray, layers: Dict[str, np.ndarray]) -> None:
+        start = time.perf_counter()
+        out, name = self.look.output, self.look.name
+        written = []
+        for ext in out.frames:
+            path = os.path.join(self.out_dir, frame_file(name, frame, ext))
+            if ext == "png":
+                write_png(path, rgba, bits=out.png_bits, alpha=out.png_alpha, exposure=self.look.shading.exposure)
+            else:
+                channels = rgba_channels(rgba)
+                channels.update(layers)
+                write_exr(path, channels, pixel_type=out.exr_type)
+            written.append(path)
+        with self._lock:
+            self.files.extend(written)
+            self.write_seconds += time.perf_counter() - start
+
+    # ------------------------------------------------------------ the end
+
+    def finish(self) -> List[str]:
+        """Wait for frame files, then write sheets and previews; return every file written."""
+        for fut in self._pending:
+            fut.result()
+        self._pending.clear()
+        self._pool.shutdown(wait=True)
+        start = time.perf_counter()
+        if self.look.output.sheet is not None and self._sheet_frames:
+            self._write_sheets()
+        if self._preview:
+            self._write_previews()
+        self.write_seconds += time.perf_counter() - start
+        return sorted(self.files)
+
+    def abort(self) -> None:
+        """Stop the writer thread without writing sheets or previews."""
+        for fut in self._pending:
+            fut.cancel()
+        self._pool.shutdown(wait=True, cancel_futures=True)
+
+    def _write_sheets(self) -> None:
+        look, spec = self.look, self.look.output.sheet
+        h, w = self._sheet_frames[0].shape[:2]
+        layout = sheet_layout(
+            len(self._sheet_frames), w, h, columns=spec.columns, rows=spec.rows, padding=spec.padding, pow2=spec.pow2
+        )
+        layers = self._sheet_layers
+        alpha = [f[..., 3] for f in self._sheet_frames]
+        common = dict(format=spec.format, png_bits=look.output.png_bits, exr_type=look.output.exr_type)
+        maps = {}
+        d, name = self.out_dir, look.name
+        if "motion.x" in layers:
+            maps["motion"] = write_motion_sheet(d, name, layout, layers, alpha, w, h, common)
+        if "depth.z" in layers:
+            maps["depth"] = write_depth_sheet(d, name, layout, layers["depth.z"], alpha, common)
+        if "normal.x" in layers:
+            maps["normal"] = write_normal_sheet(d, name, layout, layers, alpha, common,
+                                                y_down=look.output.normal_y == "down")
+        if "lightdirs.right" in layers:
+            maps["lightdirs"] = write_lightdirs_map(d, name, layout, layers, alpha, png_bits=look.output.png_bits)
+        for entry in maps.values():
+            for f in entry.get("files", [entry.get("file")]):
+                self.files.append(os.path.join(self.out_dir, f))
+        self.files += write_sheet(
+            self.out_dir, look.name, self._sheet_frames, layout, format=spec.format, alpha=look.output.png_alpha,
+            png_bits=look.output.png_bits, exr_type=look.output.exr_type, fps=look.clip.fps, loop=look.clip.loop,
+            maps=maps, exposure=look.shading.exposure,
+        )
+
+    def _write_previews(self) -> None:
+        look, d, name = self.look, self.out_dir, self.look.name
+        exp = look.shading.exposure
+        for kind in look.output.preview:
+            path = os.path.join(d, preview_file(name, kind))
+            if kind == "gif":
+                write_gif(path, self._preview, look.clip.fps, exposure=exp)
+            elif kind == "mp4":
+                write_mp4(path, self._preview, look.clip.fps, exposure=exp)
+            else:
+                write_contact_sheet(path, self._preview, numbers=self._frame_numbers, exposure=exp)
+            self.files.append(path)
+
+
+def _shrink(rgba: np.ndarray, limit: int) -> np.ndarray:
+    """Box-filter a premultiplied frame down by a whole factor until it fits ``limit``."""
+    h, w = rgba.shape[:2]
+    f = max(1, math.ceil(max(h, w) / limit))
+    if f == 1:
+        return rgba
+    h2, w2 = h // f, w // f
+    return rgba[: h2 * f, : w2 * f].reshape(h2, f, w2, f, 4).mean(axis=(1, 3)).astype(np.float32)

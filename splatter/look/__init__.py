@@ -1,0 +1,1 @@
+"""Stage 1, the look: TOML in, validated frozen records out."""

@@ -1,0 +1,1 @@
+"""Stage 4, raster: screen splats composited into premultiplied linear images, and image-space maps."""

@@ -1,0 +1,1 @@
+"""Stage 2, simulation: puffs born, moved by forces, bounced off obstacles, frame by frame."""

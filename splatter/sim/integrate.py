@@ -1,0 +1,216 @@
+"""One simulation step for every puff: integrate the motion, then resolve contacts.
+
+The motion is ``dx/dt = v + u(x, t)``, ``dv/dt = a(x, v, age, t)`` (see
+:mod:`splatter.sim.forces`).  Integrators, with step ``h``:
+
+* ``"euler"`` (explicit): ``x1 = x + h (v + u(x))``, ``v1 = v + h a(x, v)``;
+* ``"symplectic"`` (semi-implicit Euler, velocity first):
+  ``v1 = v + h a(x, v)``, ``x1 = x + h (v1 + u(x))``;
+* ``"midpoint"`` (explicit RK2): evaluate at ``(x, v, age, t)``, take half a
+  step, evaluate there at ``age + h/2, t + h/2`` and take the whole step
+  with that slope.
+
+Each puff is independent (no sum crosses puffs), so the parallel loop gives
+the same bits on any thread count.
+
+The kernels here inline helpers from :mod:`splatter.sim.forces`,
+:mod:`splatter.sim.obstacles` and :mod:`splatter.sim.swirl`; numba's on-disk cache
+only notices edits to this file, so after changing a helper delete
+``splatter/__pycache__`` (or touch this file).
+"""
+
+from __future__ import annotations
+
+import numba
+import numpy as np
+
+from splatter.sim.forces import ForceTables, _accel, _vortex_at, _wind_sum
+from splatter.core.jit import KERNEL, PARALLEL
+from splatter.sim.obstacles import ObstacleTables, _collide
+from splatter.sim.swirl import BLOCK, _swirl_block
+from splatter.core.args import check_choice
+from splatter.core.choices import INTEGRATORS
+
+
+
+
+@numba.njit(**KERNEL)
+def _air_block(buf, px, ux, n, sq, so, sb, cs, vortex):
+    """Swirl plus vortex air velocity at points in ``buf[px:px+3]`` into ``buf[ux:ux+3]``; rows 12-13 scratch."""
+    for j in range(n):
+        buf[ux, j] = 0.0
+        buf[ux + 1, j] = 0.0
+        buf[ux + 2, j] = 0.0
+    if sq.shape[0]:
+        _swirl_block(buf[px], buf[px + 1], buf[px + 2], n, sq, so, sb, cs, buf[ux], buf[ux + 1], buf[ux + 2],
+                     buf[12], buf[13])
+    if vortex.shape[0]:
+        for j in range(n):
+            wx, wy, wz = _vortex_at(buf[px, j], buf[px + 1, j], buf[px + 2, j], vortex)
+            buf[ux, j] += wx
+            buf[ux + 1, j] += wy
+            buf[ux + 2, j] += wz
+
+
+@numba.njit(**KERNEL)
+def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, lift, sq, so, sb, ph0, ph1,
+                vortex, planes, spheres, killed, buf):
+    """Advance puffs ``i0 .. i0+n-1``; ``buf`` is (14, BLOCK) scratch.
+
+    Rows: 0-2 position, 3-5 air velocity there, 6-8 midpoint position,
+    9-11 air velocity at the midpoint, 12-13 swirl scratch.
+    """
+    wk0 = wind0[0]
+    wu0 = wind0[1:]
+    wk1 = wind1[0]
+    wu1 = wind1[1:]
+    half = 0.5 * h
+    for j in range(n):
+        buf[0, j] = pos[i0 + j, 0]
+        buf[1, j] = pos[i0 + j, 1]
+        buf[2, j] = pos[i0 + j, 2]
+    _air_block(buf, 0, 3, n, sq, so, sb, ph0, vortex)
+    if method == 2:
+        for j in range(n):
+            i = i0 + j
+            buf[6, j] = buf[0, j] + half * (vel[i, 0] + buf[3, j])
+            buf[7, j] = buf[1, j] + half * (vel[i, 1] + buf[4, j])
+            buf[8, j] = buf[2, j] + half * (vel[i, 2] + buf[5, j])
+        _air_block(buf, 6, 9, n, sq, so, sb, ph1, vortex)
+    for j in range(n):
+        i = i0 + j
+        x = buf[0, j]
+        y = buf[1, j]
+        z = buf[2, j]
+        vx = vel[i, 0]
+        vy = vel[i, 1]
+        vz = vel[i, 2]
+        a = age[i]
+        ax, ay, az = _accel(vx, vy, vz, a, gravity, drag, wk0, wu0, lift)
+        if method == 0:
+            x1 = x + h * (vx + buf[3, j])
+            y1 = y + h * (vy + buf[4, j])
+            z1 = z + h * (vz + buf[5, j])
+            vx1 = vx + h * ax
+            vy1 = vy + h * ay
+            vz1 = vz + h * az
+        elif method == 1:
+            vx1 = vx + h * ax
+            vy1 = vy + h * ay
+            vz1 = vz + h * az
+            x1 = x + h * (vx1 + buf[3, j])
+            y1 = y + h * (vy1 + buf[4, j])
+            z1 = z + h * (vz1 + buf[5, j])
+        else:
+            vxm = vx + half * ax
+            vym = vy + half * ay
+            vzm = vz + half * az
+            ax, ay, az = _accel(vxm, vym, vzm, a + half, gravity, drag, wk1, wu1, lift)
+            x1 = x + h * (vxm + buf[9, j])
+            y1 = y + h * (vym + buf[10, j])
+            z1 = z + h * (vzm + buf[11, j])
+            vx1 = vx + h * ax
+            vy1 = vy + h * ay
+            vz1 = vz + h * az
+        x1, y1, z1, vx1, vy1, vz1, k = _collide(x1, y1, z1, vx1, vy1, vz1, planes, spheres, x, y, z, vx, vy, vz, h)
+        pos[i, 0] = x1
+        pos[i, 1] = y1
+        pos[i, 2] = z1
+        vel[i, 0] = vx1
+        vel[i, 1] = vy1
+        vel[i, 2] = vz1
+        killed[i] = k
+
+
+@numba.njit(**PARALLEL)
+def _step(pos, vel, age, h, method, gravity, drag, wind0, wind1, lift, sq, so, sb, ph0, ph1, vortex,
+          planes, spheres, killed):
+    """Advance every puff by one step ``h``; ``wind0/ph0`` at the step's start, ``wind1/ph1`` half-way."""
+    nblocks = (pos.shape[0] + BLOCK - 1) // BLOCK
+    for blk in numba.prange(nblocks):
+        i0 = blk * BLOCK
+        n = min(pos.shape[0], i0 + BLOCK) - i0
+        buf = np.empty((14, BLOCK))
+        _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, lift, sq, so, sb, ph0, ph1,
+                    vortex, planes, spheres, killed, buf)
+
+
+@numba.njit(**PARALLEL)
+def _air_velocity(pos, sq, so, sb, cs, vortex, out):
+    nblocks = (pos.shape[0] + BLOCK - 1) // BLOCK
+    for blk in numba.prange(nblocks):
+        i0 = blk * BLOCK
+        n = min(pos.shape[0], i0 + BLOCK) - i0
+        buf = np.empty((14, BLOCK))
+        for j in range(n):
+            buf[0, j] = pos[i0 + j, 0]
+            buf[1, j] = pos[i0 + j, 1]
+            buf[2, j] = pos[i0 + j, 2]
+        _air_block(buf, 0, 3, n, sq, so, sb, cs, vortex)
+        for j in range(n):
+            out[i0 + j, 0] = buf[3, j]
+            out[i0 + j, 1] = buf[4, j]
+            out[i0 + j, 2] = buf[5, j]
+
+
+def _check_state(pos, vel):
+    for name, arr in (("pos", pos), ("vel", vel)):
+        if not isinstance(arr, np.ndarray) or arr.dtype != np.float64 or arr.ndim != 2 or arr.shape[1] != 3:
+            raise TypeError(f"{name} must be an (N, 3) float64 ndarray")
+        if not arr.flags.c_contiguous:
+            raise ValueError(f"{name} must be C-contiguous")
+    if vel.shape != pos.shape:
+        raise ValueError(f"vel must have the shape of pos {pos.shape}, got {vel.shape}")
+
+
+def step_puffs(pos: np.ndarray, vel: np.ndarray, age: np.ndarray, *, dt: float, time: float,
+               forces: ForceTables, obstacles: ObstacleTables, integrator: str = "symplectic") -> np.ndarray:
+    """Advance puffs by one step, in place.
+
+    Parameters
+    ----------
+    pos, vel : (N, 3) float64 ndarray, C-contiguous
+        Position and own velocity; overwritten with the values after the step.
+    age : (N,) float64 ndarray
+        Ages at the start of the step, seconds.
+    dt : float
+        Step, seconds (> 0).
+    time : float
+        Force time at the start of the step (the phase time when looping).
+    forces : ForceTables
+    obstacles : ObstacleTables
+    integrator : {"euler", "symplectic", "midpoint"}
+
+    Returns
+    -------
+    (N,) bool ndarray
+        True where the puff touched an obstacle with ``kill`` during the step.
+    """
+    _check_state(pos, vel)
+    age = np.ascontiguousarray(age, dtype=np.float64)
+    if age.shape != (pos.shape[0],):
+        raise ValueError(f"age must have shape ({pos.shape[0]},), got {age.shape}")
+    check_choice(integrator, "integrator", INTEGRATORS)
+    if not dt > 0:
+        raise ValueError(f"dt must be > 0, got {dt}")
+    t = float(time)
+    half = 0.5 * float(dt)
+    wind0 = np.zeros(4)
+    wind1 = np.zeros(4)
+    _wind_sum(forces.wind, t, wind0)
+    _wind_sum(forces.wind, t + half, wind1)
+    killed = np.zeros(pos.shape[0], dtype=np.int8)
+    _step(pos, vel, age, float(dt), INTEGRATORS.index(integrator), forces.gravity, forces.drag, wind0, wind1,
+          forces.lift, forces.swirl_q, forces.swirl_oct, forces.swirl_b, forces.swirl_phases(t),
+          forces.swirl_phases(t + half), forces.vortex, obstacles.planes, obstacles.spheres, killed)
+    return killed.astype(bool)
+
+
+def air_velocity(pos: np.ndarray, *, time: float, forces: ForceTables) -> np.ndarray:
+    """Swirl plus vortex air velocity at ``pos`` ((N, 3) float64) and force time ``time``: (N, 3) float64."""
+    pos = np.ascontiguousarray(pos, dtype=np.float64)
+    if pos.ndim != 2 or pos.shape[1] != 3:
+        raise ValueError(f"pos must have shape (N, 3), got {pos.shape}")
+    out = np.empty_like(pos)
+    _air_velocity(pos, forces.swirl_q, forces.swirl_oct, forces.swirl_b, forces.swirl_phases(float(time)), forces.vortex, out)
+    return out

@@ -1,0 +1,207 @@
+"""The simulation plan: everything derived once from a look, before any step.
+
+Step ``dt = 1 / (fps * substeps)``; warm-up in whole steps (``"auto"``: the
+longest possible puff life); the exact-loop period in steps; each source's
+birth lattice (:class:`splatter.sim.emit.Schedule`) with its effective rate; the
+packed forces (gust periods and swirl frequencies snapped to the loop) and
+obstacles; and plain-sentence notes on what was adjusted or cannot loop.
+See :mod:`splatter.sim.driver` for how time is counted.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from fractions import Fraction
+from typing import Optional, Tuple
+
+from splatter.sim.emit import Schedule
+from splatter.sim.forces import ForceTables, pack_forces
+from splatter.sim.obstacles import ObstacleTables, pack_obstacles
+
+__all__ = ["SimPlan", "plan_simulation"]
+
+_MAX_DENOMINATOR = 1 << 20  # rational births per step when not looping: rate error < 1e-6
+
+
+@dataclass(frozen=True, eq=False)
+class SimPlan:
+    """Everything the simulation derives once from a look.
+
+    Attributes
+    ----------
+    dt : float
+        Step, ``1 / (fps * substeps)`` seconds.
+    fps : float
+    substeps : int
+    frames : int
+        ``clip.frames``.
+    integrator : str
+    loop : str
+        ``clip.loop``.
+    warmup_steps : int
+        Steps simulated before frame 0.
+    warmup : float
+        ``warmup_steps * dt`` seconds.
+    period : float or None
+        Loop period ``frames / fps`` when ``loop == "exact"``.
+    period_steps : int or None
+        ``frames * substeps`` when looping exactly.
+    rates : tuple of float
+        Effective puffs per second of each source (snapped when looping).
+    schedules : tuple of Schedule
+        Birth lattice and bursts of each source (see :mod:`splatter.sim.emit`).
+    gust_periods : tuple of tuple of float
+        Per wind force (in force order), the three gust periods used.
+    forces : ForceTables
+    obstacles : ObstacleTables
+    notes : tuple of str
+        Plain sentences: the key, then what was done.
+    steady_state_puffs : float
+        Expected puffs alive at steady state: sum of rate * mean life, plus
+        every burst's count.
+    """
+
+    dt: float
+    fps: float
+    substeps: int
+    frames: int
+    integrator: str
+    loop: str
+    warmup_steps: int
+    warmup: float
+    period: Optional[float]
+    period_steps: Optional[int]
+    rates: Tuple[float, ...]
+    schedules: Tuple[Schedule, ...]
+    gust_periods: Tuple[Tuple[float, ...], ...]
+    forces: ForceTables
+    obstacles: ObstacleTables
+    notes: Tuple[str, ...]
+    steady_state_puffs: float
+
+    def frame_step(self, frame: int) -> int:
+        """Step boundary of ``frame``."""
+        return self.warmup_steps + int(frame) * self.substeps
+
+    def force_time(self, step: int) -> float:
+        """Time the forces see at step boundary ``step``, seconds."""
+        if self.period_steps is not None:
+            return (step % self.period_steps) * self.dt
+        return (step - self.warmup_steps) * self.dt
+
+
+def _fmt(x: float) -> str:
+    return f"{x:.6g}"
+
+
+def _burst_boundary(time: float, warmup_steps: int, steps_per_second: float):
+    x = warmup_steps + time * steps_per_second
+    if abs(x - round(x)) < 1e-9:
+        x = float(round(x))
+    s = max(0, math.ceil(x))
+    return s, max(0.0, s - x)
+
+
+def plan_simulation(look) -> SimPlan:
+    """Derive the step, warm-up, loop period, effective rates and notes of a look.
+
+    Parameters
+    ----------
+    look : LookSpec
+
+    Returns
+    -------
+    SimPlan
+    """
+    clip = look.clip
+    if clip.frames < 1 or not clip.fps > 0 or clip.substeps < 1:
+        raise ValueError(f"clip needs frames >= 1, fps > 0, substeps >= 1; got {clip.frames}, {clip.fps}, "
+                         f"{clip.substeps}")
+    sps = float(clip.fps) * int(clip.substeps)  # steps per second
+    dt = 1.0 / sps
+    notes = []
+    max_life = max((float(s.life[1]) for s in look.sources), default=0.0)
+    exact = clip.loop == "exact"
+    period = clip.frames / clip.fps if exact else None
+    period_steps = clip.frames * clip.substeps if exact else None
+
+    warmup = max_life if clip.warmup is None else float(clip.warmup)
+    warmup_steps = max(0, math.ceil(warmup * sps - 1e-9))
+    if exact and warmup_steps * dt < max_life:
+        warmup_steps = math.ceil(max_life * sps - 1e-9)
+        notes.append(f"clip.warmup: {_fmt(warmup)} s raised to {_fmt(warmup_steps * dt)} s, the longest puff life, "
+                     f"so frame 0 of the exact loop is in steady state")
+    if clip.loop == "crossfade":
+        notes.append(f"clip.loop: crossfade; the simulation runs on past the last frame and the renderer blends "
+                     f"{_fmt(clip.crossfade)} of the clip across the seam")
+
+    rates, schedules = [], []
+    steady = 0.0
+    for i, src in enumerate(look.sources):
+        key = f"source[{i}]"
+        rate = float(src.rate)
+        start = float(src.start)
+        stop = None if src.stop is None else float(src.stop)
+        lo = warmup_steps + start * sps if start > 0 else None
+        hi = None if stop is None else warmup_steps + stop * sps
+        if exact:
+            per = 0
+            if rate > 0:
+                per = max(1, round(rate * period))
+                eff = per / period
+                if eff != rate:
+                    notes.append(f"{key}.rate: {_fmt(rate)}/s snapped to {_fmt(eff)}/s so {per} puffs are born "
+                                 f"per {_fmt(period)} s loop period")
+            eff = per / period
+            sched = Schedule(per=per, steps=period_steps, origin=0, lo=lo, hi=hi)
+            if per and start > 0:
+                notes.append(f"{key}.start: the source starts at {_fmt(start)} s, inside the clip; the exact loop "
+                             f"will show a jump at the seam")
+            if per and stop is not None and stop < period:
+                notes.append(f"{key}.stop: the source stops at {_fmt(stop)} s, before the {_fmt(period)} s loop "
+                             f"period ends; the exact loop will show a jump at the seam")
+            if src.bursts:
+                notes.append(f"{key}.bursts: a burst cannot repeat in an exact loop; the loop will show a jump at "
+                             f"the seam")
+            if per and float(src.life[1]) > period:
+                notes.append(f"{key}.life: puffs live up to {_fmt(src.life[1])} s, longer than the {_fmt(period)} s "
+                             f"loop period, so twins born one period apart are alive together (the loop still "
+                             f"closes exactly)")
+        else:
+            per, steps = 0, 1
+            if rate > 0:
+                frac = Fraction(rate * dt).limit_denominator(_MAX_DENOMINATOR)
+                per, steps = frac.numerator, frac.denominator
+                if per == 0:
+                    notes.append(f"{key}.rate: {_fmt(rate)}/s is below one puff per {_MAX_DENOMINATOR} steps; "
+                                 f"the source emits nothing")
+            eff = per / (steps * dt)
+            origin = 0 if start <= 0 else warmup_steps + round(start * sps)
+            sched = Schedule(per=per, steps=steps, origin=origin, lo=None, hi=hi)
+        bursts = tuple(_burst_boundary(float(b.time), warmup_steps, sps) + (int(b.count),) for b in src.bursts)
+        sched = Schedule(per=sched.per, steps=sched.steps, origin=sched.origin, lo=sched.lo, hi=sched.hi,
+                         bursts=bursts)
+        rates.append(eff)
+        schedules.append(sched)
+        steady += eff * 0.5 * (float(src.life[0]) + float(src.life[1])) + sum(int(b.count) for b in src.bursts)
+
+    forces = pack_forces(look.forces, seed=look.seed, loop_period=period)
+    if exact:
+        w = 0
+        for i, f in enumerate(look.forces):
+            if f.kind == "wind":
+                used = forces.gust_periods[w][0]
+                w += 1
+                if f.gust > 0 and abs(used - f.gust_period) > 1e-9 * f.gust_period:
+                    notes.append(f"force[{i}].gust_period: {_fmt(f.gust_period)} s snapped to {_fmt(used)} s, a "
+                                 f"whole number of gust cycles per {_fmt(period)} s loop period (the faster gust "
+                                 f"components are snapped the same way)")
+            elif f.kind == "swirl" and f.evolve > 0:
+                notes.append(f"force[{i}].evolve: each swirl mode's frequency snapped to a whole number (>= 1) of "
+                             f"cycles per {_fmt(period)} s loop period, so the flow repeats with the loop")
+    return SimPlan(dt=dt, fps=float(clip.fps), substeps=int(clip.substeps), frames=int(clip.frames),
+                   integrator=clip.integrator, loop=clip.loop, warmup_steps=warmup_steps,
+                   warmup=warmup_steps * dt, period=period, period_steps=period_steps, rates=tuple(rates),
+                   schedules=tuple(schedules), gust_periods=forces.gust_periods, forces=forces,
+                   obstacles=pack_obstacles(look.obstacles), notes=tuple(notes), steady_state_puffs=steady)

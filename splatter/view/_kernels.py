@@ -1,0 +1,184 @@
+"""Private numba kernels behind :mod:`splatter.view.camera`.
+
+One family, three entry points, all ``prange`` over puffs where puff ``i``
+writes only row ``i`` of each output (so results do not depend on the thread
+count):
+
+* ``_puff_covariances``: world covariance of each puff (rotation, per-axis
+  sigmas, motion stretch);
+* ``_project``: camera frame, EWA projection (or the orthographic scale), low
+  pass and visibility, from given world covariances;
+* ``_project_puffs``: both in one pass, the 3x3 covariance kept in registers.
+
+The arithmetic mirrors the numpy formulas in :mod:`splatter.view.camera` term by
+term, so values agree with them to float64 round-off. Helpers are defined in
+this module (numba's cache does not see edits to inlined helpers elsewhere).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numba
+import numpy as np
+
+from splatter.core.jit import KERNEL, PARALLEL
+
+
+@numba.njit(inline="always", **KERNEL)
+def _cov_one(i, size, aspect, quat, vel, stretch):
+    """(c00, c01, c02, c11, c12, c22): R diag(s^2, (s a)^2, (s a)^2) R^T + L L^T / 12."""
+    qw = quat[i, 0]
+    qx = quat[i, 1]
+    qy = quat[i, 2]
+    qz = quat[i, 3]
+    norm = math.sqrt(qw * qw + qx * qx + qy * qy + qz * qz)
+    w = qw / norm
+    x = qx / norm
+    y = qy / norm
+    z = qz / norm
+    r00 = 1 - 2 * (y * y + z * z)
+    r01 = 2 * (x * y - w * z)
+    r02 = 2 * (x * z + w * y)
+    r10 = 2 * (x * y + w * z)
+    r11 = 1 - 2 * (x * x + z * z)
+    r12 = 2 * (y * z - w * x)
+    r20 = 2 * (x * z - w * y)
+    r21 = 2 * (y * z + w * x)
+    r22 = 1 - 2 * (x * x + y * y)
+    s = size[i]
+    sa = s * aspect[i]
+    v0 = s * s
+    v1 = sa * sa
+    l0 = stretch[i] * vel[i, 0]
+    l1 = stretch[i] * vel[i, 1]
+    l2 = stretch[i] * vel[i, 2]
+    c00 = (r00 * v0 * r00 + r01 * v1 * r01 + r02 * v1 * r02) + l0 * l0 / 12.0
+    c01 = (r00 * v0 * r10 + r01 * v1 * r11 + r02 * v1 * r12) + l0 * l1 / 12.0
+    c02 = (r00 * v0 * r20 + r01 * v1 * r21 + r02 * v1 * r22) + l0 * l2 / 12.0
+    c11 = (r10 * v0 * r10 + r11 * v1 * r11 + r12 * v1 * r12) + l1 * l1 / 12.0
+    c12 = (r10 * v0 * r20 + r11 * v1 * r21 + r12 * v1 * r22) + l1 * l2 / 12.0
+    c22 = (r20 * v0 * r20 + r21 * v1 * r21 + r22 * v1 * r22) + l2 * l2 / 12.0
+    return c00, c01, c02, c11, c12, c22
+
+
+@numba.njit(inline="always", **KERNEL)
+def _project_one(i, pos, c00, c01, c02, c10, c11, c12, c20, c21, c22, rot, eye, ortho,
+                 scale, width, height, near, low_pass, means, covs, depth, visible):
+    """Project puff ``i`` (world covariance ``c``) into row ``i`` of the outputs.
+
+    rot : (3, 3) float64, rows = camera-frame axes (x right, y down, z forward).
+    scale : pixels per world unit (orthographic) or focal length in pixels.
+    """
+    p0 = pos[i, 0] - eye[0]
+    p1 = pos[i, 1] - eye[1]
+    p2 = pos[i, 2] - eye[2]
+    t0 = p0 * rot[0, 0] + p1 * rot[0, 1] + p2 * rot[0, 2]
+    t1 = p0 * rot[1, 0] + p1 * rot[1, 1] + p2 * rot[1, 2]
+    t2 = p0 * rot[2, 0] + p1 * rot[2, 1] + p2 * rot[2, 2]
+    front = t2 > near
+    # m = rot c, then cc = m rot^T (the camera-frame covariance).
+    m00 = rot[0, 0] * c00 + rot[0, 1] * c10 + rot[0, 2] * c20
+    m01 = rot[0, 0] * c01 + rot[0, 1] * c11 + rot[0, 2] * c21
+    m02 = rot[0, 0] * c02 + rot[0, 1] * c12 + rot[0, 2] * c22
+    m10 = rot[1, 0] * c00 + rot[1, 1] * c10 + rot[1, 2] * c20
+    m11 = rot[1, 0] * c01 + rot[1, 1] * c11 + rot[1, 2] * c21
+    m12 = rot[1, 0] * c02 + rot[1, 1] * c12 + rot[1, 2] * c22
+    m20 = rot[2, 0] * c00 + rot[2, 1] * c10 + rot[2, 2] * c20
+    m21 = rot[2, 0] * c01 + rot[2, 1] * c11 + rot[2, 2] * c21
+    m22 = rot[2, 0] * c02 + rot[2, 1] * c12 + rot[2, 2] * c22
+    cc00 = m00 * rot[0, 0] + m01 * rot[0, 1] + m02 * rot[0, 2]
+    cc01 = m00 * rot[1, 0] + m01 * rot[1, 1] + m02 * rot[1, 2]
+    cc02 = m00 * rot[2, 0] + m01 * rot[2, 1] + m02 * rot[2, 2]
+    cc10 = m10 * rot[0, 0] + m11 * rot[0, 1] + m12 * rot[0, 2]
+    cc11 = m10 * rot[1, 0] + m11 * rot[1, 1] + m12 * rot[1, 2]
+    cc12 = m10 * rot[2, 0] + m11 * rot[2, 1] + m12 * rot[2, 2]
+    cc20 = m20 * rot[0, 0] + m21 * rot[0, 1] + m22 * rot[0, 2]
+    cc21 = m20 * rot[1, 0] + m21 * rot[1, 1] + m22 * rot[1, 2]
+    cc22 = m20 * rot[2, 0] + m21 * rot[2, 1] + m22 * rot[2, 2]
+    if ortho:
+        mx = 0.5 * width + scale * t0
+        my = 0.5 * height + scale * t1
+        k2 = scale * scale
+        sxx = k2 * cc00
+        sxy = k2 * cc01
+        syx = k2 * cc10
+        syy = k2 * cc11
+    elif front:
+        mx = 0.5 * width + scale * t0 / t2
+        my = 0.5 * height + scale * t1 / t2
+        # J = [[f/tz, 0, -f tx/tz^2], [0, f/tz, -f ty/tz^2]]; S2 = J cc J^T.
+        j00 = scale / t2
+        j02 = -scale * t0 / t2**2
+        j11 = scale / t2
+        j12 = -scale * t1 / t2**2
+        a0 = j00 * cc00 + j02 * cc20
+        a1 = j00 * cc01 + j02 * cc21
+        a2 = j00 * cc02 + j02 * cc22
+        b0 = j11 * cc10 + j12 * cc20
+        b1 = j11 * cc11 + j12 * cc21
+        b2 = j11 * cc12 + j12 * cc22
+        sxx = a0 * j00 + a2 * j02
+        sxy = a1 * j11 + a2 * j12
+        syx = b0 * j00 + b2 * j02
+        syy = b1 * j11 + b2 * j12
+    else:
+        # Finite placeholder: a unit covariance on the axis, as the numpy path.
+        mx = 0.0
+        my = 0.0
+        sxx = scale * scale
+        sxy = 0.0
+        syx = 0.0
+        syy = scale * scale
+    sxx += low_pass
+    syy += low_pass
+    rx = 3.0 * math.sqrt(sxx)
+    ry = 3.0 * math.sqrt(syy)
+    on = (mx + rx > 0) & (mx - rx < width) & (my + ry > 0) & (my - ry < height)
+    finite = (math.isfinite(sxx) & math.isfinite(sxy) & math.isfinite(syx)
+              & math.isfinite(syy))
+    means[i, 0] = np.float32(mx)
+    means[i, 1] = np.float32(my)
+    covs[i, 0, 0] = np.float32(sxx)
+    covs[i, 0, 1] = np.float32(sxy)
+    covs[i, 1, 0] = np.float32(syx)
+    covs[i, 1, 1] = np.float32(syy)
+    depth[i] = np.float32(t2)
+    visible[i] = front & on & finite
+
+
+@numba.njit(**PARALLEL)
+def _puff_covariances(size, aspect, quat, vel, stretch, out):
+    """out (N, 3, 3) float64: world covariance of each puff."""
+    for i in numba.prange(size.shape[0]):
+        c00, c01, c02, c11, c12, c22 = _cov_one(i, size, aspect, quat, vel, stretch)
+        out[i, 0, 0] = c00
+        out[i, 0, 1] = c01
+        out[i, 0, 2] = c02
+        out[i, 1, 0] = c01
+        out[i, 1, 1] = c11
+        out[i, 1, 2] = c12
+        out[i, 2, 0] = c02
+        out[i, 2, 1] = c12
+        out[i, 2, 2] = c22
+
+
+@numba.njit(**PARALLEL)
+def _project(pos, cov, rot, eye, ortho, scale, width, height, near, low_pass,
+             means, covs, depth, visible):
+    """Project puffs with given world covariances (N, 3, 3) float64."""
+    for i in numba.prange(pos.shape[0]):
+        _project_one(i, pos, cov[i, 0, 0], cov[i, 0, 1], cov[i, 0, 2],
+                     cov[i, 1, 0], cov[i, 1, 1], cov[i, 1, 2],
+                     cov[i, 2, 0], cov[i, 2, 1], cov[i, 2, 2], rot, eye, ortho, scale,
+                     width, height, near, low_pass, means, covs, depth, visible)
+
+
+@numba.njit(**PARALLEL)
+def _project_puffs(pos, size, aspect, quat, vel, stretch, rot, eye, ortho, scale, width,
+                   height, near, low_pass, means, covs, depth, visible):
+    """Puff covariance and projection in one pass per puff."""
+    for i in numba.prange(pos.shape[0]):
+        c00, c01, c02, c11, c12, c22 = _cov_one(i, size, aspect, quat, vel, stretch)
+        _project_one(i, pos, c00, c01, c02, c01, c11, c12, c02, c12, c22, rot, eye, ortho,
+                     scale, width, height, near, low_pass, means, covs, depth, visible)

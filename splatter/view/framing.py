@@ -1,0 +1,208 @@
+"""Framing: what counts as visible smoke, a camera fitted to it, smoke cut off at the border.
+
+One rule decides all three: smoke is visible where its alpha reaches
+:data:`~splatter.core.thresholds.VISIBLE_ALPHA` (one 8-bit step). A puff of
+peak opacity ``a`` shows alpha ``>= t`` out to ``sigma sqrt(2 ln(a / t))``,
+never past the footprint's cutoff (:data:`~splatter.core.thresholds.CUTOFF`
+sigmas). ``camera.fit`` frames out to a quarter of that step
+(:data:`~splatter.core.thresholds.FIT_ALPHA`) so faint rims that overlap near
+the edge still stay below one step there; ``check`` flags puffs whose cut-off
+rim is still visible; ``render`` measures the alpha on the image's outermost
+pixels.
+
+Examples
+--------
+>>> import numpy as np
+>>> np.round(visible_reach(np.array([0.001, 0.05, 0.9]), VISIBLE_ALPHA), 3)  # in sigmas
+array([0.   , 2.256, 3.   ])
+>>> alpha = np.zeros((4, 4)); alpha[1:3, 1:3] = 0.5; alpha[0, 0] = 0.5
+>>> max_border_alpha(alpha), border_alpha_share(alpha)
+(0.5, 0.2)
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import replace
+
+import numpy as np
+
+from splatter.core.thresholds import CUTOFF, FIT_ALPHA, VISIBLE_ALPHA
+from splatter.view.camera import _check_array
+
+__all__ = ["visible_reach", "fit_view", "fit_camera", "border_alpha_share", "max_border_alpha",
+           "cut_by_border", "RIM_VISIBLE_OPACITY"]
+
+RIM_VISIBLE_OPACITY = VISIBLE_ALPHA / np.exp(-0.5 * CUTOFF**2)
+"""Peak opacity at which a puff's alpha at its cutoff rim is still visible: a cut there shows."""
+
+
+def visible_reach(peak, alpha):
+    """How far out, in sigmas, a puff of peak opacity ``peak`` shows alpha ``>= alpha``.
+
+    Parameters
+    ----------
+    peak : (N,) float ndarray
+    alpha : float
+
+    Returns
+    -------
+    (N,) float64 ndarray
+        ``min(CUTOFF, sqrt(2 ln(peak / alpha)))``, 0 where ``peak <= alpha``.
+    """
+    ratio = np.maximum(np.asarray(peak, dtype=np.float64) * (1.0 / alpha), 1.0)
+    return np.minimum(CUTOFF, np.sqrt(2.0 * np.log(ratio)))
+
+
+def fit_view(camera, points, radii, *, margin):
+    """A camera framed so every puff's cutoff sphere lands inside the image.
+
+    The view direction (``target - eye``) and ``up`` are kept. Orthographic:
+    eye and target move sideways to centre the spheres' extent and
+    ``view_width`` is chosen so the tighter axis just fits. Perspective:
+    ``fov`` is kept; the eye moves sideways and along the view direction to
+    the closest position from which every sphere lies inside the view cone
+    shrunk by the margin (one axis touches both edges, the other is centred);
+    the target is put on the new axis at the mean depth of ``points``.
+
+    Parameters
+    ----------
+    camera : Camera
+    points : (M, 3) float64 ndarray
+        Puff centres over the whole clip.
+    radii : (M,) float64 ndarray
+        Puff sigmas; each sphere has radius ``CUTOFF * radii``.
+    margin : float
+        Fraction of the image width (height) kept clear at the left and right
+        (top and bottom) edges, in [0, 0.5).
+
+    Returns
+    -------
+    Camera
+    """
+    points = _check_array(points, "points", (3,))
+    radii = np.asarray(radii, dtype=np.float64)
+    if radii.shape != (points.shape[0],) or not np.all(np.isfinite(radii)) or np.any(radii < 0):
+        raise ValueError(f"radii: expected {points.shape[0]} finite values >= 0")
+    if not (0.0 <= margin < 0.5):
+        raise ValueError(f"margin: expected a fraction in [0, 0.5), got {margin!r}")
+    if points.shape[0] == 0:
+        return camera
+    s, u, f = camera.axes
+    rho = CUTOFF * radii
+    xs, ys, zs = points @ s, points @ u, points @ f
+    keep = 1.0 - 2.0 * margin
+    aspect = camera.width / camera.height
+    if camera.projection == "orthographic":
+        x0, x1 = np.min(xs - rho), np.max(xs + rho)
+        y0, y1 = np.min(ys - rho), np.max(ys + rho)
+        cx, cy = 0.5 * (x0 + x1), 0.5 * (y0 + y1)
+        span = max(x1 - x0, (y1 - y0) * aspect, 1e-9)
+        eye = np.asarray(camera.eye)
+        shift = (cx - eye @ s) * s + (cy - eye @ u) * u
+        return replace(camera, eye=tuple(eye + shift), target=tuple(np.asarray(camera.target) + shift),
+                       view_width=float(span / keep))
+    ty = math.tan(math.radians(camera.fov) / 2) * keep
+    tx = ty * aspect
+    # Sphere inside the wedge |x| <= T z  <=>  T z -+ x >= rho sqrt(1 + T^2).
+    ex, ezx = _fit_axis(xs, zs, rho, tx)
+    ey, ezy = _fit_axis(ys, zs, rho, ty)
+    ez = min(ezx, ezy)
+    eye = ex * s + ey * u + ez * f
+    depth = max(float(np.mean(zs)) - ez, 1e-6)
+    return replace(camera, eye=tuple(eye), target=tuple(eye + depth * f))
+
+
+def _fit_axis(xs, zs, rho, tan_half):
+    """Eye offset (across, along) so spheres fit |x - e| <= tan_half (z - ez)."""
+    k = rho * math.sqrt(1.0 + tan_half**2)
+    a = np.min(tan_half * zs - xs - k)
+    b = np.min(tan_half * zs + xs - k)
+    return 0.5 * (b - a), 0.5 * (a + b) / tan_half
+
+
+def border_alpha_share(alpha):
+    """Share of the total alpha lying in the image's 1-pixel frame.
+
+    The frame is the first and last rows and columns (each pixel counted
+    once). A large share means sprites are cut off at the edge.
+
+    Parameters
+    ----------
+    alpha : (H, W) float ndarray
+
+    Returns
+    -------
+    float
+        ``sum(alpha on the frame) / sum(alpha)``, 0.0 for an empty image.
+    """
+    alpha = np.asarray(alpha, dtype=np.float64)
+    if alpha.ndim != 2:
+        raise ValueError(f"alpha: expected shape (H, W), got {alpha.shape}")
+    total = alpha.sum()
+    if total <= 0:
+        return 0.0
+    inner = alpha[1:-1, 1:-1].sum() if min(alpha.shape) > 2 else 0.0
+    return float((total - inner) / total)
+
+
+def fit_camera(camera, states, *, opacity_of, margin):
+    """``camera`` framed on what is visible of every puff in ``states``.
+
+    Parameters
+    ----------
+    camera : Camera
+    states : iterable of FrameState
+        The frames to frame (usually the whole clip).
+    opacity_of : callable
+        ``opacity_of(state) -> (N,)`` each puff's peak opacity as composited.
+    margin : float
+        Fraction of the image kept clear at each edge.
+
+    Returns
+    -------
+    Camera
+    """
+    pts, rad = [], []
+    for state in states:
+        peak = opacity_of(state)
+        visible = peak * (1.0 / FIT_ALPHA) > 1.0
+        reach = visible_reach(peak[visible], FIT_ALPHA) / CUTOFF
+        # The long axis of a stretched puff: size, or half the smear length.
+        smear = np.linalg.norm(state.vel[visible], axis=1) * state.stretch[visible] * 0.5
+        pts.append(state.pos[visible])
+        rad.append(np.maximum(state.size[visible], smear / CUTOFF) * reach)
+    points = np.concatenate(pts) if pts else np.zeros((0, 3))
+    radii = np.concatenate(rad) if rad else np.zeros(0)
+    if points.shape[0] == 0:
+        return camera
+    return fit_view(camera, points, radii, margin=margin)
+
+
+def max_border_alpha(alpha) -> float:
+    """The highest alpha on the image's outermost pixel ring; :data:`VISIBLE_ALPHA` or more shows a cut."""
+    alpha = np.asarray(alpha)
+    return float(max(alpha[0].max(), alpha[-1].max(), alpha[:, 0].max(), alpha[:, -1].max()))
+
+
+def cut_by_border(splats, peak, width, height):
+    """Which projected puffs have a visible rim cut by the image edge.
+
+    Parameters
+    ----------
+    splats : Splats
+        Projected puffs (``means (N, 2)``, ``covs (N, 2, 2)``, ``visible (N,)``).
+    peak : (N,) float ndarray
+        Peak opacity as composited.
+    width, height : int
+
+    Returns
+    -------
+    (N,) bool ndarray
+    """
+    rx = CUTOFF * np.sqrt(np.asarray(splats.covs[:, 0, 0], dtype=np.float64))
+    ry = CUTOFF * np.sqrt(np.asarray(splats.covs[:, 1, 1], dtype=np.float64))
+    mx = np.asarray(splats.means[:, 0], dtype=np.float64)
+    my = np.asarray(splats.means[:, 1], dtype=np.float64)
+    cut = (mx - rx < 0) | (mx + rx > width) | (my - ry < 0) | (my + ry > height)
+    return cut & np.asarray(splats.visible, dtype=bool) & (peak >= RIM_VISIBLE_OPACITY)

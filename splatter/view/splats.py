@@ -1,0 +1,198 @@
+"""Turn one frame's puffs into screen splats: the project stage.
+
+Takes the simulation's per-puff arrays (any object with the
+:class:`~splatter.sim.driver.FrameState` fields; this module does not import the
+simulation) and a :class:`~splatter.view.camera.Camera`, and returns what the
+compositor needs: means, covariances, per-splat feature channels and
+opacities, culled and ordered back to front.
+
+Feature channels, in this order:
+
+* ``r, g, b``: lit straight colour plus glow (glow adds emitted light in
+  proportion to the puff's coverage and is never shadowed);
+* ``motion.x, motion.y``: screen velocity in pixels per frame (x right,
+  y down), when motion maps are asked for;
+* ``depth.z``: view depth in world units, when depth maps are asked for;
+* ``lightdirs.*``: six lighting factors, when light-direction maps are asked for.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Dict, Optional, Tuple
+
+import numpy as np
+
+from splatter.core.thresholds import MAX_OPACITY
+from splatter.view.camera import Camera, project_puffs
+
+__all__ = ["ScreenSplats", "make_splats", "effective_opacity", "feature_layout"]
+
+
+@dataclass(frozen=True)
+class ScreenSplats:
+    """Splats ready for :func:`splatter.raster.compositor.composite_features`.
+
+    Attributes
+    ----------
+    means : (N, 2) float32 ndarray
+    covs : (N, 2, 2) float32 ndarray
+    features : (N, K) float32 ndarray
+    opacities : (N,) float32 ndarray
+    depth : (N,) float32 ndarray
+    channels : dict of str to int
+        Feature name to column (``"r"``, ``"motion.x"``, ...).
+    """
+
+    means: np.ndarray
+    covs: np.ndarray
+    features: np.ndarray
+    opacities: np.ndarray
+    depth: np.ndarray
+    channels: Dict[str, int]
+
+
+LIGHTDIR_NAMES = ("right", "left", "top", "bottom", "front", "back")
+
+
+def feature_layout(*, motion: bool, depth: bool, lightdirs: bool) -> Dict[str, int]:
+    """Column of each feature channel for the maps asked for."""
+    names = ["r", "g", "b"]
+    if motion:
+        names += ["motion.x", "motion.y"]
+    if depth:
+        names += ["depth.z"]
+    if lightdirs:
+        names += [f"lightdirs.{d}" for d in LIGHTDIR_NAMES]
+    return {n: i for i, n in enumerate(names)}
+
+
+def effective_opacity(opacity, density, blend: str):
+    """Peak opacity handed to the compositor.
+
+    ``absorb`` reads opacity as the puff's own peak opacity and ``density``
+    multiplies its optical depth: ``1 - (1 - opacity) ** density``. The other
+    modes ignore ``density``.
+    """
+    opacity = np.clip(np.asarray(opacity, dtype=np.float64), 0.0, 1.0)
+    if blend != "absorb":
+        return opacity
+    return 1.0 - np.power(1.0 - np.minimum(opacity, MAX_OPACITY), np.asarray(density, dtype=np.float64))
+
+
+def make_splats(
+    state,
+    camera: Camera,
+    *,
+    blend: str,
+    fps: float,
+    channels: Dict[str, int],
+    light_factor: Optional[np.ndarray] = None,
+    lightdir_factors: Optional[np.ndarray] = None,
+) -> ScreenSplats:
+    """Project one frame's puffs to screen splats, culled and ordered.
+
+    Parameters
+    ----------
+    state : FrameState-like
+        Per-puff arrays ``pos (M, 3)``, ``vel (M, 3)``, ``size``, ``aspect``,
+        ``quat (M, 4)``, ``stretch``, ``opacity``, ``density``, ``color (M, 3)``,
+        ``glow (M, 3)``, ordered by source and spawn slot (as
+        :func:`splatter.sim.driver.simulate` yields them).
+    camera : Camera
+    blend : {"over", "add", "absorb"}
+    fps : float
+        Frames per second, to express screen motion per frame.
+    channels : dict
+        From :func:`feature_layout`.
+    light_factor : (M, 3) float ndarray, optional
+        Linear light reaching each puff (multiplies its colour); ``None`` is unlit.
+    lightdir_factors : (M, 6) float ndarray, optional
+        Lighting factors for the six light-direction maps.
+
+    Returns
+    -------
+    ScreenSplats
+        Back to front for ``"over"`` (farthest first; ties broken by source
+        and spawn slot so an exact loop's seam frames match bit for bit).
+    """
+    k = len(channels)
+    m = len(state.size)
+    if m == 0:
+        return _empty(k, channels)
+    screen = project_puffs(camera, state.pos, state.size, state.aspect, state.quat, state.vel, state.stretch)
+    keep = np.asarray(screen.visible, dtype=bool)
+    opac = effective_opacity(state.opacity, state.density, blend)
+    keep &= opac > 0.0
+    idx = np.nonzero(keep)[0]
+    if idx.size == 0:
+        return _empty(k, channels)
+    depth = np.asarray(screen.depth)[idx]
+    if blend == "over":
+        # The simulation hands puffs over ordered by (source, slot, id), so a
+        # stable sort on depth breaks ties the same way at an exact loop's seam.
+        order = np.argsort(-depth, kind="stable")
+        idx = idx[order]
+        depth = depth[order]
+    feats = np.empty((idx.size, k), dtype=np.float32)
+    colour = np.asarray(state.color, dtype=np.float64)[idx]
+    if light_factor is not None:
+        colour = colour * np.asarray(light_factor, dtype=np.float64)[idx]
+    feats[:, 0:3] = colour + np.asarray(state.glow, dtype=np.float64)[idx]
+    if "motion.x" in channels:
+        vel_px = camera.project_velocity(state.pos[idx], state.vel[idx]) / fps
+        feats[:, channels["motion.x"]] = vel_px[:, 0]
+        feats[:, channels["motion.y"]] = vel_px[:, 1]
+    if "depth.z" in channels:
+        feats[:, channels["depth.z"]] = depth
+    if "lightdirs.right" in channels:
+        c0 = channels["lightdirs.right"]
+        feats[:, c0 : c0 + 6] = np.asarray(lightdir_factors, dtype=np.float32)[idx]
+    return ScreenSplats(
+        means=np.ascontiguousarray(np.asarray(screen.means, dtype=np.float32)[idx]),
+        covs=np.ascontiguousarray(np.asarray(screen.covs, dtype=np.float32)[idx]),
+        features=feats,
+        opacities=opac[idx].astype(np.float32),
+        depth=depth.astype(np.float32),
+        channels=channels,
+    )
+
+
+def _empty(k: int, channels) -> ScreenSplats:
+    return ScreenSplats(
+        means=np.zeros((0, 2), np.float32),
+        covs=np.zeros((0, 2, 2), np.float32),
+        features=np.zeros((0, k), np.float32),
+        opacities=np.zeros(0, np.float32),
+        depth=np.zeros(0, np.float32),
+        channels=channels,
+    )
+
+
+def split_layers(image: np.ndarray, channels: Dict[str, int]) -> Tuple[np.ndarray, Dict[str, np.ndarray]]:
+    """Split a composited ``(H, W, K+1)`` image into RGBA and straight map layers.
+
+    Parameters
+    ----------
+    image : (H, W, K + 1) float32 ndarray
+        Premultiplied features with alpha last.
+    channels : dict
+        From :func:`feature_layout`.
+
+    Returns
+    -------
+    rgba : (H, W, 4) float32 ndarray
+        Premultiplied linear RGBA.
+    layers : dict of str to (H, W) float32 ndarray
+        Each extra channel divided by alpha (alpha-weighted average of the
+        puffs' values), 0 where alpha is 0.
+    """
+    alpha = image[..., -1]
+    rgba = np.concatenate([image[..., 0:3], alpha[..., None]], axis=2)
+    layers = {}
+    safe = np.where(alpha > 0, alpha, 1.0).astype(np.float32)
+    for name, col in channels.items():
+        if col < 3:
+            continue
+        layers[name] = np.where(alpha > 0, image[..., col] / safe, 0.0).astype(np.float32)
+    return np.ascontiguousarray(rgba, dtype=np.float32), layers
