@@ -81,3 +81,16 @@ def test_vortex_is_rankine():
     div = sum((air_velocity(p + h * e, time=0.0, forces=f)[:, j] - air_velocity(p - h * e, time=0.0, forces=f)[:, j])
               / (2 * h) for j, e in enumerate(np.eye(3)))
     assert np.abs(div).max() < 1e-6
+
+
+def test_every_registered_kind_is_simulated():
+    # One registry (look.records.FORCE_KINDS / OBSTACLE_KINDS) for the schema,
+    # the simulation and check: every kind it names must pack into the step's
+    # tables, and an unregistered record is refused by name.
+    from splatter.look.records import FORCE_KINDS, OBSTACLE_KINDS
+    from splatter.sim.obstacles import pack_obstacles
+
+    pack_forces(tuple(cls() for cls in FORCE_KINDS.values()), seed=1)
+    pack_obstacles(tuple(cls() for cls in OBSTACLE_KINDS.values()))
+    with pytest.raises(TypeError, match="FORCE_KINDS"):
+        pack_forces((object(),), seed=1)

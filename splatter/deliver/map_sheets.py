@@ -16,6 +16,7 @@ import numpy as np
 
 from splatter.core.args import check_choice
 from splatter.core.choices import EXR_TYPES, FRAME_FORMATS, PNG_BITS
+from splatter.core.thresholds import VISIBLE_ALPHA
 from splatter.deliver.display import quantize
 from splatter.deliver.exr import write_exr
 from splatter.deliver.map_encode import encode_depth, encode_normal, encode_signed
@@ -26,7 +27,7 @@ from splatter.deliver.sheet import assemble_sheet
 __all__ = ["write_map_sheet", "write_lightdirs_sheets", "write_motion_sheet", "write_depth_sheet",
            "write_normal_sheet", "write_lightdirs_map", "MAP_COVERED"]
 
-MAP_COVERED = 1.0 / 255.0
+MAP_COVERED = VISIBLE_ALPHA
 """Alpha above which a texel counts when a map's range (motion scale, depth near and far) is measured."""
 
 _MAP_FADE = 1.0 / 32.0  # map texels fade to neutral below this alpha
