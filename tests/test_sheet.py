@@ -201,3 +201,14 @@ def test_errors(tmp_path):
         sheet_layout(0, 8, 8)
     with pytest.raises(ValueError, match="loop"):
         write_sheet(tmp_path, "x", [np.zeros((8, 8, 4), np.float32)] * 2, lay, loop="forever")
+
+
+def test_cell_size_sets_the_sheet_exactly():
+    # Common practice: an engine plays cell k at uv / (columns, rows), so the
+    # sheet must be exactly columns x cell by rows x cell, padding inside.
+    layout = sheet_layout(64, 512, 512, columns=8, rows=8, padding=2, cell=256)
+    assert (layout.width, layout.height) == (2048, 2048)
+    assert layout.cells[10] == (10, 2 * 256 + 2, 1 * 256 + 2, 252, 252)  # column 2, row 1
+    assert layout.resampled
+    wide = sheet_layout(4, 400, 200, columns=2, padding=1, cell=100)
+    assert (wide.width, wide.height, wide.cells[3].y) == (200, 100, 51)

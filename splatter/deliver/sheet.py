@@ -181,7 +181,7 @@ def _next_pow2(n):
     return 1 << max(0, (int(n) - 1).bit_length())
 
 
-def sheet_layout(n_frames, frame_w, frame_h, *, columns=None, rows=None, padding=0, pow2=False):
+def sheet_layout(n_frames, frame_w, frame_h, *, columns=None, rows=None, padding=0, pow2=False, cell=None):
     """Compute the grid, sheet size and cell rectangles for a flipbook.
 
     Parameters
@@ -198,6 +198,10 @@ def sheet_layout(n_frames, frame_w, frame_h, *, columns=None, rows=None, padding
         Gutter in pixels on each side of every cell's content, >= 0.
     pow2 : bool
         Power-of-two sheet; frames are resampled into the cells when needed.
+    cell : int, optional
+        Cell width in pixels, padding included; the cell height follows the
+        frame's aspect. Frames are resampled to fit (for example 512 px
+        frames in 256 px cells). Default: the frame plus its padding.
 
     Returns
     -------
@@ -232,12 +236,18 @@ def sheet_layout(n_frames, frame_w, frame_h, *, columns=None, rows=None, padding
         rws = check_int(rows, "rows")
         if cols * rws < n:
             raise ValueError(f"columns, rows: a {cols} x {rws} grid holds {cols * rws} frames, need {n}")
-    if pow2:
-        width = max(4, _next_pow2(cols * fw))
-        height = max(4, _next_pow2(rws * fh))
-        cw, ch = width // cols, height // rws
+    if cell is not None:
+        cw = check_int(cell, "cell")
+        ch = max(1, round(cw * fh / fw))
+        sw, sh = cols * cw, rws * ch
     else:
         cw, ch = fw + 2 * pad, fh + 2 * pad
+        sw, sh = cols * fw, rws * fh
+    if pow2:
+        width = max(4, _next_pow2(sw))
+        height = max(4, _next_pow2(sh))
+        cw, ch = width // cols, height // rws
+    else:
         width, height = _round_up(cols * cw, 4), _round_up(rws * ch, 4)
     iw, ih = cw - 2 * pad, ch - 2 * pad
     if iw < 1 or ih < 1:

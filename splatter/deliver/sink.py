@@ -116,7 +116,8 @@ class OutputSink:
         look, spec = self.look, self.look.output.sheet
         h, w = self._sheet_frames[0].shape[:2]
         layout = sheet_layout(
-            len(self._sheet_frames), w, h, columns=spec.columns, rows=spec.rows, padding=spec.padding, pow2=spec.pow2
+            len(self._sheet_frames), w, h, columns=spec.columns, rows=spec.rows, padding=spec.padding, pow2=spec.pow2,
+            cell=spec.cell,
         )
         layers = self._sheet_layers
         alpha = [f[..., 3] for f in self._sheet_frames]

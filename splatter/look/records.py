@@ -268,6 +268,7 @@ class SheetSpec:
     padding: int = key(2, number(0, 256, integer=True))
     pow2: bool = key(False, boolean)
     format: str = key("png", choice(*FRAME_FORMATS))
+    cell: Optional[int] = key(None, number(4, MAX_SHEET, integer=True))  # cell width, padding included
 
 
 @dataclass(frozen=True)

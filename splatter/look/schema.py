@@ -176,8 +176,12 @@ def _cross_checks(spec: L.LookSpec, ctx: Ctx) -> None:
             octx.child("rows").fail(f"columns x rows >= clip.frames ({n})", f"{sheet.columns} x {sheet.rows}", raw=True)
         cols = sheet.columns or (math.ceil(n / sheet.rows) if sheet.rows else math.ceil(math.sqrt(n)))
         rows = sheet.rows or math.ceil(n / cols)
-        w = cols * (spec.image.width + 2 * sheet.padding)
-        h = rows * (spec.image.height + 2 * sheet.padding)
+        cw = sheet.cell or spec.image.width + 2 * sheet.padding
+        ch = max(1, round(sheet.cell * spec.image.height / spec.image.width)) if sheet.cell else (
+            spec.image.height + 2 * sheet.padding)
+        w, h = cols * cw, rows * ch
+        if sheet.cell and sheet.cell <= 2 * sheet.padding:
+            octx.child("cell").fail(f"a cell wider than twice the padding ({2 * sheet.padding} px)", sheet.cell)
         if max(w, h) > MAX_SHEET:
             octx.fail(f"a sheet at most {MAX_SHEET} px on a side", f"{w} x {h} px", raw=True)
     if not spec.output.frames and spec.output.sheet is None and not spec.output.preview:
