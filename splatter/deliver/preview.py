@@ -21,7 +21,7 @@ from splatter.deliver.fileio import atomic_path
 from splatter.deliver.sheet import sheet_layout
 from splatter.deliver.png import write_png_encoded
 
-__all__ = ["checker", "over_checker", "write_gif", "write_mp4", "write_contact_sheet"]
+__all__ = ["write_gif_codes", "write_mp4_codes", "write_contact_codes", "checker", "over_checker", "write_gif", "write_mp4", "write_contact_sheet"]
 
 # Two neutral greys, given as sRGB code values (102 and 153 of 255) so the
 # checker looks even on screen; composited in linear light.
@@ -118,13 +118,17 @@ def write_gif(path, frames_premult_linear, fps, *, exposure=0.0):
     ``NETSCAPE2.0`` loop count 0 (forever). Pillow merges consecutive frames
     that are identical into one longer frame.
     """
+    fps = check_positive(fps, "fps")
+    return write_gif_codes(path, _preview_frames(frames_premult_linear, exposure), fps)
+
+
+def write_gif_codes(path, codes, fps):
+    """:func:`write_gif` from frames already over the checker: a list of (H, W, 3) uint8 sRGB codes."""
     import imageio.v3 as iio
 
-    fps = check_positive(fps, "fps")
-    codes = np.stack(_preview_frames(frames_premult_linear, exposure))
     duration_ms = 10.0 * max(1, round(100.0 / fps))
     with atomic_path(path, suffix=".gif") as tmp:
-        iio.imwrite(tmp, codes, plugin="pillow", extension=".gif", duration=duration_ms, loop=0)
+        iio.imwrite(tmp, np.stack(codes), plugin="pillow", extension=".gif", duration=duration_ms, loop=0)
     return os.fspath(path)
 
 
@@ -154,14 +158,19 @@ def write_mp4(path, frames_premult_linear, fps, *, exposure=0.0, quality=8, repe
     str
         ``path``.
     """
-    import imageio.v2 as iio2
-
     fps = check_positive(fps, "fps")
     if isinstance(repeat, bool) or not isinstance(repeat, int) or repeat < 1:
         raise ValueError(f"repeat: expected an integer >= 1, got {repeat!r}")
     if not 0 <= quality <= 10:
         raise ValueError(f"quality: expected a number from 0 to 10, got {quality!r}")
-    codes = _preview_frames(frames_premult_linear, exposure, even=True)
+    return write_mp4_codes(path, _preview_frames(frames_premult_linear, exposure, even=True), fps, quality=quality,
+                           repeat=repeat)
+
+
+def write_mp4_codes(path, codes, fps, *, quality=8, repeat=1):
+    """:func:`write_mp4` from frames already over the checker: a list of (H, W, 3) uint8 codes of even size."""
+    import imageio.v2 as iio2
+
     with atomic_path(path, suffix=".mp4") as tmp:
         writer = iio2.get_writer(tmp, format="FFMPEG", mode="I", fps=fps, codec="libx264", quality=quality,
                                  pixelformat="yuv420p", macro_block_size=1, ffmpeg_log_level="error")
@@ -201,7 +210,12 @@ def write_contact_sheet(path, frames_premult_linear, *, columns=None, label=True
     str
         ``path``.
     """
-    codes = _preview_frames(frames_premult_linear, exposure)
+    return write_contact_codes(path, _preview_frames(frames_premult_linear, exposure), columns=columns, label=label,
+                               numbers=numbers, gap=gap)
+
+
+def write_contact_codes(path, codes, *, columns=None, label=True, numbers=None, gap=2):
+    """:func:`write_contact_sheet` from frames already over the checker: a list of (H, W, 3) uint8 codes."""
     if numbers is None:
         numbers = range(len(codes))
     numbers = [int(k) for k in numbers]

@@ -265,6 +265,47 @@ def _resample(frame, w, h):
     return out
 
 
+def empty_sheet(layout, channels, *, background=None):
+    """A ``(layout.height, layout.width, channels)`` float32 sheet filled with ``background`` (default 0)."""
+    sheet = np.zeros((layout.height, layout.width, channels), dtype=np.float32)
+    if background is not None:
+        sheet[...] = np.asarray(background, dtype=np.float32).reshape(-1)[:channels]
+    return sheet
+
+
+def place_frame(sheet, layout, k, frame, *, clip_alpha=True):
+    """Put frame ``k`` into its cell of ``sheet``, resampled when the cell's size differs.
+
+    Parameters
+    ----------
+    sheet : (layout.height, layout.width, C) float32 ndarray
+        Written in place.
+    layout : SheetLayout
+    k : int
+        Frame index (its cell).
+    frame : (layout.frame_height, layout.frame_width[, C]) float ndarray
+    clip_alpha : bool
+        See :func:`assemble_sheet`.
+    """
+    f = np.asarray(frame)
+    if f.ndim == 2:
+        f = f[..., None]
+    if f.ndim != 3 or f.shape[:2] != (layout.frame_height, layout.frame_width):
+        raise ValueError(
+            f"frames[{k}]: expected shape ({layout.frame_height}, {layout.frame_width}, C), got {np.shape(frame)}"
+        )
+    if f.shape[2] != sheet.shape[2]:
+        raise ValueError(f"frames[{k}]: {f.shape[2]} channels, frame 0 has {sheet.shape[2]}")
+    cell = layout.cells[k]
+    f = f.astype(np.float32, copy=False)
+    if (cell.w, cell.h) != f.shape[1::-1]:
+        f = _resample(f, cell.w, cell.h)
+        if clip_alpha:
+            np.clip(f[..., :-1], 0.0, None, out=f[..., :-1])
+            np.clip(f[..., -1], 0.0, 1.0, out=f[..., -1])
+    sheet[cell.y : cell.y + cell.h, cell.x : cell.x + cell.w] = f
+
+
 def assemble_sheet(frames, layout, *, clip_alpha=True, background=None):
     """Place frames into one sheet image.
 
@@ -296,26 +337,9 @@ def assemble_sheet(frames, layout, *, clip_alpha=True, background=None):
         if k >= layout.frames:
             raise ValueError(f"frames: more than the layout's {layout.frames} frames")
         f = np.asarray(frame)
-        if f.ndim == 2:
-            f = f[..., None]
-        if f.ndim != 3 or f.shape[:2] != (layout.frame_height, layout.frame_width):
-            raise ValueError(
-                f"frames[{k}]: expected shape ({layout.frame_height}, {layout.frame_width}, C), got {np.shape(frame)}"
-            )
         if sheet is None:
-            sheet = np.zeros((layout.height, layout.width, f.shape[2]), dtype=np.float32)
-            if background is not None:
-                sheet[...] = np.asarray(background, dtype=np.float32).reshape(-1)[: f.shape[2]]
-        elif f.shape[2] != sheet.shape[2]:
-            raise ValueError(f"frames[{k}]: {f.shape[2]} channels, frame 0 has {sheet.shape[2]}")
-        cell = layout.cells[k]
-        f = f.astype(np.float32, copy=False)
-        if (cell.w, cell.h) != f.shape[1::-1]:
-            f = _resample(f, cell.w, cell.h)
-            if clip_alpha:
-                np.clip(f[..., :-1], 0.0, None, out=f[..., :-1])
-                np.clip(f[..., -1], 0.0, 1.0, out=f[..., -1])
-        sheet[cell.y : cell.y + cell.h, cell.x : cell.x + cell.w] = f
+            sheet = empty_sheet(layout, f.shape[2] if f.ndim == 3 else 1, background=background)
+        place_frame(sheet, layout, k, f, clip_alpha=clip_alpha)
     if k + 1 != layout.frames:
         raise ValueError(f"frames: got {k + 1} frames, the layout has {layout.frames}")
     return sheet
@@ -379,8 +403,18 @@ def write_sheet(
     check_positive(fps, "fps")
     if maps is not None and not isinstance(maps, dict):
         raise TypeError(f"maps: expected a dict of map entries, got {type(maps).__name__}")
+    return write_sheet_image(dir, name, assemble_sheet(frames_premult_linear, layout), layout, format=format,
+                             alpha=alpha, png_bits=png_bits, exr_type=exr_type, fps=fps, loop=loop, maps=maps,
+                             exposure=exposure)
+
+
+def write_sheet_image(dir, name, sheet, layout, *, format="png", alpha="straight", png_bits=8, exr_type="half",
+                      fps=30, loop="none", maps=None, exposure=0.0):
+    """:func:`write_sheet` from a sheet already assembled (:func:`assemble_sheet`, :func:`place_frame`).
+
+    ``sheet`` is ``(layout.height, layout.width, 4)`` float32, linear premultiplied; it may be modified.
+    """
     dir = os.fspath(dir)
-    sheet = assemble_sheet(frames_premult_linear, layout)
     if sheet.shape[2] != 4:
         raise ValueError(f"frames_premult_linear: expected 4 channels (RGBA), got {sheet.shape[2]}")
     image = sheet_file(name, format)

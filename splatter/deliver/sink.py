@@ -23,13 +23,14 @@ from splatter.deliver.exr import rgba_channels, write_exr
 from splatter.deliver.map_sheets import write_depth_sheet, write_lightdirs_map, write_motion_sheet, write_normal_sheet
 from splatter.deliver.names import frame_file, preview_file
 from splatter.deliver.png import write_png
-from splatter.deliver.preview import write_contact_sheet, write_gif, write_mp4
-from splatter.deliver.sheet import sheet_layout, write_sheet
+from splatter.deliver.preview import over_checker, write_contact_codes, write_gif_codes, write_mp4_codes
+from splatter.deliver.sheet import empty_sheet, place_frame, sheet_layout, write_sheet_image
 from splatter.look.records import LookSpec
 
 __all__ = ["OutputSink"]
 
-_PREVIEW_MAX = 512
+_PREVIEW_MAX = 512  # GIF and MP4 frames fit this many pixels on a side
+_CONTACT_MAX = 256  # contact-sheet thumbnails fit this
 _MAX_PENDING = 3
 
 
@@ -41,19 +42,33 @@ class OutputSink:
     look : LookSpec
     out_dir : str
         Existing output folder.
+    n_frames : int
+        How many frames will be added (the sheet's grid is laid out for them).
+
+    Notes
+    -----
+    Work that needs only one frame happens on the writer thread as frames
+    arrive, overlapping the compositing of the next: frame files, placing the
+    frame into its sheet cell (so memory is one sheet, not every frame), and
+    the preview frames over the checker. Map sheets keep their layers and the
+    frames' alpha until the end, since their encodings use clip-wide ranges.
     """
 
-    def __init__(self, look: LookSpec, out_dir: str):
+    def __init__(self, look: LookSpec, out_dir: str, n_frames: int):
         self.look = look
         self.out_dir = out_dir
+        self.n_frames = n_frames
         self.files: List[str] = []
         self.write_seconds = 0.0
         self._lock = threading.Lock()
         self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="splatter-writer")
         self._pending: List[Future] = []
-        self._sheet_frames: List[np.ndarray] = []
+        self._layout = None
+        self._sheet = None
+        self._sheet_alpha: List[np.ndarray] = []
         self._sheet_layers: Dict[str, List[np.ndarray]] = {}
-        self._preview: List[np.ndarray] = []
+        self._anim: List[np.ndarray] = []
+        self._thumbs: List[np.ndarray] = []
         self._frame_numbers: List[int] = []
 
     # ------------------------------------------------------------ per frame
@@ -61,20 +76,45 @@ class OutputSink:
     def add(self, frame: int, rgba: np.ndarray, layers: Dict[str, np.ndarray]) -> None:
         """Queue one frame: premultiplied linear ``rgba (H, W, 4) float32`` and straight map ``layers``."""
         out = self.look.output
+        index = len(self._frame_numbers)
         self._frame_numbers.append(frame)
         if out.sheet is not None:
-            self._sheet_frames.append(rgba)
+            if self._layout is None:
+                spec = out.sheet
+                h, w = rgba.shape[:2]
+                self._layout = sheet_layout(max(self.n_frames, 1), w, h, columns=spec.columns, rows=spec.rows,
+                                            padding=spec.padding, pow2=spec.pow2, cell=spec.cell)
+                self._sheet = empty_sheet(self._layout, 4)
+            if layers:
+                self._sheet_alpha.append(rgba[..., 3])
             for k, v in layers.items():
                 self._sheet_layers.setdefault(k, []).append(v)
-        if out.preview:
-            self._preview.append(_shrink(rgba, _PREVIEW_MAX))
+        while len(self._pending) >= _MAX_PENDING:
+            self._pending.pop(0).result()
+        self._pending.append(self._pool.submit(self._take_frame, index, frame, rgba, layers))
+
+    def _take_frame(self, index: int, frame: int, rgba: np.ndarray, layers: Dict[str, np.ndarray]) -> None:
+        """On the writer thread: everything one frame alone decides."""
+        start = time.perf_counter()
+        out = self.look.output
         if out.frames:
-            while len(self._pending) >= _MAX_PENDING:
-                self._pending.pop(0).result()
-            self._pending.append(self._pool.submit(self._write_frame, frame, rgba, layers))
+            self._write_frame(frame, rgba, layers)
+        if self._sheet is not None:
+            place_frame(self._sheet, self._layout, index, rgba)
+        if out.preview:
+            exp = self.look.shading.exposure
+            if set(out.preview) - {"contact"}:
+                anim = _shrink(rgba, _PREVIEW_MAX)
+                if "mp4" in out.preview and (anim.shape[0] % 2 or anim.shape[1] % 2):
+                    # yuv420p needs even sizes: extend with transparent texels (the checker shows).
+                    anim = np.pad(anim, ((0, anim.shape[0] % 2), (0, anim.shape[1] % 2), (0, 0)))
+                self._anim.append(over_checker(anim, exposure=exp))
+            if "contact" in out.preview:
+                self._thumbs.append(over_checker(_shrink(rgba, _CONTACT_MAX), exposure=exp))
+        with self._lock:
+            self.write_seconds += time.perf_counter() - start
 
     def _write_frame(self, frame: int, rgba: np.ndarray, layers: Dict[str, np.ndarray]) -> None:
-        start = time.perf_counter()
         out, name = self.look.output, self.look.name
         written = []
         for ext in out.frames:
@@ -88,7 +128,6 @@ class OutputSink:
             written.append(path)
         with self._lock:
             self.files.extend(written)
-            self.write_seconds += time.perf_counter() - start
 
     # ------------------------------------------------------------ the end
 
@@ -99,9 +138,9 @@ class OutputSink:
         self._pending.clear()
         self._pool.shutdown(wait=True)
         start = time.perf_counter()
-        if self.look.output.sheet is not None and self._sheet_frames:
+        if self._sheet is not None:
             self._write_sheets()
-        if self._preview:
+        if self._frame_numbers and self.look.output.preview:
             self._write_previews()
         self.write_seconds += time.perf_counter() - start
         return sorted(self.files)
@@ -113,14 +152,12 @@ class OutputSink:
         self._pool.shutdown(wait=True, cancel_futures=True)
 
     def _write_sheets(self) -> None:
-        look, spec = self.look, self.look.output.sheet
-        h, w = self._sheet_frames[0].shape[:2]
-        layout = sheet_layout(
-            len(self._sheet_frames), w, h, columns=spec.columns, rows=spec.rows, padding=spec.padding, pow2=spec.pow2,
-            cell=spec.cell,
-        )
+        look, spec, layout = self.look, self.look.output.sheet, self._layout
+        if len(self._frame_numbers) != layout.frames:
+            raise RuntimeError(f"the sheet was laid out for {layout.frames} frames, {len(self._frame_numbers)} came")
+        w, h = layout.frame_width, layout.frame_height
         layers = self._sheet_layers
-        alpha = [f[..., 3] for f in self._sheet_frames]
+        alpha = self._sheet_alpha
         common = dict(format=spec.format, png_bits=look.output.png_bits, exr_type=look.output.exr_type)
         maps = {}
         d, name = self.out_dir, look.name
@@ -136,23 +173,23 @@ class OutputSink:
         for entry in maps.values():
             for f in entry.get("files", [entry.get("file")]):
                 self.files.append(os.path.join(self.out_dir, f))
-        self.files += write_sheet(
-            self.out_dir, look.name, self._sheet_frames, layout, format=spec.format, alpha=look.output.png_alpha,
+        sheet, self._sheet = self._sheet, None
+        self.files += write_sheet_image(
+            self.out_dir, look.name, sheet, layout, format=spec.format, alpha=look.output.png_alpha,
             png_bits=look.output.png_bits, exr_type=look.output.exr_type, fps=look.clip.fps, loop=look.clip.loop,
             maps=maps, exposure=look.shading.exposure,
         )
 
     def _write_previews(self) -> None:
         look, d, name = self.look, self.out_dir, self.look.name
-        exp = look.shading.exposure
         for kind in look.output.preview:
             path = os.path.join(d, preview_file(name, kind))
             if kind == "gif":
-                write_gif(path, self._preview, look.clip.fps, exposure=exp)
+                write_gif_codes(path, self._anim, look.clip.fps)
             elif kind == "mp4":
-                write_mp4(path, self._preview, look.clip.fps, exposure=exp)
+                write_mp4_codes(path, self._anim, look.clip.fps)
             else:
-                write_contact_sheet(path, self._preview, numbers=self._frame_numbers, exposure=exp)
+                write_contact_codes(path, self._thumbs, numbers=self._frame_numbers)
             self.files.append(path)
 
 
