@@ -7,8 +7,8 @@ from typing import List
 from splatter.view.camera import project_puffs
 from splatter.look.records import LookSpec
 from splatter.deliver.names import planned_files
-from splatter.render import make_camera, output_dir
-from splatter.sim.driver import plan_simulation, simulate
+from splatter.render import output_dir, pixel_size, plan_and_camera
+from splatter.sim.driver import simulate
 from splatter.view.framing import cut_by_border
 from splatter.view.splats import effective_opacity
 
@@ -43,7 +43,7 @@ def border_report(look: LookSpec, camera, plan, frames) -> List[str]:
 
 def check_look(look: LookSpec) -> str:
     """A plain-text summary of a validated look, with warnings."""
-    plan = plan_simulation(look)
+    plan, camera = plan_and_camera(look)
     clip, img = look.clip, look.image
     lines = [
         f"look      {look.name} (seed {look.seed})" + (f", from {look.path}" if look.path else ""),
@@ -59,6 +59,12 @@ def check_look(look: LookSpec) -> str:
         bursts = f", {sum(b.count for b in src.bursts)} puffs in bursts" if src.bursts else ""
         lines.append(f"source[{i}] {src.shape} at {list(src.center)}, {rate:g} puffs/s, life {life} s{bursts}")
     kinds = [f.kind for f in look.forces]
+    octaves = iter(plan.swirl_octaves)  # one per swirl, in force order
+    for i, f in enumerate(look.forces):
+        if f.kind == "swirl":
+            n = next(octaves)
+            eddy = f.scale / 2 ** (n - 1) / pixel_size(camera)  # wavelength of the last octave at the target
+            kinds[i] = f"swirl ({n} octaves{', auto' if f.octaves is None else ''}, smallest eddy {eddy:.1f} px)"
     obst = [o.kind for o in look.obstacles]
     lines.append(f"forces    {', '.join(kinds) or 'none'}; obstacles {', '.join(obst) or 'none'}")
     lines.append(f"puffs     about {plan.steady_state_puffs:,.0f} alive at steady state")
@@ -72,7 +78,6 @@ def check_look(look: LookSpec) -> str:
                      "ask for exr frames or a sheet to get them")
     for note in plan.notes:
         lines.append(f"note      {note}")
-    camera = make_camera(look, plan)
     for warn in border_report(look, camera, plan, range(clip.frames)):
         lines.append(f"warning   {warn}")
     return "\n".join(lines)

@@ -157,14 +157,15 @@ def _cmd_render(args) -> int:
     look = _load(args)
     frames = parse_frames(args.frames, look.clip.frames)
     _set_threads(args.threads)
-    from splatter.render import render
-    from splatter.sim.driver import plan_simulation
+    from splatter.render import announce_compile, plan_and_camera, render
 
+    if not args.quiet:
+        announce_compile()  # before the plan: fitting the camera simulates, which compiles too
     # What the simulation had to change (loop snapping, seams) is said even with --quiet.
-    plan = plan_simulation(look)
+    plan, camera = plan_and_camera(look)
     for note in plan.notes:
         print(f"splatter: note: {note}", file=sys.stderr)
-    result = render(look, out_dir=args.out, frames=frames, progress=not args.quiet, plan=plan)
+    result = render(look, out_dir=args.out, frames=frames, progress=not args.quiet, plan=plan, camera=camera)
     if not args.quiet:
         print(result.summary(), file=sys.stderr)
     return EXIT_OK
@@ -185,9 +186,10 @@ def _cmd_simulate(args) -> int:
     if not args.out.endswith(".npz"):
         raise _UsageError(f"--out: expected a file name ending in .npz, got {args.out!r}")
     frames = parse_frames(args.frames, look.clip.frames) or range(look.clip.frames)
-    from splatter.sim.driver import plan_simulation, save_states, simulate
+    from splatter.render import look_plan
+    from splatter.sim.driver import save_states, simulate
 
-    plan = plan_simulation(look)
+    plan = look_plan(look)  # "auto" swirl octaves resolved at the render's framing
     for note in plan.notes:
         print(f"splatter: note: {note}", file=sys.stderr)
     Path(args.out).parent.mkdir(parents=True, exist_ok=True)

@@ -26,10 +26,19 @@ from splatter.look.records import LookSpec
 from splatter.raster.maps import normal_map
 from splatter.deliver.sink import OutputSink
 from splatter.sim.driver import SimPlan, plan_simulation, simulate
+from splatter.sim.plan import has_auto_octaves, with_octaves
 from splatter.view.splats import effective_opacity, feature_layout, make_splats, split_layers
 
-__all__ = ["render", "RenderResult", "make_camera", "output_dir", "frame_images"]
+__all__ = ["render", "RenderResult", "make_camera", "plan_and_camera", "look_plan", "pixel_size", "output_dir",
+           "frame_images"]
 
+FIT_OCTAVES = 2
+"""Octaves an "auto" swirl is simulated with to fit the camera, before its count is known.
+
+The count depends on the framing and a fit framing on the simulation; the
+framing follows the large eddies, so it is fitted once with this small fixed
+count, the octaves are resolved from that framing, and the render keeps it.
+"""
 
 
 @dataclass
@@ -78,7 +87,8 @@ def make_camera(look: LookSpec, plan: Optional[SimPlan] = None, frames: Optional
     """The look's camera; with ``camera.fit`` framed on every puff of ``frames``.
 
     ``frames`` defaults to the whole clip (plus the crossfade frames), so a
-    partial render frames exactly like a full one.
+    partial render frames exactly like a full one.  A look with "auto" swirl
+    octaves is fitted with :data:`FIT_OCTAVES` for them, whatever ``plan`` says.
     """
     c = look.camera
     cam = Camera(
@@ -87,12 +97,64 @@ def make_camera(look: LookSpec, plan: Optional[SimPlan] = None, frames: Optional
     )
     if not c.fit:
         return cam
+    if has_auto_octaves(look):
+        # Framed before the octaves are known (see FIT_OCTAVES); a given plan has the resolved ones, so it
+        # is not used here, which keeps every caller on the same framing.
+        look = with_octaves(look, FIT_OCTAVES)
+        plan = None
     plan = plan or plan_simulation(look)
     if frames is None:
         frames = range(look.clip.frames + _crossfade_frames(look))
     blend = look.shading.blend
     return fit_camera(cam, simulate(look, plan, frames=frames), margin=c.margin,
                       opacity_of=lambda s: effective_opacity(s.opacity, s.density, blend))
+
+
+def pixel_size(camera: Camera) -> float:
+    """World units per pixel at the camera's target.
+
+    Orthographic: ``view_width / width``.  Perspective: the size of a pixel
+    at the distance from the eye to the target (a fit camera puts the target
+    at the puffs' mean depth), ``distance / focal_px``.
+
+    Examples
+    --------
+    >>> pixel_size(Camera(view_width=4.0, width=256, height=128))
+    0.015625
+    >>> round(pixel_size(Camera(projection="perspective", fov=90.0, height=200)), 6)  # 10 units away
+    0.1
+    """
+    depth = float(np.linalg.norm(np.subtract(camera.target, camera.eye)))
+    return float(1.0 / camera.pixels_per_unit(depth))
+
+
+def plan_and_camera(look: LookSpec) -> "tuple[SimPlan, Camera]":
+    """The look's simulation plan and camera, swirl ``octaves = "auto"`` resolved at that camera.
+
+    Everything comes from the look alone (the whole clip is framed), so the
+    octave count is the same for any frame range or thread count.
+
+    Parameters
+    ----------
+    look : LookSpec
+
+    Returns
+    -------
+    plan : SimPlan
+    camera : Camera
+    """
+    if has_auto_octaves(look):
+        camera = make_camera(look)
+        return plan_simulation(look, pixel_size=pixel_size(camera)), camera
+    plan = plan_simulation(look)
+    return plan, make_camera(look, plan)
+
+
+def look_plan(look: LookSpec) -> SimPlan:
+    """The look's simulation plan alone, "auto" octaves resolved (a fit camera is fitted only when needed)."""
+    if has_auto_octaves(look):
+        return plan_and_camera(look)[0]
+    return plan_simulation(look)
 
 
 def _crossfade_frames(look: LookSpec) -> int:
@@ -157,15 +219,20 @@ def _timed(it, timings, key):
         yield item
 
 
-def _announce_compile() -> None:
-    """Say once, on a cold cache, that the first run compiles its kernels."""
-    if not kernels_cached():
+_announced = False
+
+
+def announce_compile() -> None:
+    """Say once per process, on a cold cache, that the first run compiles its kernels."""
+    global _announced
+    if not _announced and not kernels_cached():
+        _announced = True
         print("splatter: compiling kernels (first run only; later runs load them from the cache)", flush=True,
               file=sys.stderr)
 
 
 def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[Iterable[int]] = None,
-           progress: bool = True, plan: Optional[SimPlan] = None) -> RenderResult:
+           progress: bool = True, plan: Optional[SimPlan] = None, camera: Optional[Camera] = None) -> RenderResult:
     """Render a look and write the files its ``[output]`` table asks for.
 
     Parameters
@@ -179,7 +246,10 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
     progress : bool
         Show a progress bar on stderr.
     plan : SimPlan, optional
-        The look's :func:`~splatter.sim.driver.plan_simulation`, when the caller has it already.
+        The look's plan, when the caller has it already (from
+        :func:`plan_and_camera` when a swirl's octaves are "auto").
+    camera : Camera, optional
+        The look's camera from :func:`plan_and_camera` or :func:`make_camera`, with ``plan``.
 
     Returns
     -------
@@ -200,13 +270,15 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
     """
     t_start = time.perf_counter()
     timings: Dict[str, float] = {}
-    plan = plan or plan_simulation(look)
     wanted = list(frames) if frames is not None else list(range(look.clip.frames))
     folder = output_dir(look, out_dir)
     if progress:
-        _announce_compile()
+        announce_compile()
     t0 = time.perf_counter()
-    camera = make_camera(look, plan)
+    if plan is None:
+        plan, camera = plan_and_camera(look)
+    elif camera is None:
+        camera = make_camera(look, plan)
     timings["fit"] = time.perf_counter() - t0
 
     n = look.clip.frames

@@ -5,7 +5,7 @@ import textwrap
 import pytest
 
 from splatter.core.errors import LookError
-from splatter.look.records import LookSpec, SourceSpec, WindSpec
+from splatter.look.records import LookSpec, SourceSpec, SwirlSpec, WindSpec
 from splatter.look.load import load_look, parse_override
 
 
@@ -192,3 +192,25 @@ def test_absurd_live_puff_count_is_refused(tmp_path):
     with pytest.raises(LookError) as info:
         load_look(path)
     assert info.value.key == "source[0].rate" and "alive at once" in info.value.expected
+
+
+SWIRL = '[[force]]\nkind = "swirl"\n'
+
+
+def test_swirl_octaves_default_to_auto(tmp_path):
+    # docs/look-reference.md: octaves "auto" (the default) is stored as None for the plan to resolve.
+    assert SwirlSpec().octaves is None
+    assert load_look(write(tmp_path, "a.toml", SWIRL + MINIMAL)).forces[0].octaves is None
+    assert load_look(write(tmp_path, "b.toml", SWIRL + 'octaves = "auto"\n' + MINIMAL)).forces[0].octaves is None
+    assert load_look(write(tmp_path, "c.toml", SWIRL + "octaves = 6\n" + MINIMAL)).forces[0].octaves == 6
+
+
+@pytest.mark.parametrize("value", ['"lots"', "0", "7", "2.5"])
+def test_bad_swirl_octaves_are_refused(tmp_path, value):
+    # The look contract allows explicit counts 1..6 (docs/look-reference.md); "auto" may go further.
+    path = write(tmp_path, "bad.toml", SWIRL + f"octaves = {value}\n" + MINIMAL)
+    with pytest.raises(LookError) as info:
+        load_look(path)
+    assert info.value.key == "force[0].octaves"
+    assert "force[0].octaves" in str(info.value)
+    assert info.value.expected == '"auto" or an integer from 1 to 6'

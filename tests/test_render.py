@@ -10,7 +10,8 @@ import pytest
 from lookfiles import LONE_PUFF, SMALL_PLUME, write_look
 from splatter.view.framing import border_alpha_share
 from splatter.look.load import load_look
-from splatter.render import frame_images, make_camera, render
+from splatter.check import check_look
+from splatter.render import frame_images, make_camera, pixel_size, plan_and_camera, render
 from splatter.sim.driver import plan_simulation, simulate
 from splatter.view.splats import split_layers
 from splatter.deliver.exr import read_exr
@@ -121,3 +122,62 @@ def test_every_demo_look_keeps_its_border_clear(name):
         worst = max(worst, float(a[0].max()), float(a[-1].max()), float(a[:, 0].max()), float(a[:, -1].max()))
         assert border_alpha_share(a) < 1e-3
     assert worst < 1 / 255
+
+
+AUTO_SWIRLS = """
+name = "auto_swirls"
+[image]
+width = 200
+height = 100
+[camera]
+view_width = 5.0
+[[source]]
+rate = 10
+[[force]]
+kind = "swirl"
+scale = 0.9
+[[force]]
+kind = "drag"
+[[force]]
+kind = "swirl"
+scale = 5.0
+octaves = "auto"
+[[force]]
+kind = "swirl"
+scale = 50.0
+[[force]]
+kind = "swirl"
+scale = 0.9
+octaves = 3
+"""
+
+
+def test_auto_octaves_keep_the_smallest_eddy_two_to_four_pixels(tmp_path):
+    # The rule in docs/look-reference.md (octave o has wavelength scale / 2**o):
+    # n = clamp(1 + floor(log2(scale / (2 * pixel))), 1, 8), pixel = view_width / width.
+    look = load_look(write_look(tmp_path, AUTO_SWIRLS))
+    plan, cam = plan_and_camera(look)
+    assert pixel_size(cam) == 5.0 / 200  # 0.025 world units per pixel
+    # scale 0.9 = 36 px: eddies of 36, 18, 9, 4.5, 2.25 px; a sixth would be 1.125 px.
+    # 1 + floor(log2(0.9 / 0.05)) = 1 + floor(log2(18)) = 1 + 4 = 5.
+    # scale 5 = 200 px: 200, 100, 50, 25, 12.5, 6.25, 3.125 px (past the explicit limit of 6).
+    # 1 + floor(log2(5 / 0.05)) = 1 + floor(log2(100)) = 1 + 6 = 7.
+    # scale 50 = 2000 px: 1 + floor(log2(1000)) = 10, capped at 8.  An explicit 3 stays 3.
+    assert plan.swirl_octaves == (5, 7, 8, 3)
+    assert [s.octaves for s in plan.forces.swirls] == [5, 7, 8, 3]
+    assert "swirl (5 octaves, auto, smallest eddy 2.2 px)" in check_look(look)
+    # The simulation alone cannot know the pixel size: it asks for it, naming the key.
+    with pytest.raises(ValueError, match=r"force\[0\]\.octaves"):
+        plan_simulation(look)
+
+
+def test_auto_octaves_with_a_fit_camera_do_not_depend_on_the_frames_rendered(tmp_path):
+    # Resolved from the whole clip's framing, so a partial render equals the full one byte for byte.
+    look = load_look(write_look(tmp_path, SMALL_PLUME.replace("octaves = 2\n", "")))
+    assert look.camera.fit and look.forces[2].octaves is None
+    plan, cam = plan_and_camera(look)
+    assert plan.pixel_size == pixel_size(cam)
+    assert 1 <= plan.swirl_octaves[0] <= 8
+    full = digests(quiet_render(look, tmp_path / "full").out_dir)
+    part = digests(quiet_render(look, tmp_path / "part", frames=range(4, 6)).out_dir)
+    assert part == {k: full[k] for k in part} and len(part) == 4

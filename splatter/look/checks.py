@@ -210,15 +210,18 @@ def color_ramp(v, ctx):
     return _keys_of(v, ctx, color, 'a colour ("#rrggbb" or [r, g, b])')
 
 
-def text_or_number(word: str, lo=None, *, lo_open=False):
-    """``word`` (returned as ``None``) or a number."""
-    elem = number(lo, lo_open=lo_open)
+def text_or_number(word: str, lo=None, hi=None, *, lo_open=False, integer=False):
+    """``word`` (returned as ``None``) or a number (an integer if ``integer``) within the bounds."""
+    elem = number(lo, hi, lo_open=lo_open, integer=integer)
 
     def check(v, ctx):
         if v == word:
             return None
         if isinstance(v, (int, float)) and not isinstance(v, bool):
-            return elem(v, ctx)
+            try:
+                return elem(v, ctx)
+            except LookError:
+                pass  # say the whole choice, word included, whatever was wrong with the number
         ctx.fail(f'"{word}" or {elem.want}', v)
 
     return check

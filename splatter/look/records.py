@@ -12,8 +12,8 @@ already validated, defaulted and in canonical form:
   one key at age 0);
 * a **colour ramp** is a tuple of ``(age, (r, g, b))`` keys in linear light;
 * vectors are tuples of three floats; ``None`` means "not set" where the
-  spec allows it (``stop = "never"`` is ``None``, ``warmup = "auto"`` is
-  ``None``).
+  spec allows it (``stop = "never"`` is ``None``, ``warmup = "auto"`` and
+  a swirl's ``octaves = "auto"`` are ``None``).
 
 See ``docs/look-reference.md`` in the repository for the meaning of each key.
 
@@ -187,7 +187,7 @@ class SwirlSpec:
     kind: ClassVar[str] = "swirl"
     strength: float = key(0.5, number(0.0, 1e3))
     scale: float = key(1.0, number(0.0, 1e6, lo_open=True))
-    octaves: int = key(2, number(1, 6, integer=True))
+    octaves: Optional[int] = key(None, text_or_number("auto", 1, 6, integer=True))  # None: "auto", see the plan
     evolve: float = key(2.0, number(0.0, 1e6, lo_open=True))
 
 

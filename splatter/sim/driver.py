@@ -257,7 +257,8 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int]) -> 
     ----------
     look : LookSpec
     plan : SimPlan, optional
-        From :func:`plan_simulation` (made here if not given).
+        From :func:`plan_simulation` (made here if not given; a look whose
+        swirl octaves are "auto" needs one made with a pixel size).
     frames : iterable of int
         Frame indices >= 0, any order; they may run past ``clip.frames - 1``
         (the simulation simply continues).

@@ -3,23 +3,28 @@
 Step ``dt = 1 / (fps * substeps)``; warm-up in whole steps (``"auto"``: the
 longest possible puff life); the exact-loop period in steps; each source's
 birth lattice (:class:`splatter.sim.emit.Schedule`) with its effective rate; the
-packed forces (gust periods and swirl frequencies snapped to the loop) and
+packed forces (gust periods and swirl frequencies snapped to the loop, swirl
+``octaves = "auto"`` resolved from the pixel size the caller gives) and
 obstacles; and plain-sentence notes on what was adjusted or cannot loop.
+
+The pixel size comes from the camera, a later stage, so the caller (render,
+check) works it out from the framing and passes it in as a plain number.
 See :mod:`splatter.sim.driver` for how time is counted.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from fractions import Fraction
 from typing import Optional, Tuple
 
 from splatter.sim.emit import Schedule
 from splatter.sim.forces import ForceTables, pack_forces
 from splatter.sim.obstacles import ObstacleTables, pack_obstacles
+from splatter.sim.swirl import auto_octaves
 
-__all__ = ["SimPlan", "plan_simulation"]
+__all__ = ["SimPlan", "plan_simulation", "has_auto_octaves", "with_octaves"]
 
 _MAX_DENOMINATOR = 1 << 20  # rational births per step when not looping: rate error < 1e-6
 
@@ -60,6 +65,10 @@ class SimPlan:
     steady_state_puffs : float
         Expected puffs alive at steady state: sum of rate * mean life, plus
         every burst's count.
+    swirl_octaves : tuple of int
+        Per swirl force (in force order), the octave count used ("auto" resolved).
+    pixel_size : float or None
+        World units per pixel the plan was made for (None when not given).
     """
 
     dt: float
@@ -79,6 +88,8 @@ class SimPlan:
     obstacles: ObstacleTables
     notes: Tuple[str, ...]
     steady_state_puffs: float
+    swirl_octaves: Tuple[int, ...] = ()
+    pixel_size: Optional[float] = None
 
     def frame_step(self, frame: int) -> int:
         """Step boundary of ``frame``."""
@@ -103,17 +114,57 @@ def _burst_boundary(time: float, warmup_steps: int, steps_per_second: float):
     return s, max(0.0, s - x)
 
 
-def plan_simulation(look) -> SimPlan:
+def has_auto_octaves(look) -> bool:
+    """True when a swirl force of ``look`` leaves its octave count to the plan (``octaves = "auto"``)."""
+    return any(getattr(f, "kind", None) == "swirl" and f.octaves is None for f in look.forces)
+
+
+def with_octaves(look, count: int):
+    """``look`` with every "auto" swirl given ``count`` octaves (explicit counts are kept).
+
+    Used to frame a fit camera before the octaves are known: the framing
+    depends on the large eddies, hardly on the finest.
+    """
+    forces = tuple(replace(f, octaves=int(count)) if getattr(f, "kind", None) == "swirl" and f.octaves is None
+                   else f for f in look.forces)
+    return replace(look, forces=forces)
+
+
+def _resolve_octaves(forces, pixel_size):
+    out = []
+    for i, f in enumerate(forces):
+        if getattr(f, "kind", None) == "swirl" and f.octaves is None:
+            if pixel_size is None:
+                raise ValueError(f'force[{i}].octaves is "auto": plan_simulation needs pixel_size (world units '
+                                 f'per pixel at the final framing) to resolve it')
+            f = replace(f, octaves=auto_octaves(float(f.scale), float(pixel_size)))
+        out.append(f)
+    return tuple(out)
+
+
+def plan_simulation(look, *, pixel_size: Optional[float] = None) -> SimPlan:
     """Derive the step, warm-up, loop period, effective rates and notes of a look.
 
     Parameters
     ----------
     look : LookSpec
+    pixel_size : float, optional
+        World units per pixel at the final framing; needed when a swirl's
+        ``octaves`` is "auto" (:func:`splatter.sim.swirl.auto_octaves`),
+        ignored otherwise.
 
     Returns
     -------
     SimPlan
+
+    Raises
+    ------
+    ValueError
+        A swirl's octaves are "auto" and ``pixel_size`` is not given.
     """
+    if pixel_size is not None and not (math.isfinite(pixel_size) and pixel_size > 0):
+        raise ValueError(f"pixel_size: expected a number > 0, got {pixel_size!r}")
+    resolved = _resolve_octaves(look.forces, pixel_size)
     clip = look.clip
     if clip.frames < 1 or not clip.fps > 0 or clip.substeps < 1:
         raise ValueError(f"clip needs frames >= 1, fps > 0, substeps >= 1; got {clip.frames}, {clip.fps}, "
@@ -186,7 +237,7 @@ def plan_simulation(look) -> SimPlan:
         schedules.append(sched)
         steady += eff * 0.5 * (float(src.life[0]) + float(src.life[1])) + sum(int(b.count) for b in src.bursts)
 
-    forces = pack_forces(look.forces, seed=look.seed, loop_period=period)
+    forces = pack_forces(resolved, seed=look.seed, loop_period=period)
     if exact:
         w = 0
         for i, f in enumerate(look.forces):
@@ -204,4 +255,6 @@ def plan_simulation(look) -> SimPlan:
                    integrator=clip.integrator, loop=clip.loop, warmup_steps=warmup_steps,
                    warmup=warmup_steps * dt, period=period, period_steps=period_steps, rates=tuple(rates),
                    schedules=tuple(schedules), gust_periods=forces.gust_periods, forces=forces,
-                   obstacles=pack_obstacles(look.obstacles), notes=tuple(notes), steady_state_puffs=steady)
+                   obstacles=pack_obstacles(look.obstacles), notes=tuple(notes), steady_state_puffs=steady,
+                   swirl_octaves=tuple(f.octaves for f in resolved if f.kind == "swirl"),
+                   pixel_size=None if pixel_size is None else float(pixel_size))
