@@ -2,7 +2,8 @@
 
 20,000 live puffs under gravity, gusty wind, lift, a 3-octave swirl and a
 ground plane, symplectic Euler.  Prints particle-steps per second of both and
-their ratio, measured in this run.  Goals: >= 5 M particle-steps/s on two
+their ratio, measured in this run, and the numba step with puff shapes on
+(the velocity gradient and the deformation update, ``follow = 1``).  Goals: >= 5 M particle-steps/s on two
 cores and >= 10x the numpy version.
 
     /work/venv/bin/python scripts/bench_sim.py [--puffs N] [--steps S]
@@ -91,13 +92,26 @@ def main():
 
     pos, vel = pos0.copy(), vel0.copy()
     step_puffs(pos, vel, age, dt=dt, time=0.0, forces=ft, obstacles=ot)  # compile
-    t_numba = t_numpy = float("inf")
+    eye = np.tile(np.eye(3), (n, 1, 1))
+    step_puffs(pos, vel, age, dt=dt, time=0.0, forces=ft, obstacles=ot, deform=eye.copy(), follow=1.0,
+               elongation=36.0)  # compile the shaped step
+    t_numba = t_numpy = t_shaped = float("inf")
     for _ in range(args.repeats):  # interleaved, so a busy machine slows both alike
         pos, vel = pos0.copy(), vel0.copy()
         t0 = time.perf_counter()
         for s in range(args.steps):
             step_puffs(pos, vel, age, dt=dt, time=s * dt, forces=ft, obstacles=ot)
         t_numba = min(t_numba, time.perf_counter() - t0)
+        pos, vel, deform = pos0.copy(), vel0.copy(), eye.copy()
+        t0 = time.perf_counter()
+        for s in range(args.steps):
+            step_puffs(pos, vel, age, dt=dt, time=s * dt, forces=ft, obstacles=ot, deform=deform, follow=1.0,
+                       elongation=36.0)
+        t_shaped = min(t_shaped, time.perf_counter() - t0)
+        pos = pos0.copy()  # the shaped step moves puffs identically; keep the unshaped result for the check
+        vel = vel0.copy()
+        for s in range(args.steps):
+            step_puffs(pos, vel, age, dt=dt, time=s * dt, forces=ft, obstacles=ot)
         pn, vn = pos0.copy(), vel0.copy()
         t0 = time.perf_counter()
         for s in range(args.steps):
@@ -109,6 +123,8 @@ def main():
     rate_numpy = n * args.steps / t_numpy
     print(f"puffs {n}, steps {args.steps}, swirl modes {ft.swirl_b.shape[0]}, threads {numba.get_num_threads()}")
     print(f"numba step : {rate_numba / 1e6:8.2f} M particle-steps/s")
+    print(f"  + shapes : {n * args.steps / t_shaped / 1e6:8.2f} M particle-steps/s  (velocity gradient and F"
+          f" update, follow = 1; {t_shaped / t_numba:.2f}x the time)")
     print(f"numpy step : {rate_numpy / 1e6:8.2f} M particle-steps/s")
     # The whole driver (emission, ageing, ramps, output) on a look holding ~n puffs.
     look = LookSpec(name="bench", clip=ClipSpec(frames=64, fps=30, substeps=2, loop="exact"),

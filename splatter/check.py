@@ -27,7 +27,8 @@ def border_report(look: LookSpec, camera, plan, frames) -> List[str]:
         n += 1
         if len(state.size) == 0:
             continue
-        s = project_puffs(camera, state.pos, state.size, state.aspect, state.quat, state.vel, state.stretch)
+        s = project_puffs(camera, state.pos, state.size, state.aspect, state.quat, state.vel, state.stretch,
+                          state.deform)
         op = effective_opacity(state.opacity, state.density, look.shading.blend)
         cut = cut_by_border(s, op, w, h)
         if cut.any():

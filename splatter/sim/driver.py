@@ -76,6 +76,10 @@ class FrameState:
         Unit orientation ``(w, x, y, z)``; identity where the source's aspect is 1.
     stretch, density : (M,) float64 ndarray
         The source's values.
+    deform : (M, 3, 3) float64 ndarray or None
+        Deformation gradient ``F`` (identity at birth, advanced with the air
+        velocity gradient; see :mod:`splatter.sim.shaping`): the puff's
+        covariance is ``F S0 F^T`` for its rigid covariance ``S0``.
 
     Arrays are ordered by ``(source, slot, id)``, the same order at frame 0
     and frame ``frames`` of an exact loop.
@@ -98,18 +102,19 @@ class FrameState:
     quat: np.ndarray
     stretch: np.ndarray
     density: np.ndarray
+    deform: Optional[np.ndarray] = None  # None: rigid puffs (states made by hand)
 
     def __len__(self) -> int:
         return int(self.id.shape[0])
 
 
 PER_PUFF_FIELDS = ("id", "slot", "source", "pos", "vel", "age", "life", "size", "opacity", "color", "glow",
-                   "aspect", "quat", "stretch", "density")
+                   "aspect", "quat", "stretch", "density", "deform")
 
 
 _INT_FIELDS = {"id": np.int64, "slot": np.int64, "source": np.int32, "bstep": np.int64}
-_WIDTH = {"pos": 3, "vel": 3, "quat": 4}
-_STORE = ("id", "slot", "source", "bstep", "bfrac", "life", "size0", "aspect", "quat", "pos", "vel")
+_WIDTH = {"pos": (3,), "vel": (3,), "quat": (4,), "deform": (3, 3)}
+_STORE = ("id", "slot", "source", "bstep", "bfrac", "life", "size0", "aspect", "quat", "pos", "vel", "deform")
 
 
 class _Puffs:
@@ -124,7 +129,7 @@ class _Puffs:
         self.n = 0
         self.dead = 0
         self.live = np.zeros(capacity, dtype=bool)
-        self.buf = {name: np.zeros((capacity,) + ((_WIDTH[name],) if name in _WIDTH else ()),
+        self.buf = {name: np.zeros((capacity,) + _WIDTH.get(name, ()),
                                    dtype=_INT_FIELDS.get(name, np.float64)) for name in _STORE}
 
     def __len__(self):
@@ -214,7 +219,7 @@ def _born(src, u, ids, slots, source, bstep, bfrac, dt):
     age0 = bfrac * dt  # born that long before the boundary: advance ballistically
     return dict(id=ids, slot=np.asarray(slots, dtype=np.int64), source=np.full(ids.size, source, dtype=np.int32),
                 bstep=bstep, bfrac=bfrac, life=p["life"], size0=p["size"], aspect=p["aspect"], quat=p["quat"],
-                pos=p["pos"] + p["vel"] * age0[:, None], vel=p["vel"])
+                pos=p["pos"] + p["vel"] * age0[:, None], vel=p["vel"], deform=np.tile(np.eye(3), (ids.size, 1, 1)))
 
 
 def _frame_state(look, plan: SimPlan, puffs: _Puffs, frame: int, step: int) -> FrameState:
@@ -247,7 +252,7 @@ def _frame_state(look, plan: SimPlan, puffs: _Puffs, frame: int, step: int) -> F
     return FrameState(frame=int(frame), time=frame / plan.fps, id=pick["id"], slot=pick["slot"],
                       source=pick["source"], pos=pick["pos"], vel=vel, age=age, life=pick["life"], size=size,
                       opacity=opacity, color=color, glow=glow, aspect=pick["aspect"], quat=pick["quat"],
-                      stretch=stretch, density=density)
+                      stretch=stretch, density=density, deform=pick["deform"])
 
 
 def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int]) -> Iterator[FrameState]:
@@ -283,12 +288,18 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int]) -> 
     draws: dict = {}
     next_id = 0
     last = plan.frame_step(wanted[-1])
+    follow = np.array([float(src.follow) for src in look.sources])
+    elongation = np.array([float(src.elongation) for src in look.sources])
+    # Shapes only when some source follows a flow that has a gradient (swirl or vortex).
+    shaping = bool(np.any(follow > 0)) and (plan.forces.swirl_b.shape[0] + plan.forces.vortex.shape[0]) > 0
     for s in range(last + 1):
         if s > 0 and len(puffs):
             a = puffs.a
+            src = a["source"]
             killed = step_puffs(a["pos"], a["vel"], puffs.ages(s - 1, plan.dt), dt=plan.dt,
                                 time=plan.force_time(s - 1), forces=plan.forces, obstacles=plan.obstacles,
-                                integrator=plan.integrator)
+                                integrator=plan.integrator, deform=a["deform"] if shaping else None,
+                                follow=follow[src], elongation=elongation[src])
             puffs.kill(killed)
         parts, next_id = _spawn(look, plan, s, cursors, draws, next_id)
         puffs.add(parts)
@@ -300,8 +311,8 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int]) -> 
 
 
 def _empty(name: str) -> np.ndarray:
-    width = {"pos": 3, "vel": 3, "quat": 4, "color": 3, "glow": 3}.get(name)
-    return np.zeros((0,) if width is None else (0, width), dtype=_INT_FIELDS.get(name, np.float64))
+    width = {"pos": (3,), "vel": (3,), "quat": (4,), "color": (3,), "glow": (3,), "deform": (3, 3)}.get(name, ())
+    return np.zeros((0,) + width, dtype=_INT_FIELDS.get(name, np.float64))
 
 
 def save_states(path, states: Iterable[FrameState]) -> None:
@@ -320,7 +331,7 @@ def save_states(path, states: Iterable[FrameState]) -> None:
     ``frame_start[j]:frame_start[j+1]``), ``frame (F,) int64``,
     ``time (F,) float64``, and per puff ``id``, ``slot``, ``source``, ``pos``,
     ``vel``, ``age``, ``life``, ``size``, ``opacity``, ``color``, ``glow``,
-    ``aspect``, ``quat``, ``stretch``, ``density``.
+    ``aspect``, ``quat``, ``stretch``, ``density``, ``deform`` (rows of (3, 3)).
     """
     path = os.fspath(path)
     cols = {name: [] for name in PER_PUFF_FIELDS}

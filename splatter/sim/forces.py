@@ -28,14 +28,14 @@ A puff has a position ``x`` and its own velocity ``v``; it moves with
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numba
 import numpy as np
 
 from splatter.core.jit import KERNEL
 from splatter.sim.rng import force_generator
-from splatter.sim.swirl import build_swirl, phase_table
+from splatter.sim.swirl import build_swirl, modified_wavenumbers, phase_table
 
 GUST_RATIOS = (1.0, 1.93, 3.71)  # frequency multiples of 1/gust_period
 GUST_WEIGHTS = (0.6, 0.3, 0.1)
@@ -68,6 +68,9 @@ class ForceTables:
         The swirl fields themselves, one per swirl force.
     gust_periods : tuple of tuple of float
         Per wind, the three gust periods used, seconds.
+    swirl_kt : (M, 3) float64 ndarray
+        Modified wavenumbers ``sin(k h) / h`` of all modes, for the velocity
+        gradient (see :mod:`splatter.sim.swirl`).
     """
 
     gravity: np.ndarray
@@ -82,6 +85,7 @@ class ForceTables:
     vortex: np.ndarray
     swirls: tuple = ()
     gust_periods: tuple = ()
+    swirl_kt: np.ndarray = field(default_factory=lambda: np.zeros((0, 3)))
 
     def swirl_phases(self, t: float) -> np.ndarray:
         """cos and sin of ``w t + phi`` for all swirl modes, (2, M) float64."""
@@ -172,7 +176,9 @@ def pack_forces(forces, *, seed: int, loop_period=None) -> ForceTables:
     return ForceTables(gravity=gravity, drag=drag, wind=table(winds, WIND_COLS), lift=table(lifts, LIFT_COLS),
                        swirl_q=cat("q", 3), swirl_oct=octs, swirl_b=cat("b", 3), swirl_w=cat("w", 0), swirl_phi=cat("phi", 0),
                        vortex=table(vortices, VORTEX_COLS), swirls=tuple(swirls),
-                       gust_periods=tuple(gust_periods))
+                       gust_periods=tuple(gust_periods),
+                       swirl_kt=np.ascontiguousarray(np.concatenate([modified_wavenumbers(s) for s in swirls]))
+                       if swirls else np.zeros((0, 3)))
 
 
 @numba.njit(**KERNEL)
@@ -233,3 +239,48 @@ def _vortex_at(x, y, z, vortex):
         uy += gain * (az * rx - ax * rz)
         uz += gain * (ax * ry - ay * rx)
     return ux, uy, uz
+
+
+@numba.njit(inline="always", **KERNEL)
+def _vortex_grad_at(x, y, z, vortex, g, j):
+    """Add the Rankine vortices' velocity gradient at one point into ``g[0:9, j]``
+    (``g[3 a + b] = du_a/dx_b``).
+
+    ``u = gain(rho) (axis x r)``: inside the core ``gain`` is constant, so the
+    gradient is the solid rotation ``gain [axis]_x``; outside
+    ``gain = s r0 / rho^2`` adds ``-2 s r0 / rho^4 (axis x r) r_perp^T``.  Both
+    are traceless (``(axis x r) . r_perp = 0``), as the flow is divergence-free.
+    """
+    for v in range(vortex.shape[0]):
+        rx = x - vortex[v, 0]
+        ry = y - vortex[v, 1]
+        rz = z - vortex[v, 2]
+        ax = vortex[v, 3]
+        ay = vortex[v, 4]
+        az = vortex[v, 5]
+        along = rx * ax + ry * ay + rz * az
+        rx -= along * ax
+        ry -= along * ay
+        rz -= along * az
+        rho2 = rx * rx + ry * ry + rz * rz
+        s = vortex[v, 6]
+        r0 = vortex[v, 7]
+        if rho2 <= r0 * r0:
+            gain = s / r0 if r0 > 0.0 else 0.0
+            dg = 0.0
+        else:
+            gain = s * r0 / rho2
+            dg = -2.0 * s * r0 / (rho2 * rho2)
+        cx = ay * rz - az * ry
+        cy = az * rx - ax * rz
+        cz = ax * ry - ay * rx
+        # [axis]_x = [[0, -az, ay], [az, 0, -ax], [-ay, ax, 0]]
+        g[0, j] += dg * cx * rx
+        g[1, j] += gain * -az + dg * cx * ry
+        g[2, j] += gain * ay + dg * cx * rz
+        g[3, j] += gain * az + dg * cy * rx
+        g[4, j] += dg * cy * ry
+        g[5, j] += gain * -ax + dg * cy * rz
+        g[6, j] += gain * -ay + dg * cz * rx
+        g[7, j] += gain * ax + dg * cz * ry
+        g[8, j] += dg * cz * rz

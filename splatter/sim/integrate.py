@@ -24,10 +24,11 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-from splatter.sim.forces import ForceTables, _accel, _vortex_at, _wind_sum
+from splatter.sim.forces import ForceTables, _accel, _vortex_at, _vortex_grad_at, _wind_sum
 from splatter.core.jit import KERNEL, PARALLEL
 from splatter.sim.obstacles import ObstacleTables, _collide
-from splatter.sim.swirl import BLOCK, _swirl_block
+from splatter.sim.shaping import _advance_one, _check_deform
+from splatter.sim.swirl import BLOCK, _swirl_block, _swirl_grad_block
 from splatter.core.args import check_choice
 from splatter.core.choices import INTEGRATORS
 
@@ -35,31 +36,50 @@ from splatter.core.choices import INTEGRATORS
 
 
 @numba.njit(**KERNEL)
-def _air_block(buf, px, ux, n, sq, so, sb, cs, vortex):
-    """Swirl plus vortex air velocity at points in ``buf[px:px+3]`` into ``buf[ux:ux+3]``; rows 12-13 scratch."""
+def _air_block(buf, px, ux, n, sq, so, sb, cs, vortex, skt, gx):
+    """Swirl plus vortex air velocity at points in ``buf[px:px+3]`` into ``buf[ux:ux+3]``; rows 12-13 scratch.
+
+    When ``gx > 0`` also the velocity gradient into ``buf[gx:gx+9]``
+    (row ``gx + 3 a + b`` holds ``du_a/dx_b``), in the same pass over the modes.
+    """
     for j in range(n):
         buf[ux, j] = 0.0
         buf[ux + 1, j] = 0.0
         buf[ux + 2, j] = 0.0
+    g = buf[gx:gx + 9]
+    if gx > 0:
+        for r in range(9):
+            for j in range(n):
+                g[r, j] = 0.0
     if sq.shape[0]:
-        _swirl_block(buf[px], buf[px + 1], buf[px + 2], n, sq, so, sb, cs, buf[ux], buf[ux + 1], buf[ux + 2],
-                     buf[12], buf[13])
+        if gx > 0:
+            _swirl_grad_block(buf[px], buf[px + 1], buf[px + 2], n, sq, so, sb, skt, cs, buf[ux], buf[ux + 1],
+                              buf[ux + 2], g, buf[12], buf[13])
+        else:
+            _swirl_block(buf[px], buf[px + 1], buf[px + 2], n, sq, so, sb, cs, buf[ux], buf[ux + 1], buf[ux + 2],
+                         buf[12], buf[13])
     if vortex.shape[0]:
         for j in range(n):
             wx, wy, wz = _vortex_at(buf[px, j], buf[px + 1, j], buf[px + 2, j], vortex)
             buf[ux, j] += wx
             buf[ux + 1, j] += wy
             buf[ux + 2, j] += wz
+            if gx > 0:
+                _vortex_grad_at(buf[px, j], buf[px + 1, j], buf[px + 2, j], vortex, g, j)
 
 
 @numba.njit(**KERNEL)
 def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, lift, sq, so, sb, ph0, ph1,
-                vortex, planes, spheres, killed, buf):
-    """Advance puffs ``i0 .. i0+n-1``; ``buf`` is (14, BLOCK) scratch.
+                vortex, planes, spheres, killed, buf, skt, deform, follow, elong, work):
+    """Advance puffs ``i0 .. i0+n-1``; ``buf`` is (23, BLOCK) scratch, ``work`` (2, 3, 3).
 
     Rows: 0-2 position, 3-5 air velocity there, 6-8 midpoint position,
-    9-11 air velocity at the midpoint, 12-13 swirl scratch.
+    9-11 air velocity at the midpoint, 12-13 swirl scratch, 14-22 the air
+    velocity gradient (only when ``deform`` has rows: shapes follow the flow).
+    The gradient is taken where the step's air velocity is: at the start for
+    Euler and symplectic Euler, at the midpoint for the midpoint rule.
     """
+    shaping = deform.shape[0] > 0
     wk0 = wind0[0]
     wu0 = wind0[1:]
     wk1 = wind1[0]
@@ -69,14 +89,14 @@ def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, li
         buf[0, j] = pos[i0 + j, 0]
         buf[1, j] = pos[i0 + j, 1]
         buf[2, j] = pos[i0 + j, 2]
-    _air_block(buf, 0, 3, n, sq, so, sb, ph0, vortex)
+    _air_block(buf, 0, 3, n, sq, so, sb, ph0, vortex, skt, 14 if shaping and method != 2 else 0)
     if method == 2:
         for j in range(n):
             i = i0 + j
             buf[6, j] = buf[0, j] + half * (vel[i, 0] + buf[3, j])
             buf[7, j] = buf[1, j] + half * (vel[i, 1] + buf[4, j])
             buf[8, j] = buf[2, j] + half * (vel[i, 2] + buf[5, j])
-        _air_block(buf, 6, 9, n, sq, so, sb, ph1, vortex)
+        _air_block(buf, 6, 9, n, sq, so, sb, ph1, vortex, skt, 14 if shaping else 0)
     for j in range(n):
         i = i0 + j
         x = buf[0, j]
@@ -120,19 +140,23 @@ def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, li
         vel[i, 1] = vy1
         vel[i, 2] = vz1
         killed[i] = k
+        if shaping:
+            _advance_one(deform, i, buf[14, j], buf[15, j], buf[16, j], buf[17, j], buf[18, j], buf[19, j],
+                         buf[20, j], buf[21, j], buf[22, j], h, follow[i], elong[i], work)
 
 
 @numba.njit(**PARALLEL)
 def _step(pos, vel, age, h, method, gravity, drag, wind0, wind1, lift, sq, so, sb, ph0, ph1, vortex,
-          planes, spheres, killed):
+          planes, spheres, killed, skt, deform, follow, elong):
     """Advance every puff by one step ``h``; ``wind0/ph0`` at the step's start, ``wind1/ph1`` half-way."""
     nblocks = (pos.shape[0] + BLOCK - 1) // BLOCK
     for blk in numba.prange(nblocks):
         i0 = blk * BLOCK
         n = min(pos.shape[0], i0 + BLOCK) - i0
-        buf = np.empty((14, BLOCK))
+        buf = np.empty((23, BLOCK))
+        work = np.empty((2, 3, 3))
         _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, lift, sq, so, sb, ph0, ph1,
-                    vortex, planes, spheres, killed, buf)
+                    vortex, planes, spheres, killed, buf, skt, deform, follow, elong, work)
 
 
 @numba.njit(**PARALLEL)
@@ -146,11 +170,32 @@ def _air_velocity(pos, sq, so, sb, cs, vortex, out):
             buf[0, j] = pos[i0 + j, 0]
             buf[1, j] = pos[i0 + j, 1]
             buf[2, j] = pos[i0 + j, 2]
-        _air_block(buf, 0, 3, n, sq, so, sb, cs, vortex)
+        _air_block(buf, 0, 3, n, sq, so, sb, cs, vortex, sq, 0)
         for j in range(n):
             out[i0 + j, 0] = buf[3, j]
             out[i0 + j, 1] = buf[4, j]
             out[i0 + j, 2] = buf[5, j]
+
+
+@numba.njit(**PARALLEL)
+def _air_gradient(pos, sq, so, sb, skt, cs, vortex, out):
+    """out (N, 3, 3): the air velocity gradient at each position."""
+    nblocks = (pos.shape[0] + BLOCK - 1) // BLOCK
+    for blk in numba.prange(nblocks):
+        i0 = blk * BLOCK
+        n = min(pos.shape[0], i0 + BLOCK) - i0
+        buf = np.empty((23, BLOCK))
+        for j in range(n):
+            buf[0, j] = pos[i0 + j, 0]
+            buf[1, j] = pos[i0 + j, 1]
+            buf[2, j] = pos[i0 + j, 2]
+        _air_block(buf, 0, 3, n, sq, so, sb, cs, vortex, skt, 14)
+        for j in range(n):
+            for r in range(9):
+                out[i0 + j, r // 3, r % 3] = buf[14 + r, j]
+
+
+_NO_DEFORM = np.zeros((0, 3, 3))
 
 
 def _check_state(pos, vel):
@@ -164,7 +209,8 @@ def _check_state(pos, vel):
 
 
 def step_puffs(pos: np.ndarray, vel: np.ndarray, age: np.ndarray, *, dt: float, time: float,
-               forces: ForceTables, obstacles: ObstacleTables, integrator: str = "symplectic") -> np.ndarray:
+               forces: ForceTables, obstacles: ObstacleTables, integrator: str = "symplectic",
+               deform: np.ndarray = None, follow=None, elongation=None) -> np.ndarray:
     """Advance puffs by one step, in place.
 
     Parameters
@@ -180,6 +226,12 @@ def step_puffs(pos: np.ndarray, vel: np.ndarray, age: np.ndarray, *, dt: float, 
     forces : ForceTables
     obstacles : ObstacleTables
     integrator : {"euler", "symplectic", "midpoint"}
+    deform : (N, 3, 3) float64 ndarray, C-contiguous, optional
+        Deformation gradients ``F``, advanced in place with the air velocity
+        gradient (see :mod:`splatter.sim.shaping`); None leaves shapes out.
+    follow, elongation : (N,) float64 array_like, optional
+        Per puff, with ``deform``: how strongly ``F`` follows the flow, and
+        the stretch ratio above which it relaxes.
 
     Returns
     -------
@@ -200,9 +252,17 @@ def step_puffs(pos: np.ndarray, vel: np.ndarray, age: np.ndarray, *, dt: float, 
     _wind_sum(forces.wind, t, wind0)
     _wind_sum(forces.wind, t + half, wind1)
     killed = np.zeros(pos.shape[0], dtype=np.int8)
+    n = pos.shape[0]
+    if deform is None:
+        deform, follow, elongation = _NO_DEFORM, np.zeros(0), np.zeros(0)
+    else:
+        _check_deform(deform, n)
+        follow = np.ascontiguousarray(np.broadcast_to(np.asarray(follow, dtype=np.float64), (n,)))
+        elongation = np.ascontiguousarray(np.broadcast_to(np.asarray(elongation, dtype=np.float64), (n,)))
     _step(pos, vel, age, float(dt), INTEGRATORS.index(integrator), forces.gravity, forces.drag, wind0, wind1,
           forces.lift, forces.swirl_q, forces.swirl_oct, forces.swirl_b, forces.swirl_phases(t),
-          forces.swirl_phases(t + half), forces.vortex, obstacles.planes, obstacles.spheres, killed)
+          forces.swirl_phases(t + half), forces.vortex, obstacles.planes, obstacles.spheres, killed,
+          forces.swirl_kt, deform, follow, elongation)
     return killed.astype(bool)
 
 
@@ -213,4 +273,16 @@ def air_velocity(pos: np.ndarray, *, time: float, forces: ForceTables) -> np.nda
         raise ValueError(f"pos must have shape (N, 3), got {pos.shape}")
     out = np.empty_like(pos)
     _air_velocity(pos, forces.swirl_q, forces.swirl_oct, forces.swirl_b, forces.swirl_phases(float(time)), forces.vortex, out)
+    return out
+
+
+def air_gradient(pos: np.ndarray, *, time: float, forces: ForceTables) -> np.ndarray:
+    """Air velocity gradient ``G[i, a, b] = du_a/dx_b`` at ``pos`` ((N, 3) float64) and force time
+    ``time``: (N, 3, 3) float64, 1/s.  Wind, gusts, gravity, drag and lift are uniform: they add nothing."""
+    pos = np.ascontiguousarray(pos, dtype=np.float64)
+    if pos.ndim != 2 or pos.shape[1] != 3:
+        raise ValueError(f"pos must have shape (N, 3), got {pos.shape}")
+    out = np.empty((pos.shape[0], 3, 3))
+    _air_gradient(pos, forces.swirl_q, forces.swirl_oct, forces.swirl_b, forces.swirl_kt,
+                  forces.swirl_phases(float(time)), forces.vortex, out)
     return out

@@ -335,3 +335,66 @@ def _swirl_velocity(pos, q, octaves, b, cs, out):
             out[i0 + j, 0] = buf[3, j]
             out[i0 + j, 1] = buf[4, j]
             out[i0 + j, 2] = buf[5, j]
+
+
+@numba.njit(**KERNEL)
+def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s):
+    """:func:`_swirl_block` plus the velocity gradient: ``g[3 a + b, i] += du_a/dx_b``.
+
+    The gradient of ``cos(theta_n) b_n`` taken with the field's central
+    difference is ``-sin(theta_n) b_n kt_n^T`` (``kt``: modified wavenumbers,
+    (M, 3)), so its trace ``-sin(theta_n) b_n . kt_n`` is zero to round-off,
+    like the divergence.  ``g`` is (9, >= n) float64.
+    """
+    m = 0
+    for d in range(q.shape[0]):
+        q0 = q[d, 0]
+        q1 = q[d, 1]
+        q2 = q[d, 2]
+        for i in range(n):
+            c[i], s[i] = _sincos(q0 * x[i] + q1 * y[i] + q2 * z[i])
+        for o in range(octaves[d]):
+            cp = cs[0, m]
+            sp = cs[1, m]
+            b0 = b[m, 0]
+            b1 = b[m, 1]
+            b2 = b[m, 2]
+            k0 = kt[m, 0]
+            k1 = kt[m, 1]
+            k2 = kt[m, 2]
+            # -b kt^T, the mode's gradient per unit sin(theta).
+            e00 = -b0 * k0
+            e01 = -b0 * k1
+            e02 = -b0 * k2
+            e10 = -b1 * k0
+            e11 = -b1 * k1
+            e12 = -b1 * k2
+            e20 = -b2 * k0
+            e21 = -b2 * k1
+            e22 = -b2 * k2
+            for i in range(n):
+                ct = c[i] * cp - s[i] * sp  # cos(2**o a + phase)
+                st = s[i] * cp + c[i] * sp  # sin(2**o a + phase)
+                ux[i] += ct * b0
+                uy[i] += ct * b1
+                uz[i] += ct * b2
+                g[0, i] += st * e00
+                g[1, i] += st * e01
+                g[2, i] += st * e02
+                g[3, i] += st * e10
+                g[4, i] += st * e11
+                g[5, i] += st * e12
+                g[6, i] += st * e20
+                g[7, i] += st * e21
+                g[8, i] += st * e22
+            if o + 1 < octaves[d]:
+                for i in range(n):
+                    c2 = c[i] * c[i] - s[i] * s[i]
+                    s[i] = 2.0 * s[i] * c[i]
+                    c[i] = c2
+            m += 1
+
+
+def modified_wavenumbers(field: SwirlField) -> np.ndarray:
+    """``kt = sin(k h) / h`` of each mode of ``field``: (M, 3) float64 (see the module docstring)."""
+    return np.ascontiguousarray(np.sin(field.k * field.h) / field.h)

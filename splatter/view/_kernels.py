@@ -5,7 +5,7 @@ writes only row ``i`` of each output (so results do not depend on the thread
 count):
 
 * ``_puff_covariances``: world covariance of each puff (rotation, per-axis
-  sigmas, motion stretch);
+  sigmas, the flow's deformation ``F``, motion stretch);
 * ``_project``: camera frame, EWA projection (or the orthographic scale), low
   pass and visibility, from given world covariances;
 * ``_project_puffs``: both in one pass, the 3x3 covariance kept in registers.
@@ -26,8 +26,12 @@ from splatter.core.jit import KERNEL, PARALLEL
 
 
 @numba.njit(inline="always", **KERNEL)
-def _cov_one(i, size, aspect, quat, vel, stretch):
-    """(c00, c01, c02, c11, c12, c22): R diag(s^2, (s a)^2, (s a)^2) R^T + L L^T / 12."""
+def _cov_one(i, size, aspect, quat, vel, stretch, deform):
+    """(c00, c01, c02, c11, c12, c22): F R diag(s^2, (s a)^2, (s a)^2) R^T F^T + L L^T / 12.
+
+    ``deform`` (N, 3, 3) or (0, 3, 3) (no shapes); an identity ``F`` is
+    skipped, so rigid puffs get exactly the arithmetic of the rigid formula.
+    """
     qw = quat[i, 0]
     qx = quat[i, 1]
     qy = quat[i, 2]
@@ -53,12 +57,48 @@ def _cov_one(i, size, aspect, quat, vel, stretch):
     l0 = stretch[i] * vel[i, 0]
     l1 = stretch[i] * vel[i, 1]
     l2 = stretch[i] * vel[i, 2]
-    c00 = (r00 * v0 * r00 + r01 * v1 * r01 + r02 * v1 * r02) + l0 * l0 / 12.0
-    c01 = (r00 * v0 * r10 + r01 * v1 * r11 + r02 * v1 * r12) + l0 * l1 / 12.0
-    c02 = (r00 * v0 * r20 + r01 * v1 * r21 + r02 * v1 * r22) + l0 * l2 / 12.0
-    c11 = (r10 * v0 * r10 + r11 * v1 * r11 + r12 * v1 * r12) + l1 * l1 / 12.0
-    c12 = (r10 * v0 * r20 + r11 * v1 * r21 + r12 * v1 * r22) + l1 * l2 / 12.0
-    c22 = (r20 * v0 * r20 + r21 * v1 * r21 + r22 * v1 * r22) + l2 * l2 / 12.0
+    s00 = r00 * v0 * r00 + r01 * v1 * r01 + r02 * v1 * r02
+    s01 = r00 * v0 * r10 + r01 * v1 * r11 + r02 * v1 * r12
+    s02 = r00 * v0 * r20 + r01 * v1 * r21 + r02 * v1 * r22
+    s11 = r10 * v0 * r10 + r11 * v1 * r11 + r12 * v1 * r12
+    s12 = r10 * v0 * r20 + r11 * v1 * r21 + r12 * v1 * r22
+    s22 = r20 * v0 * r20 + r21 * v1 * r21 + r22 * v1 * r22
+    if deform.shape[0] > 0:
+        f00 = deform[i, 0, 0]
+        f01 = deform[i, 0, 1]
+        f02 = deform[i, 0, 2]
+        f10 = deform[i, 1, 0]
+        f11 = deform[i, 1, 1]
+        f12 = deform[i, 1, 2]
+        f20 = deform[i, 2, 0]
+        f21 = deform[i, 2, 1]
+        f22 = deform[i, 2, 2]
+        ident = (f00 == 1.0 and f11 == 1.0 and f22 == 1.0 and f01 == 0.0 and f02 == 0.0 and f10 == 0.0
+                 and f12 == 0.0 and f20 == 0.0 and f21 == 0.0)
+        if not ident:
+            # T = F S0, then F S0 F^T (symmetric: six entries).
+            t00 = f00 * s00 + f01 * s01 + f02 * s02
+            t01 = f00 * s01 + f01 * s11 + f02 * s12
+            t02 = f00 * s02 + f01 * s12 + f02 * s22
+            t10 = f10 * s00 + f11 * s01 + f12 * s02
+            t11 = f10 * s01 + f11 * s11 + f12 * s12
+            t12 = f10 * s02 + f11 * s12 + f12 * s22
+            t20 = f20 * s00 + f21 * s01 + f22 * s02
+            t21 = f20 * s01 + f21 * s11 + f22 * s12
+            t22 = f20 * s02 + f21 * s12 + f22 * s22
+            s00 = t00 * f00 + t01 * f01 + t02 * f02
+            s01 = t00 * f10 + t01 * f11 + t02 * f12
+            s02 = t00 * f20 + t01 * f21 + t02 * f22
+            s11 = t10 * f10 + t11 * f11 + t12 * f12
+            s12 = t10 * f20 + t11 * f21 + t12 * f22
+            s22 = t20 * f20 + t21 * f21 + t22 * f22
+    # The motion smear is added after the shape: it is the puff's travel during the exposure.
+    c00 = s00 + l0 * l0 / 12.0
+    c01 = s01 + l0 * l1 / 12.0
+    c02 = s02 + l0 * l2 / 12.0
+    c11 = s11 + l1 * l1 / 12.0
+    c12 = s12 + l1 * l2 / 12.0
+    c22 = s22 + l2 * l2 / 12.0
     return c00, c01, c02, c11, c12, c22
 
 
@@ -148,10 +188,10 @@ def _project_one(i, pos, c00, c01, c02, c10, c11, c12, c20, c21, c22, rot, eye, 
 
 
 @numba.njit(**PARALLEL)
-def _puff_covariances(size, aspect, quat, vel, stretch, out):
+def _puff_covariances(size, aspect, quat, vel, stretch, deform, out):
     """out (N, 3, 3) float64: world covariance of each puff."""
     for i in numba.prange(size.shape[0]):
-        c00, c01, c02, c11, c12, c22 = _cov_one(i, size, aspect, quat, vel, stretch)
+        c00, c01, c02, c11, c12, c22 = _cov_one(i, size, aspect, quat, vel, stretch, deform)
         out[i, 0, 0] = c00
         out[i, 0, 1] = c01
         out[i, 0, 2] = c02
@@ -175,10 +215,10 @@ def _project(pos, cov, rot, eye, ortho, scale, width, height, near, low_pass,
 
 
 @numba.njit(**PARALLEL)
-def _project_puffs(pos, size, aspect, quat, vel, stretch, rot, eye, ortho, scale, width,
+def _project_puffs(pos, size, aspect, quat, vel, stretch, deform, rot, eye, ortho, scale, width,
                    height, near, low_pass, means, covs, depth, visible):
     """Puff covariance and projection in one pass per puff."""
     for i in numba.prange(pos.shape[0]):
-        c00, c01, c02, c11, c12, c22 = _cov_one(i, size, aspect, quat, vel, stretch)
+        c00, c01, c02, c11, c12, c22 = _cov_one(i, size, aspect, quat, vel, stretch, deform)
         _project_one(i, pos, c00, c01, c02, c01, c11, c12, c02, c12, c22, rot, eye, ortho,
                      scale, width, height, near, low_pass, means, covs, depth, visible)

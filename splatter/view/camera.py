@@ -252,8 +252,8 @@ def ewa_covariance(t_view, cov_view, fx, fy):
     return jac @ c @ jac.transpose(0, 2, 1)
 
 
-def puff_covariances(size, aspect, quat, vel, stretch):
-    """3D covariance of each puff, with motion stretch.
+def puff_covariances(size, aspect, quat, vel, stretch, deform=None):
+    """3D covariance of each puff, deformed by the flow, with motion stretch.
 
     Parameters
     ----------
@@ -267,24 +267,28 @@ def puff_covariances(size, aspect, quat, vel, stretch):
         Velocity (world units per second).
     stretch : (N,) float64 ndarray
         Seconds of motion to smear each puff over.
+    deform : (N, 3, 3) float64 ndarray, optional
+        Deformation gradient ``F`` of each puff (``FrameState.deform``);
+        None means rigid puffs (``F = I``).
 
     Returns
     -------
     (N, 3, 3) float64 ndarray
-        ``R diag(size^2, (size aspect)^2, (size aspect)^2) R^T + L L^T / 12``
-        with ``L = stretch * vel``: a uniform segment of length ``|L|`` has
+        ``F S0 F^T + L L^T / 12`` with the rigid covariance
+        ``S0 = R diag(size^2, (size aspect)^2, (size aspect)^2) R^T`` and
+        ``L = stretch * vel``: a uniform segment of length ``|L|`` has
         variance ``|L|^2 / 12`` along it.
     """
     size, aspect, quat, vel, stretch = _check_puffs(size, aspect, quat, vel, stretch)
     n = size.shape[0]
     out = np.empty((n, 3, 3))
-    _ck._puff_covariances(size, aspect, quat, vel, stretch, out)
+    _ck._puff_covariances(size, aspect, quat, vel, stretch, _check_deform(deform, n), out)
     return out
 
 
-def project_puffs(camera, pos, size, aspect, quat, vel, stretch):
+def project_puffs(camera, pos, size, aspect, quat, vel, stretch, deform=None):
     """Puff covariances and their projection in one pass: ``camera.project(pos,
-    puff_covariances(size, aspect, quat, vel, stretch))`` without the (N, 3, 3)
+    puff_covariances(size, aspect, quat, vel, stretch, deform))`` without the (N, 3, 3)
     intermediate.
 
     Parameters
@@ -292,7 +296,7 @@ def project_puffs(camera, pos, size, aspect, quat, vel, stretch):
     camera : Camera
     pos : (N, 3) float64 ndarray
         World positions.
-    size, aspect, quat, vel, stretch
+    size, aspect, quat, vel, stretch, deform
         As for :func:`puff_covariances`.
 
     Returns
@@ -307,8 +311,24 @@ def project_puffs(camera, pos, size, aspect, quat, vel, stretch):
     if np.shape(size) != (n,):
         raise ValueError(f"size: expected shape ({n},), got {np.shape(size)}")
     size, aspect, quat, vel, stretch = _check_puffs(size, aspect, quat, vel, stretch)
+    deform = _check_deform(deform, n)
     return _run_project(camera, pos, lambda *o: _ck._project_puffs(
-        pos, size, aspect, quat, vel, stretch, *camera._kernel_frame(), *o))
+        pos, size, aspect, quat, vel, stretch, deform, *camera._kernel_frame(), *o))
+
+
+_RIGID = np.zeros((0, 3, 3))
+
+
+def _check_deform(deform, n):
+    """``deform`` as a contiguous (n, 3, 3) float64 array, or the empty table for rigid puffs."""
+    if deform is None:
+        return _RIGID
+    deform = np.ascontiguousarray(deform, dtype=np.float64)
+    if deform.shape != (n, 3, 3):
+        raise ValueError(f"deform: expected shape ({n}, 3, 3), got {deform.shape}")
+    if not np.all(np.isfinite(deform)):
+        raise ValueError("deform: expected finite values, got NaN or infinity")
+    return deform
 
 
 def _check_puffs(size, aspect, quat, vel, stretch):

@@ -28,6 +28,7 @@ from dataclasses import replace
 import numpy as np
 
 from splatter.core.thresholds import CUTOFF, FIT_ALPHA, VISIBLE_ALPHA
+from splatter.sim.shaping import largest_stretch
 from splatter.view.camera import _check_array
 
 __all__ = ["visible_reach", "fit_view", "fit_camera", "border_alpha_share", "max_border_alpha",
@@ -168,10 +169,15 @@ def fit_camera(camera, states, *, opacity_of, margin):
         peak = opacity_of(state)
         visible = peak * (1.0 / FIT_ALPHA) > 1.0
         reach = visible_reach(peak[visible], FIT_ALPHA) / CUTOFF
-        # The long axis of a stretched puff: size, or half the smear length.
+        # The long axis of a stretched puff: size times the flow's largest
+        # stretch of it (exactly 1 for rigid puffs), or half the smear length.
         smear = np.linalg.norm(state.vel[visible], axis=1) * state.stretch[visible] * 0.5
+        axis = state.size[visible]
+        deform = getattr(state, "deform", None)
+        if deform is not None:
+            axis = axis * largest_stretch(deform[visible])
         pts.append(state.pos[visible])
-        rad.append(np.maximum(state.size[visible], smear / CUTOFF) * reach)
+        rad.append(np.maximum(axis, smear / CUTOFF) * reach)
     points = np.concatenate(pts) if pts else np.zeros((0, 3))
     radii = np.concatenate(rad) if rad else np.zeros(0)
     if points.shape[0] == 0:

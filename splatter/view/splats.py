@@ -120,7 +120,8 @@ def make_splats(
     m = len(state.size)
     if m == 0:
         return _empty(k, channels)
-    screen = project_puffs(camera, state.pos, state.size, state.aspect, state.quat, state.vel, state.stretch)
+    screen = project_puffs(camera, state.pos, state.size, state.aspect, state.quat, state.vel, state.stretch,
+                           state.deform)
     keep = np.asarray(screen.visible, dtype=bool)
     opac = effective_opacity(state.opacity, state.density, blend)
     keep &= opac > 0.0

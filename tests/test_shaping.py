@@ -1,0 +1,229 @@
+"""Puff shapes that follow the flow: the deformation gradient F, its update, its bound and its rendering."""
+
+import hashlib
+import math
+from pathlib import Path
+
+import numba
+import numpy as np
+import pytest
+
+import splatter.view.splats as splats_module
+from lookfiles import SMALL_PLUME, write_look
+from splatter.deliver.exr import read_exr
+from splatter.look.load import load_look
+from splatter.look.records import SwirlSpec, VortexSpec
+from splatter.render import render
+from splatter.sim.driver import simulate
+from splatter.sim.forces import pack_forces
+from splatter.sim.integrate import air_gradient, air_velocity, step_puffs
+from splatter.sim.obstacles import pack_obstacles
+from splatter.sim.shaping import advance_deform, relax_deform, stretch_ratio
+from splatter.view.camera import puff_covariances
+
+# SMALL_PLUME with a swirl strong enough that shapes clearly follow it.
+SHAPED_PLUME = SMALL_PLUME.replace("strength = 0.3", "strength = 1.5")
+
+
+def digests(folder):
+    return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in sorted(Path(folder).iterdir())}
+
+
+def quiet_render(look, out, **kw):
+    return render(look, out_dir=str(out), progress=False, **kw)
+
+
+def flows():
+    return pack_forces([SwirlSpec(strength=0.8, scale=0.5, octaves=3, evolve=2.0),
+                        VortexSpec(center=(0.3, 0.0, 0.0), radius=0.2, strength=1.0)], seed=3)
+
+
+def test_pure_shear_gives_the_shear_deformation():
+    # Simple shear u = (g y, 0, 0): dF/dt = G F with G = g e_x e_y^T gives
+    # F(t) = [[1, g t, 0], [0, 1, 0], [0, 0, 1]] (continuum mechanics, the
+    # deformation gradient of simple shear; from memory).
+    g, dt, steps = 1.3, 0.004, 250
+    f = np.eye(3)[None].copy()
+    grad = np.zeros((1, 3, 3))
+    grad[0, 0, 1] = g
+    for _ in range(steps):
+        advance_deform(f, grad, dt=dt, elongation=1e6)
+    expect = np.array([[1.0, g * dt * steps, 0.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]])
+    np.testing.assert_allclose(f[0], expect, rtol=0, atol=1e-12)
+
+
+def test_solid_rotation_turns_a_puff_without_changing_its_shape():
+    # u = w e_z x r (solid rotation about z): G = w [e_z]_x, F(t) is the
+    # rotation by w t about z (exact solution of dF/dt = G F for a constant
+    # skew G); the carried covariance F S0 F^T keeps its eigenvalues.
+    w, dt, steps = 2.0, 1e-3, 1000
+    grad = np.zeros((1, 3, 3))
+    grad[0, 0, 1] = -w
+    grad[0, 1, 0] = w
+    f = np.eye(3)[None].copy()
+    for _ in range(steps):
+        advance_deform(f, grad, dt=dt, elongation=1e6)
+    s0 = np.diag([0.09, 0.01, 0.04])
+    cov = f[0] @ s0 @ f[0].T
+    np.testing.assert_allclose(np.linalg.eigvalsh(cov), np.sort(np.diag(s0)), rtol=1e-12, atol=0)
+    # The Cayley map turns by 2 atan(w dt / 2) per step: w t to O(w^3 dt^2 t).
+    turned = math.atan2(f[0, 1, 0], f[0, 0, 0])
+    assert abs(turned - w * dt * steps) < 1e-6
+    assert abs(f[0, 2, 2] - 1.0) < 1e-12  # the axis is left alone (up to the det rescale's round-off)
+
+
+def central_gradient(pos, ft, h, t):
+    num = np.empty((pos.shape[0], 3, 3))
+    for b in range(3):
+        e = np.zeros(3)
+        e[b] = h
+        num[:, :, b] = (air_velocity(pos + e, time=t, forces=ft) - air_velocity(pos - e, time=t, forces=ft)) / (2 * h)
+    return num
+
+
+def test_swirl_gradient_matches_a_central_difference_of_the_velocity():
+    # The swirl is the exact central-difference curl with the field's step h
+    # (splatter.sim.swirl), so a central difference of the velocity with the
+    # same h gives exactly -sin(theta) b kt^T: the analytic gradient must agree
+    # to round-off.
+    ft = pack_forces([SwirlSpec(strength=0.8, scale=0.5, octaves=3, evolve=2.0)], seed=3)
+    pos = np.random.default_rng(0).uniform(-1.0, 1.0, (400, 3))
+    grad = air_gradient(pos, time=0.37, forces=ft)
+    scale = np.abs(grad).max()
+    assert scale > 1.0
+    assert np.abs(grad - central_gradient(pos, ft, ft.swirls[0].h, 0.37)).max() < 1e-9 * scale
+    # Divergence-free: the trace is zero to round-off (the modified
+    # wavenumbers make kt . (kt x a) vanish; Bridson et al. 2007 for curl noise).
+    assert np.abs(np.trace(grad, axis1=1, axis2=2)).max() < 1e-12 * scale
+
+
+def test_vortex_gradient_matches_a_central_difference_of_the_velocity():
+    # Rankine vortex: solid rotation inside the core, speed ~ 1/rho outside
+    # (Batchelor, An Introduction to Fluid Dynamics, from memory).  A central
+    # difference with step 1e-6 is accurate to ~1e-9 here; points within 1e-5
+    # of the core's rim are left out (the profile has a kink there).
+    ft = pack_forces([VortexSpec(center=(0.3, 0.0, 0.0), radius=0.2, strength=1.0)], seed=3)
+    pos = np.random.default_rng(0).uniform(-1.0, 1.0, (400, 3))
+    rho = np.hypot(pos[:, 0] - 0.3, pos[:, 2])
+    pos = pos[np.abs(rho - 0.2) > 1e-5]
+    assert (rho < 0.2).sum() > 5  # some points inside the core
+    grad = air_gradient(pos, time=0.37, forces=ft)
+    scale = np.abs(grad).max()
+    assert np.abs(grad - central_gradient(pos, ft, 1e-6, 0.37)).max() < 1e-6 * scale
+    assert np.abs(np.trace(grad, axis1=1, axis2=2)).max() < 1e-12 * scale
+
+
+def test_determinant_stays_one_through_the_step_kernel():
+    # In a divergence-free flow det F = 1 for all time (Liouville's theorem).
+    ft = flows()
+    ot = pack_obstacles([])
+    pos = np.random.default_rng(1).uniform(-0.6, 0.6, (300, 3))
+    vel = np.zeros_like(pos)
+    f = np.tile(np.eye(3), (300, 1, 1))
+    for s in range(400):
+        step_puffs(pos, vel, np.zeros(300), dt=1 / 60, time=s / 60, forces=ft, obstacles=ot,
+                   deform=f, follow=1.0, elongation=1000.0)
+    assert stretch_ratio(f).max() > 10.0  # the flow did deform them
+    np.testing.assert_allclose(np.linalg.det(f), 1.0, rtol=0, atol=1e-9)
+    # Shaping changes no position: with deform=None the same steps give the same bits.
+    pos2 = np.random.default_rng(1).uniform(-0.6, 0.6, (300, 3))
+    vel2 = np.zeros_like(pos2)
+    for s in range(400):
+        step_puffs(pos2, vel2, np.zeros(300), dt=1 / 60, time=s / 60, forces=ft, obstacles=ot)
+    assert np.array_equal(pos, pos2)
+
+
+def test_relax_bounds_the_stretch_ratio_and_keeps_volume_and_rotation():
+    rng = np.random.default_rng(2)
+    n = 50
+    q1 = np.linalg.qr(rng.normal(size=(n, 3, 3)))[0]
+    q2 = np.linalg.qr(rng.normal(size=(n, 3, 3)))[0]
+    s = np.exp(rng.uniform(-3.0, 3.0, (n, 3)))
+    s /= np.cbrt(np.prod(s, axis=1))[:, None]
+    f = q1 @ (s[:, :, None] * q2)  # F = Q1 diag(s) Q2, det +-1
+    f[np.linalg.det(f) < 0] *= -1.0
+    f = np.ascontiguousarray(f)
+    before = f.copy()
+    limit = 30.0
+    changed = relax_deform(f, limit)
+    over = stretch_ratio(before) > limit
+    np.testing.assert_array_equal(changed, over)
+    assert over.any() and not over.all()
+    np.testing.assert_allclose(stretch_ratio(f[over]), limit, rtol=1e-9)
+    np.testing.assert_allclose(np.linalg.det(f), 1.0, rtol=0, atol=1e-12)
+    assert np.array_equal(f[~over], before[~over])  # within the limit: untouched, bit for bit
+
+    # Polar decomposition F = R U (R = W V^T from the SVD F = W S V^T): the relax keeps R.
+    def rot(m):
+        w, _, vt = np.linalg.svd(m)
+        return w @ vt
+    np.testing.assert_allclose(rot(f[over]), rot(before[over]), atol=1e-9)
+
+
+def test_follow_zero_renders_the_rigid_puffs_byte_for_byte(tmp_path, monkeypatch):
+    # follow = 0 must give exactly the committed rigid behaviour: F stays the
+    # identity and the view's rigid path (deform=None, the unchanged formula) gives the same bytes.
+    text = SHAPED_PLUME.replace("[[source]]", "[[source]]\nfollow = 0", 1)
+    look = load_look(write_look(tmp_path, text))
+    for st in simulate(look, frames=[0, 6]):
+        assert np.array_equal(st.deform, np.tile(np.eye(3), (len(st), 1, 1)))
+    shaped = digests(quiet_render(look, tmp_path / "shaped").out_dir)
+    real = splats_module.project_puffs
+    monkeypatch.setattr(splats_module, "project_puffs", lambda *a: real(*a[:7]))
+    rigid = digests(quiet_render(look, tmp_path / "rigid").out_dir)
+    assert shaped == rigid
+
+
+def test_shapes_reach_the_covariance():
+    # A Gaussian of covariance S0 carried by the flow has covariance F S0 F^T.
+    rng = np.random.default_rng(3)
+    n = 20
+    size = rng.uniform(0.05, 0.2, n)
+    aspect = rng.uniform(0.3, 1.0, n)
+    quat = rng.normal(size=(n, 4))
+    vel = rng.normal(size=(n, 3))
+    stretch = rng.uniform(0.0, 0.1, n)
+    f = np.eye(3) + 0.5 * rng.normal(size=(n, 3, 3))
+    s0 = puff_covariances(size, aspect, quat, np.zeros((n, 3)), np.zeros(n))
+    ll = (stretch[:, None] * vel)[:, :, None] * (stretch[:, None] * vel)[:, None, :] / 12.0
+    np.testing.assert_allclose(puff_covariances(size, aspect, quat, vel, stretch, f),
+                               f @ s0 @ f.transpose(0, 2, 1) + ll, rtol=1e-12, atol=1e-15)
+
+
+def test_exact_loop_closes_with_shapes_on(tmp_path):
+    # Same promise as tests/test_render.py's exact-loop test, with shapes that
+    # clearly follow the flow: a puff and its twin one period later see the same
+    # periodic flow, so they carry the same F at the same age.
+    look = load_look(write_look(tmp_path, SHAPED_PLUME))
+    n = look.clip.frames
+    s0, sn = simulate(look, frames=[0, n])
+    assert stretch_ratio(s0.deform).max() > 2.0
+    assert np.array_equal(s0.deform, sn.deform)
+    res = quiet_render(look, tmp_path / "loop", frames=[0, n])
+    f0 = read_exr(Path(res.out_dir) / "small_plume.0000.exr")
+    fn = read_exr(Path(res.out_dir) / f"small_plume.{n:04d}.exr")
+    for c in "RGBA":
+        assert np.max(np.abs(fn[c] - f0[c])) <= 1e-6
+    assert f0["A"].max() > 0.1
+
+
+def test_thread_count_and_frame_range_change_no_byte_with_shapes_on(tmp_path):
+    look = load_look(write_look(tmp_path, SHAPED_PLUME))
+    old = numba.get_num_threads()
+    try:
+        numba.set_num_threads(1)
+        one = digests(quiet_render(look, tmp_path / "one").out_dir)
+        numba.set_num_threads(numba.config.NUMBA_NUM_THREADS)
+        many = digests(quiet_render(look, tmp_path / "many").out_dir)
+    finally:
+        numba.set_num_threads(old)
+    assert one == many
+    part = digests(quiet_render(look, tmp_path / "part", frames=range(5, 8)).out_dir)
+    assert part == {k: many[k] for k in part}
+
+
+@pytest.mark.parametrize("bad", ["follow = 1.5", "follow = -0.1", "elongation = 1.0", "elongation = 5000"])
+def test_shape_keys_are_checked(tmp_path, bad):
+    from splatter.core.errors import LookError
+    with pytest.raises(LookError):
+        load_look(write_look(tmp_path, SMALL_PLUME.replace("[[source]]", "[[source]]\n" + bad, 1)))
