@@ -27,7 +27,7 @@ from splatter.raster.maps import normal_map
 from splatter.deliver.sink import OutputSink
 from splatter.sim.driver import SimPlan, plan_simulation, simulate
 from splatter.sim.plan import has_auto_octaves, with_octaves
-from splatter.view.splats import effective_opacity, feature_layout, make_splats, split_layers
+from splatter.view.splats import effective_opacity, feature_layout, make_splats, split_layers, thin_stretched
 
 __all__ = ["render", "RenderResult", "make_camera", "plan_and_camera", "look_plan", "pixel_size", "output_dir",
            "frame_images"]
@@ -106,8 +106,14 @@ def make_camera(look: LookSpec, plan: Optional[SimPlan] = None, frames: Optional
     if frames is None:
         frames = range(look.clip.frames + _crossfade_frames(look))
     blend = look.shading.blend
-    return fit_camera(cam, simulate(look, plan, frames=frames), margin=c.margin,
-                      opacity_of=lambda s: effective_opacity(s.opacity, s.density, blend))
+
+    def seen(state):
+        # Peak opacity as composited: stretched puffs thin as they do in make_splats
+        # (the fit keeps the view direction, so the camera's axes are already final).
+        op = effective_opacity(state.opacity, state.density, blend)
+        return op if getattr(state, "deform", None) is None else thin_stretched(op, state, cam)
+
+    return fit_camera(cam, simulate(look, plan, frames=frames), margin=c.margin, opacity_of=seen)
 
 
 def pixel_size(camera: Camera) -> float:

@@ -222,6 +222,16 @@ def _born(src, u, ids, slots, source, bstep, bfrac, dt):
                 pos=p["pos"] + p["vel"] * age0[:, None], vel=p["vel"], deform=np.tile(np.eye(3), (ids.size, 1, 1)))
 
 
+def _sizes(look, source, size0, x) -> np.ndarray:
+    """Current sigmas: birth size times each source's ``grow`` ramp at age fraction ``x``."""
+    size = np.empty(size0.shape[0])
+    for i, src in enumerate(look.sources):
+        sel = source == i
+        if sel.any():
+            size[sel] = size0[sel] * evaluate_ramp(src.grow, x[sel])
+    return size
+
+
 def _frame_state(look, plan: SimPlan, puffs: _Puffs, frame: int, step: int) -> FrameState:
     a = puffs.a
     live = np.flatnonzero(puffs.live[:puffs.n])
@@ -230,18 +240,17 @@ def _frame_state(look, plan: SimPlan, puffs: _Puffs, frame: int, step: int) -> F
     age = ((step - pick["bstep"]) + pick["bfrac"]) * plan.dt
     m = age.shape[0]
     x = age / pick["life"]
-    size = np.empty(m)
     opacity = np.empty(m)
     color = np.empty((m, 3))
     glow = np.zeros((m, 3))
     stretch = np.empty(m)
     density = np.empty(m)
+    size = _sizes(look, pick["source"], pick["size0"], x)
     for i, src in enumerate(look.sources):
         sel = pick["source"] == i
         if not sel.any():
             continue
         xs = x[sel]
-        size[sel] = pick["size0"][sel] * evaluate_ramp(src.grow, xs)
         opacity[sel] = evaluate_ramp(src.opacity, xs) * np.exp(-float(src.fade) * age[sel])
         color[sel] = evaluate_color_ramp(src.color, xs)
         if src.glow is not None:
@@ -296,10 +305,12 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int]) -> 
         if s > 0 and len(puffs):
             a = puffs.a
             src = a["source"]
-            killed = step_puffs(a["pos"], a["vel"], puffs.ages(s - 1, plan.dt), dt=plan.dt,
+            ages = puffs.ages(s - 1, plan.dt)
+            sigma = _sizes(look, src, a["size0"], ages / a["life"]) if shaping else None
+            killed = step_puffs(a["pos"], a["vel"], ages, dt=plan.dt,
                                 time=plan.force_time(s - 1), forces=plan.forces, obstacles=plan.obstacles,
                                 integrator=plan.integrator, deform=a["deform"] if shaping else None,
-                                follow=follow[src], elongation=elongation[src])
+                                follow=follow[src], elongation=elongation[src], sigma=sigma)
             puffs.kill(killed)
         parts, next_id = _spawn(look, plan, s, cursors, draws, next_id)
         puffs.add(parts)

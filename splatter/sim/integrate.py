@@ -40,7 +40,8 @@ def _air_block(buf, px, ux, n, sq, so, sb, cs, vortex, skt, gx):
     """Swirl plus vortex air velocity at points in ``buf[px:px+3]`` into ``buf[ux:ux+3]``; rows 12-13 scratch.
 
     When ``gx > 0`` also the velocity gradient into ``buf[gx:gx+9]``
-    (row ``gx + 3 a + b`` holds ``du_a/dx_b``), in the same pass over the modes.
+    (row ``gx + 3 a + b`` holds ``du_a/dx_b``), in the same pass over the modes,
+    as seen by puffs of the sigmas in ``buf[23]`` (row 24 scratch).
     """
     for j in range(n):
         buf[ux, j] = 0.0
@@ -54,7 +55,7 @@ def _air_block(buf, px, ux, n, sq, so, sb, cs, vortex, skt, gx):
     if sq.shape[0]:
         if gx > 0:
             _swirl_grad_block(buf[px], buf[px + 1], buf[px + 2], n, sq, so, sb, skt, cs, buf[ux], buf[ux + 1],
-                              buf[ux + 2], g, buf[12], buf[13])
+                              buf[ux + 2], g, buf[12], buf[13], buf[23], buf[24])
         else:
             _swirl_block(buf[px], buf[px + 1], buf[px + 2], n, sq, so, sb, cs, buf[ux], buf[ux + 1], buf[ux + 2],
                          buf[12], buf[13])
@@ -70,12 +71,14 @@ def _air_block(buf, px, ux, n, sq, so, sb, cs, vortex, skt, gx):
 
 @numba.njit(**KERNEL)
 def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, lift, sq, so, sb, ph0, ph1,
-                vortex, planes, spheres, killed, buf, skt, deform, follow, elong, work):
-    """Advance puffs ``i0 .. i0+n-1``; ``buf`` is (23, BLOCK) scratch, ``work`` (2, 3, 3).
+                vortex, planes, spheres, killed, buf, skt, deform, follow, elong, sigma, work):
+    """Advance puffs ``i0 .. i0+n-1``; ``buf`` is (25, BLOCK) scratch, ``work`` (2, 3, 3).
 
     Rows: 0-2 position, 3-5 air velocity there, 6-8 midpoint position,
     9-11 air velocity at the midpoint, 12-13 swirl scratch, 14-22 the air
-    velocity gradient (only when ``deform`` has rows: shapes follow the flow).
+    velocity gradient (only when ``deform`` has rows: shapes follow the flow),
+    23 the puffs' sigmas (the gradient is the one each puff feels as a whole),
+    24 scratch.
     The gradient is taken where the step's air velocity is: at the start for
     Euler and symplectic Euler, at the midpoint for the midpoint rule.
     """
@@ -89,6 +92,7 @@ def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, li
         buf[0, j] = pos[i0 + j, 0]
         buf[1, j] = pos[i0 + j, 1]
         buf[2, j] = pos[i0 + j, 2]
+        buf[23, j] = sigma[i0 + j] if shaping else 0.0
     _air_block(buf, 0, 3, n, sq, so, sb, ph0, vortex, skt, 14 if shaping and method != 2 else 0)
     if method == 2:
         for j in range(n):
@@ -147,16 +151,16 @@ def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, li
 
 @numba.njit(**PARALLEL)
 def _step(pos, vel, age, h, method, gravity, drag, wind0, wind1, lift, sq, so, sb, ph0, ph1, vortex,
-          planes, spheres, killed, skt, deform, follow, elong):
+          planes, spheres, killed, skt, deform, follow, elong, sigma):
     """Advance every puff by one step ``h``; ``wind0/ph0`` at the step's start, ``wind1/ph1`` half-way."""
     nblocks = (pos.shape[0] + BLOCK - 1) // BLOCK
     for blk in numba.prange(nblocks):
         i0 = blk * BLOCK
         n = min(pos.shape[0], i0 + BLOCK) - i0
-        buf = np.empty((23, BLOCK))
+        buf = np.empty((25, BLOCK))
         work = np.empty((2, 3, 3))
         _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, lift, sq, so, sb, ph0, ph1,
-                    vortex, planes, spheres, killed, buf, skt, deform, follow, elong, work)
+                    vortex, planes, spheres, killed, buf, skt, deform, follow, elong, sigma, work)
 
 
 @numba.njit(**PARALLEL)
@@ -178,17 +182,18 @@ def _air_velocity(pos, sq, so, sb, cs, vortex, out):
 
 
 @numba.njit(**PARALLEL)
-def _air_gradient(pos, sq, so, sb, skt, cs, vortex, out):
-    """out (N, 3, 3): the air velocity gradient at each position."""
+def _air_gradient(pos, sq, so, sb, skt, cs, vortex, sigma, out):
+    """out (N, 3, 3): the air velocity gradient at each position, felt by a puff of ``sigma`` there."""
     nblocks = (pos.shape[0] + BLOCK - 1) // BLOCK
     for blk in numba.prange(nblocks):
         i0 = blk * BLOCK
         n = min(pos.shape[0], i0 + BLOCK) - i0
-        buf = np.empty((23, BLOCK))
+        buf = np.empty((25, BLOCK))
         for j in range(n):
             buf[0, j] = pos[i0 + j, 0]
             buf[1, j] = pos[i0 + j, 1]
             buf[2, j] = pos[i0 + j, 2]
+            buf[23, j] = sigma[i0 + j]
         _air_block(buf, 0, 3, n, sq, so, sb, cs, vortex, skt, 14)
         for j in range(n):
             for r in range(9):
@@ -210,7 +215,7 @@ def _check_state(pos, vel):
 
 def step_puffs(pos: np.ndarray, vel: np.ndarray, age: np.ndarray, *, dt: float, time: float,
                forces: ForceTables, obstacles: ObstacleTables, integrator: str = "symplectic",
-               deform: np.ndarray = None, follow=None, elongation=None) -> np.ndarray:
+               deform: np.ndarray = None, follow=None, elongation=None, sigma=None) -> np.ndarray:
     """Advance puffs by one step, in place.
 
     Parameters
@@ -232,6 +237,10 @@ def step_puffs(pos: np.ndarray, vel: np.ndarray, age: np.ndarray, *, dt: float, 
     follow, elongation : (N,) float64 array_like, optional
         Per puff, with ``deform``: how strongly ``F`` follows the flow, and
         the stretch ratio above which it relaxes.
+    sigma : (N,) float64 array_like, optional
+        Per puff, with ``deform``: its current sigma; the flow's gradient is
+        the one the whole puff feels (eddies smaller than it are filtered out).
+        Default 0 (the point gradient).
 
     Returns
     -------
@@ -254,15 +263,17 @@ def step_puffs(pos: np.ndarray, vel: np.ndarray, age: np.ndarray, *, dt: float, 
     killed = np.zeros(pos.shape[0], dtype=np.int8)
     n = pos.shape[0]
     if deform is None:
-        deform, follow, elongation = _NO_DEFORM, np.zeros(0), np.zeros(0)
+        deform, follow, elongation, sigma = _NO_DEFORM, np.zeros(0), np.zeros(0), np.zeros(0)
     else:
         _check_deform(deform, n)
         follow = np.ascontiguousarray(np.broadcast_to(np.asarray(follow, dtype=np.float64), (n,)))
         elongation = np.ascontiguousarray(np.broadcast_to(np.asarray(elongation, dtype=np.float64), (n,)))
+        sigma = np.ascontiguousarray(np.broadcast_to(np.asarray(0.0 if sigma is None else sigma, dtype=np.float64),
+                                                     (n,)))
     _step(pos, vel, age, float(dt), INTEGRATORS.index(integrator), forces.gravity, forces.drag, wind0, wind1,
           forces.lift, forces.swirl_q, forces.swirl_oct, forces.swirl_b, forces.swirl_phases(t),
           forces.swirl_phases(t + half), forces.vortex, obstacles.planes, obstacles.spheres, killed,
-          forces.swirl_kt, deform, follow, elongation)
+          forces.swirl_kt, deform, follow, elongation, sigma)
     return killed.astype(bool)
 
 
@@ -276,13 +287,17 @@ def air_velocity(pos: np.ndarray, *, time: float, forces: ForceTables) -> np.nda
     return out
 
 
-def air_gradient(pos: np.ndarray, *, time: float, forces: ForceTables) -> np.ndarray:
+def air_gradient(pos: np.ndarray, *, time: float, forces: ForceTables, sigma=0.0) -> np.ndarray:
     """Air velocity gradient ``G[i, a, b] = du_a/dx_b`` at ``pos`` ((N, 3) float64) and force time
-    ``time``: (N, 3, 3) float64, 1/s.  Wind, gusts, gravity, drag and lift are uniform: they add nothing."""
+    ``time``: (N, 3, 3) float64, 1/s.  Wind, gusts, gravity, drag and lift are uniform: they add nothing.
+
+    ``sigma`` (scalar or (N,)): the swirl's gradient as felt by a Gaussian puff of that sigma
+    (each mode weighted by ``exp(-|k|^2 sigma^2 / 2)``); 0 gives the point gradient."""
     pos = np.ascontiguousarray(pos, dtype=np.float64)
     if pos.ndim != 2 or pos.shape[1] != 3:
         raise ValueError(f"pos must have shape (N, 3), got {pos.shape}")
     out = np.empty((pos.shape[0], 3, 3))
+    sigma = np.ascontiguousarray(np.broadcast_to(np.asarray(sigma, dtype=np.float64), (pos.shape[0],)))
     _air_gradient(pos, forces.swirl_q, forces.swirl_oct, forces.swirl_b, forces.swirl_kt,
-                  forces.swirl_phases(float(time)), forces.vortex, out)
+                  forces.swirl_phases(float(time)), forces.vortex, sigma, out)
     return out

@@ -338,21 +338,30 @@ def _swirl_velocity(pos, q, octaves, b, cs, out):
 
 
 @numba.njit(**KERNEL)
-def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s):
+def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s, sig, w):
     """:func:`_swirl_block` plus the velocity gradient: ``g[3 a + b, i] += du_a/dx_b``.
 
     The gradient of ``cos(theta_n) b_n`` taken with the field's central
     difference is ``-sin(theta_n) b_n kt_n^T`` (``kt``: modified wavenumbers,
     (M, 3)), so its trace ``-sin(theta_n) b_n . kt_n`` is zero to round-off,
     like the divergence.  ``g`` is (9, >= n) float64.
+
+    The gradient is the one a puff of sigma ``sig[i]`` feels as a whole: each
+    mode's term is weighted by ``exp(-|k|^2 sig^2 / 2)``, the Fourier
+    transform of the puff's Gaussian, so eddies smaller than the puff mix
+    its inside instead of stretching it (``sig = 0``: the point gradient).
+    Octave ``o`` of a direction has ``|k| = 2**o |q|``, so its weight is the
+    previous octave's to the fourth power. ``w`` is scratch of ``n``.
     """
     m = 0
     for d in range(q.shape[0]):
         q0 = q[d, 0]
         q1 = q[d, 1]
         q2 = q[d, 2]
+        qq = -0.5 * (q0 * q0 + q1 * q1 + q2 * q2)
         for i in range(n):
             c[i], s[i] = _sincos(q0 * x[i] + q1 * y[i] + q2 * z[i])
+            w[i] = math.exp(qq * sig[i] * sig[i])
         for o in range(octaves[d]):
             cp = cs[0, m]
             sp = cs[1, m]
@@ -374,7 +383,7 @@ def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s):
             e22 = -b2 * k2
             for i in range(n):
                 ct = c[i] * cp - s[i] * sp  # cos(2**o a + phase)
-                st = s[i] * cp + c[i] * sp  # sin(2**o a + phase)
+                st = (s[i] * cp + c[i] * sp) * w[i]  # sin(2**o a + phase), seen by the whole puff
                 ux[i] += ct * b0
                 uy[i] += ct * b1
                 uz[i] += ct * b2
@@ -392,6 +401,8 @@ def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s):
                     c2 = c[i] * c[i] - s[i] * s[i]
                     s[i] = 2.0 * s[i] * c[i]
                     c[i] = c2
+                    w2 = w[i] * w[i]
+                    w[i] = w2 * w2
             m += 1
 
 

@@ -24,7 +24,7 @@ from typing import Dict, Optional, Tuple
 import numpy as np
 
 from splatter.core.thresholds import MAX_OPACITY
-from splatter.view.camera import Camera, project_puffs
+from splatter.view.camera import Camera, project_puffs, puff_covariances
 
 __all__ = ["ScreenSplats", "make_splats", "effective_opacity", "feature_layout"]
 
@@ -80,6 +80,50 @@ def effective_opacity(opacity, density, blend: str):
     return 1.0 - np.power(1.0 - np.minimum(opacity, MAX_OPACITY), np.asarray(density, dtype=np.float64))
 
 
+def thin_stretched(opacity, state, camera: Camera) -> np.ndarray:
+    """Peak opacity of puffs the flow has stretched across the view, their smoke kept.
+
+    A puff keeps its volume and its smoke as the flow deforms it
+    (``det F = 1``), so when its footprint on screen grows, the smoke seen
+    through each point thins in proportion: the line integral of a 3D
+    Gaussian through its centre is ``rho0 sqrt(2 pi det S / det S2)`` with
+    ``S2`` the covariance across the view (the Beer-Lambert formula in
+    Pharr, Jakob and Humphreys, *Physically Based Rendering*, 4th ed., 11.2,
+    for a Gaussian medium). Optical depth is scaled by
+    ``r = sqrt(det S2_rigid / det S2_deformed)`` where that is below 1:
+    ``a' = 1 - (1 - a)**r``. A filament drawn out by the flow fades as it
+    thins, as a real wisp does, instead of standing out as a needle. A puff
+    squeezed across the view (``r > 1``) is left as it is, so no bright dots
+    appear. The view plane is the camera's (right, up) plane.
+
+    Parameters
+    ----------
+    opacity : (M,) float64 ndarray
+    state : FrameState-like
+        ``size``, ``aspect``, ``quat``, ``deform (M, 3, 3)``.
+    camera : Camera
+
+    Returns
+    -------
+    (M,) float64 ndarray
+        Unchanged (bit for bit) where ``F`` does not widen the footprint.
+    """
+    m = len(opacity)
+    zeros = np.zeros((m, 3))
+    rigid = puff_covariances(state.size, state.aspect, state.quat, zeros, np.zeros(m))
+    f = np.asarray(state.deform, dtype=np.float64)
+    deformed = f @ rigid @ f.transpose(0, 2, 1)
+    right, up, _ = camera.axes
+    plane = np.stack([right, up])  # (2, 3)
+    d_rigid = np.linalg.det(plane @ rigid @ plane.T)
+    d_deformed = np.linalg.det(plane @ deformed @ plane.T)
+    ratio = np.sqrt(d_rigid / np.maximum(d_deformed, 1e-300))
+    thin = ratio < 1.0
+    out = np.array(opacity, dtype=np.float64)
+    out[thin] = 1.0 - np.power(1.0 - np.minimum(out[thin], MAX_OPACITY), ratio[thin])
+    return out
+
+
 def make_splats(
     state,
     camera: Camera,
@@ -124,6 +168,8 @@ def make_splats(
                            state.deform)
     keep = np.asarray(screen.visible, dtype=bool)
     opac = effective_opacity(state.opacity, state.density, blend)
+    if getattr(state, "deform", None) is not None:
+        opac = thin_stretched(opac, state, camera)
     keep &= opac > 0.0
     idx = np.nonzero(keep)[0]
     if idx.size == 0:
