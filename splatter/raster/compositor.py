@@ -17,6 +17,7 @@ import glob
 import numbers
 import os
 import threading
+import time
 
 import numba
 import numpy as np
@@ -192,6 +193,18 @@ def composite_features(means, covs, features, opacities, *, shape, blend="over")
     if np.any(opacities < 0) or np.any(opacities > 1):
         raise ValueError("opacities: expected values in [0, 1], got values outside")
 
+    return _render(means, covs, features, opacities, height, width, blend)
+
+
+def _render(means, covs, features, opacities, height, width, blend, times=None):
+    """Lay out checked splats and run the tile kernel; the steps after the checks.
+
+    times : dict, optional
+        When given, the seconds each step took are added to it under
+        ``"prepare"``, ``"tables"``, ``"binning"`` and ``"kernel"`` (for
+        ``scripts/bench_composite.py``).
+    """
+    clock = _Clock(times)
     nk = features.shape[1]
     out = np.empty((height, width, nk + 1), dtype=np.float32)
     mode = _MODES[blend]
@@ -200,6 +213,7 @@ def composite_features(means, covs, features, opacities, *, shape, blend="over")
     else:
         peaks = opacities
     peaks = np.ascontiguousarray(peaks, dtype=np.float32)
+    n = means.shape[0]
     params = np.empty((n, _k.N_PARAMS), dtype=np.float64)
     ranges = np.empty((n, _k.N_RANGES), dtype=np.int64)
     tlen = np.empty(n, dtype=np.int64)
@@ -208,8 +222,10 @@ def composite_features(means, covs, features, opacities, *, shape, blend="over")
                 peaks, height, width, params, ranges, tlen)
     toff = np.cumsum(tlen)
     ranges[:, _k.N_RANGES - 1] = toff - tlen
+    clock.lap("prepare")
     tables = _table_scratch(int(toff[-1]) if n else 0)
     _k._fill_tables(params, ranges, peaks, tables)
+    clock.lap("tables")
     ntx = -(-width // _k.TILE_W)
     nty = -(-height // _k.TILE_H)
     offsets = np.empty(ntx * nty + 1, dtype=np.int64)
@@ -223,10 +239,26 @@ def composite_features(means, covs, features, opacities, *, shape, blend="over")
     # one corner still keeps every thread busy.
     ty, tx = np.divmod(np.arange(ntx * nty), ntx)
     tile_order = np.argsort((ty + tx) % numba.get_num_threads(), kind="stable")
+    clock.lap("binning")
     kernel = _k.render_kernel(mode, nk == 3)
     kernel(params, ranges, tables, np.ascontiguousarray(features, dtype=np.float32),
            peaks, offsets, order, tile_order, out)
+    clock.lap("kernel")
     return out
+
+
+class _Clock:
+    """Adds the seconds since the last lap to ``times[name]`` (does nothing without ``times``)."""
+
+    def __init__(self, times):
+        self.times = times
+        self.t = time.perf_counter() if times is not None else 0.0
+
+    def lap(self, name):
+        if self.times is not None:
+            now = time.perf_counter()
+            self.times[name] = self.times.get(name, 0.0) + now - self.t
+            self.t = now
 
 
 def _table_scratch(size):
