@@ -348,3 +348,51 @@ def test_each_weight_is_within_the_documented_relative_error():
         np.testing.assert_array_equal(got > 0, inside)
         worst = max(worst, np.max(np.abs(got[inside] / want[inside] - 1.0)))
     assert worst < 2e-6
+
+
+def tiny_and_large_splats(rng, n, h, w, tiny_share=0.8):
+    """n splats in random depth order: most tiny (sigma 0.5-3 px), the rest large (10-40 px)."""
+    tiny = rng.uniform(0, 1, n) < tiny_share
+    covs = np.where(tiny[:, None, None], random_covs(rng, n, (0.5, 3.0), (0.2, 1.0)),
+                    random_covs(rng, n, (10.0, 40.0), (0.2, 1.0)))
+    means = np.stack([rng.uniform(-5, w + 5, n), rng.uniform(-5, h + 5, n)], 1)
+    feats = rng.uniform(0, 1, (n, 3))
+    opac = rng.uniform(0.05, 0.9, n)
+    return (means.astype(np.float32), covs.astype(np.float32),
+            feats.astype(np.float32), opac.astype(np.float32))
+
+
+@pytest.mark.parametrize("blend", ["over", "absorb"])
+def test_tiny_and_large_splats_mixed_match_reference(blend):
+    # Tiny splats (one to a few chunks a row, some narrower than a pixel)
+    # interleaved with large ones in one depth order: "over" is not
+    # commutative, so each pixel must still see them exactly back to front.
+    rng = np.random.default_rng(31)
+    h, w = 70, 90
+    means, covs, feats, opac = tiny_and_large_splats(rng, 400, h, w)
+    got = composite_features(means, covs, feats, opac, shape=(h, w), blend=blend)
+    want = reference(means, covs, feats, opac, (h, w), blend)
+    assert np.abs(got - want).max() <= 1e-5
+
+
+def test_thread_count_does_not_change_pixels_of_many_tiny_splats():
+    # The benchmark's detailed-smoke workload, scaled down: many tiny splats,
+    # most tiles holding hundreds, over blending.
+    rng = np.random.default_rng(12)
+    h, w = 256, 256
+    n = 30_000
+    means = rng.uniform(0, [w, h], (n, 2)).astype(np.float32)
+    covs = random_covs(rng, n, (0.7, 3.0), (0.25, 1.0)).astype(np.float32)
+    feats = rng.uniform(0, 1, (n, 3)).astype(np.float32)
+    opac = rng.uniform(0.05, 0.5, n).astype(np.float32)
+    if numba.config.NUMBA_NUM_THREADS < 2:
+        pytest.skip("needs at least two numba threads")
+    old = numba.get_num_threads()
+    try:
+        numba.set_num_threads(1)
+        one = composite(means, covs, feats, opac, shape=(h, w))
+        numba.set_num_threads(2)
+        many = composite(means, covs, feats, opac, shape=(h, w))
+    finally:
+        numba.set_num_threads(old)
+    np.testing.assert_array_equal(one, many)
