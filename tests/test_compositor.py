@@ -385,13 +385,14 @@ def test_thread_count_does_not_change_pixels_of_many_tiny_splats():
     covs = random_covs(rng, n, (0.7, 3.0), (0.25, 1.0)).astype(np.float32)
     feats = rng.uniform(0, 1, (n, 3)).astype(np.float32)
     opac = rng.uniform(0.05, 0.5, n).astype(np.float32)
+    if numba.config.NUMBA_NUM_THREADS < 2:
+        pytest.skip("needs at least two numba threads")
     old = numba.get_num_threads()
     try:
         numba.set_num_threads(1)
         one = composite(means, covs, feats, opac, shape=(h, w))
-        numba.set_num_threads(numba.config.NUMBA_NUM_THREADS)
+        numba.set_num_threads(2)
         many = composite(means, covs, feats, opac, shape=(h, w))
     finally:
         numba.set_num_threads(old)
-    assert numba.config.NUMBA_NUM_THREADS >= 2
     np.testing.assert_array_equal(one, many)

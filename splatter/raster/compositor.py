@@ -17,6 +17,7 @@ import glob
 import numbers
 import os
 import threading
+import time
 
 import numba
 import numpy as np
@@ -32,7 +33,7 @@ TILE = (_k.TILE_H, _k.TILE_W)
 _MODES = {"over": _k.MODE_OVER, "add": _k.MODE_ADD, "absorb": _k.MODE_ABSORB}
 
 _SCRATCH = threading.local()
-"""Per-thread reusable work arrays (see :func:`_table_scratch`)."""
+"""Per-thread reusable work arrays (see :func:`_scratch`)."""
 
 
 def kernels_cached() -> bool:
@@ -192,6 +193,18 @@ def composite_features(means, covs, features, opacities, *, shape, blend="over")
     if np.any(opacities < 0) or np.any(opacities > 1):
         raise ValueError("opacities: expected values in [0, 1], got values outside")
 
+    return _render(means, covs, features, opacities, height, width, blend)
+
+
+def _render(means, covs, features, opacities, height, width, blend, times=None):
+    """Lay out checked splats and run the tile kernel; the steps after the checks.
+
+    times : dict, optional
+        When given, the seconds each step took are added to it under
+        ``"prepare"``, ``"tables"``, ``"binning"`` and ``"kernel"`` (for
+        ``scripts/bench_composite.py``).
+    """
+    clock = _Clock(times)
     nk = features.shape[1]
     out = np.empty((height, width, nk + 1), dtype=np.float32)
     mode = _MODES[blend]
@@ -200,21 +213,23 @@ def composite_features(means, covs, features, opacities, *, shape, blend="over")
     else:
         peaks = opacities
     peaks = np.ascontiguousarray(peaks, dtype=np.float32)
-    params = np.empty((n, _k.N_PARAMS), dtype=np.float64)
-    ranges = np.empty((n, _k.N_RANGES), dtype=np.int64)
-    tlen = np.empty(n, dtype=np.int64)
-    _k._prepare(np.ascontiguousarray(means, dtype=np.float64),
-                np.ascontiguousarray(covs, dtype=np.float64),
+    n = means.shape[0]
+    params = _scratch("params", (n, _k.N_PARAMS), np.float64)
+    ranges = _scratch("ranges", (n, _k.N_RANGES), np.int64)
+    tlen = _scratch("tlen", (n,), np.int64)
+    _k._prepare(_as_kernel_floats(means), _as_kernel_floats(covs),
                 peaks, height, width, params, ranges, tlen)
-    toff = np.cumsum(tlen)
+    toff = np.cumsum(tlen, out=_scratch("toff", (n,), np.int64))
     ranges[:, _k.N_RANGES - 1] = toff - tlen
-    tables = _table_scratch(int(toff[-1]) if n else 0)
+    clock.lap("prepare")
+    tables = _scratch("tables", (int(toff[-1]) if n else 0,), np.float32)
     _k._fill_tables(params, ranges, peaks, tables)
+    clock.lap("tables")
     ntx = -(-width // _k.TILE_W)
     nty = -(-height // _k.TILE_H)
     offsets = np.empty(ntx * nty + 1, dtype=np.int64)
     _k._count_pairs(ranges, ntx, offsets)
-    order = np.empty(int(offsets[-1]), dtype=np.int64)
+    order = _scratch("order", (int(offsets[-1]),), np.int64)
     _k._bin(ranges, ntx, offsets, np.empty(ntx * nty, dtype=np.int64), order)
     # numba hands each thread one contiguous run of the loop; taking the tiles
     # in order of (tile row + tile column) mod threads (alternate bands of a
@@ -223,25 +238,50 @@ def composite_features(means, covs, features, opacities, *, shape, blend="over")
     # one corner still keeps every thread busy.
     ty, tx = np.divmod(np.arange(ntx * nty), ntx)
     tile_order = np.argsort((ty + tx) % numba.get_num_threads(), kind="stable")
+    clock.lap("binning")
     kernel = _k.render_kernel(mode, nk == 3)
     kernel(params, ranges, tables, np.ascontiguousarray(features, dtype=np.float32),
            peaks, offsets, order, tile_order, out)
+    clock.lap("kernel")
     return out
 
 
-def _table_scratch(size):
-    """A float32 work array of ``size`` entries, reused by the calling thread.
+class _Clock:
+    """Adds the seconds since the last lap to ``times[name]`` (does nothing without ``times``)."""
 
-    The row-profile tables of a frame's splats take a few MB; a fresh array
-    each call costs more in page faults (about 3 ms for 20,000 splats here)
-    than filling it. Each Python thread keeps its own, so concurrent calls
-    never share one.
+    def __init__(self, times):
+        self.times = times
+        self.t = time.perf_counter() if times is not None else 0.0
+
+    def lap(self, name):
+        if self.times is not None:
+            now = time.perf_counter()
+            self.times[name] = self.times.get(name, 0.0) + now - self.t
+            self.t = now
+
+
+def _scratch(name, shape, dtype):
+    """An uninitialised ``dtype`` array of ``shape``, reused by the calling thread.
+
+    A frame's per-splat arrays (parameters, ranges, row-profile tables, the
+    binned order) take tens of MB for 200,000 splats; fresh arrays each call
+    cost more in page faults (about 3 ms for the tables of 20,000 splats
+    here) than filling them. Each Python thread keeps its own, so concurrent
+    calls never share one; callers must not keep a result past the call.
     """
-    buf = getattr(_SCRATCH, "tables", None)
-    if buf is None or buf.shape[0] < size:
-        buf = np.empty(max(size, 1 << 16), dtype=np.float32)
-        _SCRATCH.tables = buf
-    return buf[:size]
+    size = int(np.prod(shape))
+    buf = getattr(_SCRATCH, name, None)
+    if buf is None or buf.shape[0] < size or buf.dtype != dtype:
+        buf = np.empty(max(size, 1 << 16), dtype=dtype)
+        setattr(_SCRATCH, name, buf)
+    return buf[:size].reshape(shape)
+
+
+def _as_kernel_floats(arr):
+    """``arr`` as C-contiguous float32 or float64 (the dtypes the layout kernel is built for)."""
+    if arr.dtype == np.float32 or arr.dtype == np.float64:
+        return np.ascontiguousarray(arr)
+    return np.ascontiguousarray(arr, dtype=np.float64)
 
 
 def _check_shape(shape):
