@@ -114,8 +114,7 @@ def test_every_demo_look_keeps_its_border_clear(name):
     # practice): with camera.fit every demo frame's border alpha stays < 1/255.
     look = load_look(LOOKS / f"{name}.toml")
     assert look.camera.fit
-    plan = plan_simulation(look)
-    cam = make_camera(look, plan)
+    plan, cam = plan_and_camera(look)
     worst = 0.0
     for _, img, ch, _ in frame_images(look, cam, simulate(look, plan, frames=range(look.clip.frames)), maps=()):
         a = img[..., -1]
