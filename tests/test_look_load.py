@@ -214,3 +214,16 @@ def test_bad_swirl_octaves_are_refused(tmp_path, value):
     assert info.value.key == "force[0].octaves"
     assert "force[0].octaves" in str(info.value)
     assert info.value.expected == '"auto" or an integer from 1 to 6'
+
+
+def test_false_switches_off_an_inherited_sheet_or_light(tmp_path):
+    # look-spec additions: `sheet = false` and `[shading] light = false` switch
+    # off what a base look (or an earlier --set) gave; true is not a table.
+    base = write(tmp_path, "base.toml", MINIMAL + '[output]\nsheet = { columns = 4 }\n[shading.light]\nintensity = 2\n')
+    child = write(tmp_path, "child.toml", 'base = "base.toml"\n[output]\nsheet = false\n[shading]\nlight = false\n')
+    assert load_look(base).output.sheet.columns == 4 and load_look(base).shading.light.intensity == 2
+    look = load_look(child)
+    assert look.output.sheet is None and look.shading.light is None
+    assert load_look(base, overrides=["output.sheet=false"]).output.sheet is None
+    with pytest.raises(LookError, match=r"output\.sheet: expected a table, or false to switch it off, got boolean true"):
+        load_look(base, overrides=["output.sheet=true"])

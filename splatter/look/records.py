@@ -55,9 +55,13 @@ def key(default, check):
 
 
 def table(cls, *, optional=False):
-    """A sub-table whose keys are the fields of record ``cls`` (``None`` when optional and absent)."""
+    """A sub-table whose keys are the fields of record ``cls``.
+
+    An optional table is ``None`` when absent, and ``false`` switches off one a
+    ``base`` look or an earlier ``--set`` gave (``sheet = false``, ``light = false``).
+    """
     if optional:
-        return field(default=None, metadata={"table": cls})
+        return field(default=None, metadata={"table": cls, "optional": True})
     return field(default_factory=cls, metadata={"table": cls})
 
 

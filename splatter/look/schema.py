@@ -55,6 +55,11 @@ def _value(f, v, ctx: Ctx):
     if "check" in meta:
         return meta["check"](v, ctx)
     if "table" in meta:
+        if meta.get("optional"):
+            if v is False:
+                return None
+            if not isinstance(v, dict):
+                ctx.fail("a table, or false to switch it off", v)
         return _record(v, ctx, meta["table"])
     if meta.get("kinds"):
         return _array_of_tables(v, ctx, lambda x, c: _kind_table(x, c, meta["kinds"]))
