@@ -218,27 +218,37 @@ def _vortex_at(x, y, z, vortex):
     uy = 0.0
     uz = 0.0
     for v in range(vortex.shape[0]):
-        rx = x - vortex[v, 0]
-        ry = y - vortex[v, 1]
-        rz = z - vortex[v, 2]
-        ax = vortex[v, 3]
-        ay = vortex[v, 4]
-        az = vortex[v, 5]
-        along = rx * ax + ry * ay + rz * az
-        rx -= along * ax
-        ry -= along * ay
-        rz -= along * az
-        rho2 = rx * rx + ry * ry + rz * rz
-        s = vortex[v, 6]
-        r0 = vortex[v, 7]
-        if rho2 <= r0 * r0:
-            gain = s / r0 if r0 > 0.0 else 0.0  # solid body: speed s * rho / r0
-        else:
-            gain = s * r0 / rho2  # speed s * r0 / rho
+        rx, ry, rz, ax, ay, az, gain, _ = _vortex_geometry(x, y, z, vortex, v)
         ux += gain * (ay * rz - az * ry)
         uy += gain * (az * rx - ax * rz)
         uz += gain * (ax * ry - ay * rx)
     return ux, uy, uz
+
+
+@numba.njit(inline="always", **KERNEL)
+def _vortex_geometry(x, y, z, vortex, v):
+    """Vortex ``v`` seen from one point: the offset ``r_perp`` across its axis, the
+    axis, the Rankine ``gain`` (``u = gain (axis x r_perp)``) and ``d gain / d(rho^2)`` times 2."""
+    rx = x - vortex[v, 0]
+    ry = y - vortex[v, 1]
+    rz = z - vortex[v, 2]
+    ax = vortex[v, 3]
+    ay = vortex[v, 4]
+    az = vortex[v, 5]
+    along = rx * ax + ry * ay + rz * az
+    rx -= along * ax
+    ry -= along * ay
+    rz -= along * az
+    rho2 = rx * rx + ry * ry + rz * rz
+    s = vortex[v, 6]
+    r0 = vortex[v, 7]
+    if rho2 <= r0 * r0:
+        gain = s / r0 if r0 > 0.0 else 0.0  # solid body: speed s * rho / r0
+        dg = 0.0
+    else:
+        gain = s * r0 / rho2  # speed s * r0 / rho
+        dg = -2.0 * s * r0 / (rho2 * rho2)
+    return rx, ry, rz, ax, ay, az, gain, dg
 
 
 @numba.njit(inline="always", **KERNEL)
@@ -252,25 +262,7 @@ def _vortex_grad_at(x, y, z, vortex, g, j):
     are traceless (``(axis x r) . r_perp = 0``), as the flow is divergence-free.
     """
     for v in range(vortex.shape[0]):
-        rx = x - vortex[v, 0]
-        ry = y - vortex[v, 1]
-        rz = z - vortex[v, 2]
-        ax = vortex[v, 3]
-        ay = vortex[v, 4]
-        az = vortex[v, 5]
-        along = rx * ax + ry * ay + rz * az
-        rx -= along * ax
-        ry -= along * ay
-        rz -= along * az
-        rho2 = rx * rx + ry * ry + rz * rz
-        s = vortex[v, 6]
-        r0 = vortex[v, 7]
-        if rho2 <= r0 * r0:
-            gain = s / r0 if r0 > 0.0 else 0.0
-            dg = 0.0
-        else:
-            gain = s * r0 / rho2
-            dg = -2.0 * s * r0 / (rho2 * rho2)
+        rx, ry, rz, ax, ay, az, gain, dg = _vortex_geometry(x, y, z, vortex, v)
         cx = ay * rz - az * ry
         cy = az * rx - ax * rz
         cz = ax * ry - ay * rx
