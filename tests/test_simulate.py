@@ -166,9 +166,10 @@ def test_negative_frame_is_rejected():
 
 # Exact loops from twins: the same bits as stepping every puff from the start of the warm-up.
 
-def _long_life_look(integrator="symplectic"):
-    # Puffs outlive the 0.5 s period (up to 3 periods alive at once), a one-off
-    # burst, a killing sphere, drag, and a warm-up set longer than any life.
+def _long_life_look(integrator="symplectic", warmup=1.7):
+    # Puffs outlive the 0.5 s period (up to 3 periods alive at once), one-off
+    # bursts, a killing sphere, drag, and a warm-up set longer than any life
+    # (at 3 s the first period's puffs are all dead before the bursts).
     sources = (
         SourceSpec(shape="sphere", radius=0.2, rate=31.0, speed=(0.3, 0.9), life=(0.7, 1.45), size=(0.05, 0.1),
                    aspect=(0.5, 1.0), follow=0.6, elongation=4.0, bursts=(BurstSpec(0.1, 7), BurstSpec(0.1, 3))),
@@ -179,7 +180,7 @@ def _long_life_look(integrator="symplectic"):
     forces = (WindSpec(velocity=(0.4, 0.0, 0.2), gust=0.5, gust_period=0.3, grip=0.8), DragSpec(rate=0.4),
               LiftSpec(accel=0.9, cooling=0.5), SwirlSpec(strength=0.6, scale=0.4, octaves=2, evolve=0.35),
               VortexSpec(center=(0.0, 0.4, 0.0), strength=0.5, radius=0.2))
-    return LookSpec(name="long", seed=9, clip=ClipSpec(frames=12, fps=24, substeps=3, loop="exact", warmup=1.7,
+    return LookSpec(name="long", seed=9, clip=ClipSpec(frames=12, fps=24, substeps=3, loop="exact", warmup=warmup,
                                                         integrator=integrator),
                     sources=sources, forces=forces,
                     obstacles=(SphereSpec(center=(0.3, 0.6, 0.0), radius=0.15, kill=True),
@@ -188,7 +189,7 @@ def _long_life_look(integrator="symplectic"):
 
 def _twin_looks():
     return [_busy_look("exact", frames=24), _busy_look("exact", frames=24, integrator="midpoint"), _long_life_look(),
-            _long_life_look("euler")]
+            _long_life_look("euler"), _long_life_look(warmup=3.0)]
 
 
 def _same_state(a: FrameState, b: FrameState):
@@ -197,7 +198,7 @@ def _same_state(a: FrameState, b: FrameState):
         np.testing.assert_array_equal(getattr(a, name), getattr(b, name), err_msg=name)
 
 
-@pytest.mark.parametrize("index", range(4))
+@pytest.mark.parametrize("index", range(5))
 def test_exact_loop_from_twins_equals_warm_up_bit_for_bit(index):
     look = _twin_looks()[index]
     plan = plan_simulation(look)

@@ -137,6 +137,11 @@ class _Puffs:
         return self.n
 
     @property
+    def alive(self) -> int:
+        """Rows not flagged dead."""
+        return self.n - self.dead
+
+    @property
     def a(self) -> dict:
         """Views of the first ``n`` rows (dead ones included)."""
         return {name: b[:self.n] for name, b in self.buf.items()}
@@ -539,7 +544,7 @@ def _simulate_twins(look, plan: SimPlan, wanted: list) -> Iterator[FrameState]:
                 chunks[frame].append((0, _snapshot(once, shaping)))
             yield state(frame)
             frame = next(targets, None)
-        if (not len(twins) and not len(once) and all(c >= sc.per for c, sc in zip(cursors, plan.schedules))
+        if (not twins.alive and not once.alive and all(c >= sc.per for c, sc in zip(cursors, plan.schedules))
                 and not any(s < b <= last for b in burst_steps)):
             break  # nothing alive and nothing left to be born: the other frames are complete
     while frame is not None:
