@@ -23,6 +23,23 @@ random draws are keyed by its slot modulo that number; every time-varying
 force sees the time ``(step mod Ns) * dt``; ages are computed from integer
 step counts.  So frame ``frames`` equals frame 0 bit for bit (only ``id``
 differs), provided nothing in :attr:`SimPlan.notes` says otherwise.
+
+The same periodicity spares an exact loop its warm-up population.  Slot
+``k + j per`` is born ``j Ns`` steps after slot ``k`` with the same draws and
+step fraction, and every force sees the same times on the way, so at any
+boundary ``S`` it is bit for bit slot ``k`` at ``S - j Ns``.  When every
+source emits on its whole lattice (no ``start``, no ``stop``), the driver
+steps only the first period's slots ``k < per`` (born at boundaries
+``0 .. Ns``) from birth to death and builds frame ``f`` from the ones alive
+at ``W + f * substeps - j Ns`` for ``j = 0, 1, ...``, with the ids the
+step-by-step driver would have given their twins (closed-form birth
+counts).  Bursts never repeat and are stepped as they are.  The states are
+the same arrays as stepping everything from the start of the warm-up
+(``tests/test_simulate.py`` compares them field by field), at about
+``Ns / (W + Ns)`` of the puff-steps when lives are long, but the frames
+wait for the puffs that finish them: their moving parts are kept until
+then (up to every requested frame's puffs at once when lives exceed the
+period).  Other clips run from the start of the warm-up.
 """
 
 from __future__ import annotations
