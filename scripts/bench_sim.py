@@ -6,7 +6,16 @@ their ratio, measured in this run, and the numba step with puff shapes on
 (the velocity gradient and the deformation update, ``follow = 1``).  Goals: >= 5 M particle-steps/s on two
 cores and >= 10x the numpy version.
 
+Then the whole driver, ``simulate()``, on an exact loop of ~N puffs: the
+warm-up path (every puff stepped from the start of the warm-up) against the
+twin path (one period of births over their whole lives), interleaved in
+this run, with boundaries swept, puff-steps taken and a check that both
+give the same arrays.  ``--look FILE`` runs that comparison on a look file
+instead (``--rate-scale`` multiplies every source's rate, ``--size`` sets
+the image size, which only matters for "auto" swirl octaves).
+
     /work/venv/bin/python scripts/bench_sim.py [--puffs N] [--steps S]
+    /work/venv/bin/python scripts/bench_sim.py --look looks/harbour_chimney.toml [--rate-scale 64] [--size 512]
 """
 
 from __future__ import annotations
@@ -21,7 +30,9 @@ from splatter.sim.forces import pack_forces
 from splatter.sim.integrate import step_puffs
 from splatter.look.records import ClipSpec, GravitySpec, LiftSpec, LookSpec, PlaneSpec, SourceSpec, SwirlSpec, WindSpec
 from splatter.sim.obstacles import pack_obstacles
-from splatter.sim.driver import plan_simulation, simulate
+from splatter.look.load import load_look
+from splatter.sim import driver
+from splatter.sim.driver import PER_PUFF_FIELDS, plan_simulation, simulate
 
 
 def numpy_step(pos, vel, age, dt, t, ft, ot):
@@ -73,12 +84,69 @@ def numpy_step(pos, vel, age, dt, t, ft, ot):
     return pos, vel
 
 
+def _driver_ab(look, plan, frames, repeats=2):
+    """Time the warm-up and twin paths of ``simulate`` on the same frames, interleaved; check equal arrays."""
+    paths = {"warm-up": lambda: driver._simulate_warmup(look, plan, sorted(frames)),
+             "twins": lambda: simulate(look, plan, frames=frames)}
+    best = {k: float("inf") for k in paths}
+    counts = {}
+    real = driver._advance
+    for _ in range(repeats):
+        for name, run in paths.items():
+            sweep = [0, 0]
+
+            def counting(lk, pl, puffs, s, *a):
+                sweep[0] = max(sweep[0], s)
+                sweep[1] += puffs.alive
+                return real(lk, pl, puffs, s, *a)
+
+            driver._advance = counting
+            try:
+                t0 = time.perf_counter()
+                digest = [(st.frame, len(st)) for st in run()]
+                best[name] = min(best[name], time.perf_counter() - t0)
+            finally:
+                driver._advance = real
+            counts[name] = (sweep[0] + 1, sweep[1], digest)
+    # Same bits (checked outside the timing, one frame at a time).
+    for a, b in zip(driver._simulate_warmup(look, plan, sorted(frames)), simulate(look, plan, frames=frames)):
+        for field in PER_PUFF_FIELDS:
+            if not np.array_equal(getattr(a, field), getattr(b, field)):
+                raise SystemExit(f"frame {a.frame}: {field} differs between the paths")
+    live = sum(n for _, n in counts["twins"][2]) // max(1, len(frames))
+    print(f"simulate() : {look.name}, {len(frames)} frames of ~{live} puffs, warm-up {plan.warmup_steps} steps, "
+          f"period {plan.period_steps} steps (same arrays on both paths)")
+    for name in paths:
+        bounds, puff_steps, _ = counts[name]
+        print(f"  {name:8s}: {bounds:5d} boundaries, {puff_steps / 1e6:7.2f} M puff-steps, {best[name]:7.2f} s "
+              f"(best of {repeats})")
+    print(f"  speed-up : {best['warm-up'] / best['twins']:.2f}x")
+
+
+def _look_ab(args):
+    overrides = [f"image.width={args.size}", f"image.height={args.size}"] if args.size else []
+    look = load_look(args.look, overrides=overrides)
+    if args.rate_scale != 1.0:
+        from dataclasses import replace
+        look = replace(look, sources=tuple(replace(s, rate=s.rate * args.rate_scale) for s in look.sources))
+    plan = plan_simulation(look)
+    list(simulate(look, plan, frames=[0]))  # compile
+    _driver_ab(look, plan, list(range(look.clip.frames)), repeats=args.repeats_driver)
+
+
 def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--puffs", type=int, default=20000)
     ap.add_argument("--steps", type=int, default=100)
     ap.add_argument("--repeats", type=int, default=5, help="best of this many timings")
+    ap.add_argument("--look", help="compare the two simulate() paths on this look file only")
+    ap.add_argument("--rate-scale", type=float, default=1.0, help="with --look: multiply every source's rate")
+    ap.add_argument("--size", type=int, default=0, help="with --look: image width and height, px")
+    ap.add_argument("--repeats-driver", type=int, default=2, help="best of this many simulate() timings")
     args = ap.parse_args()
+    if args.look:
+        _look_ab(args)
+        return
     forces = (GravitySpec((0.0, -0.3, 0.0)), WindSpec(velocity=(0.6, 0.0, 0.0), gust=0.4, gust_period=2.0, grip=1.0),
               LiftSpec(accel=1.5, cooling=0.4), SwirlSpec(strength=0.4, scale=1.0, octaves=3, evolve=2.0))
     ft = pack_forces(forces, seed=3)
@@ -133,16 +201,8 @@ def main():
     small = LookSpec(name="warm", clip=ClipSpec(frames=2), sources=look.sources, forces=forces,
                      obstacles=look.obstacles)
     list(simulate(small, frames=[0, 1]))  # compile
-    plan = plan_simulation(look)
-    t0 = time.perf_counter()
-    puff_steps = 0
-    for st in simulate(look, plan, frames=range(64)):
-        puff_steps += len(st) * plan.substeps
-    t_driver = time.perf_counter() - t0
-    steps = plan.frame_step(63)
     print(f"ratio      : {rate_numba / rate_numpy:8.1f}x   (max |pos difference| {err:.2e})")
-    print(f"simulate() : {steps} steps ({plan.warmup_steps} warm-up), {t_driver:.2f} s for 64 frames of "
-          f"~{puff_steps // (64 * plan.substeps)} puffs, {t_driver / 64 * 1e3:.1f} ms per frame")
+    _driver_ab(look, plan_simulation(look), list(range(64)), repeats=args.repeats_driver)
 
 
 if __name__ == "__main__":

@@ -5,8 +5,9 @@ import os
 import numpy as np
 import pytest
 
-from splatter.look.records import (BurstSpec, ClipSpec, GravitySpec, LiftSpec, LookSpec, PlaneSpec, SourceSpec, SwirlSpec,
-                           VortexSpec, WindSpec)
+from splatter.look.records import (BurstSpec, ClipSpec, DragSpec, GravitySpec, LiftSpec, LookSpec, PlaneSpec,
+                                   SourceSpec, SphereSpec, SwirlSpec, VortexSpec, WindSpec)
+from splatter.sim import driver
 from splatter.sim.driver import FrameState, plan_simulation, save_states, simulate
 
 FIELDS = ("id", "slot", "source", "pos", "vel", "age", "life", "size", "opacity", "color", "glow", "aspect", "quat",
@@ -161,3 +162,77 @@ def test_save_states_empty(tmp_path):
 def test_negative_frame_is_rejected():
     with pytest.raises(ValueError, match="frames"):
         list(simulate(_busy_look(), frames=[-1]))
+
+
+# Exact loops from twins: the same bits as stepping every puff from the start of the warm-up.
+
+def _long_life_look(integrator="symplectic", warmup=1.7):
+    # Puffs outlive the 0.5 s period (up to 3 periods alive at once), one-off
+    # bursts, a killing sphere, drag, and a warm-up set longer than any life
+    # (at 3 s the first period's puffs are all dead before the bursts).
+    sources = (
+        SourceSpec(shape="sphere", radius=0.2, rate=31.0, speed=(0.3, 0.9), life=(0.7, 1.45), size=(0.05, 0.1),
+                   aspect=(0.5, 1.0), follow=0.6, elongation=4.0, bursts=(BurstSpec(0.1, 7), BurstSpec(0.1, 3))),
+        SourceSpec(shape="line", center=(-0.3, 0.0, 0.0), extent=(0.6, 0.0, 0.0), rate=0.0,
+                   bursts=(BurstSpec(0.3, 5),), life=(0.2, 0.4), follow=0.0),
+        SourceSpec(shape="point", rate=13.0, life=(0.3, 0.6), follow=1.0),
+    )
+    forces = (WindSpec(velocity=(0.4, 0.0, 0.2), gust=0.5, gust_period=0.3, grip=0.8), DragSpec(rate=0.4),
+              LiftSpec(accel=0.9, cooling=0.5), SwirlSpec(strength=0.6, scale=0.4, octaves=2, evolve=0.35),
+              VortexSpec(center=(0.0, 0.4, 0.0), strength=0.5, radius=0.2))
+    return LookSpec(name="long", seed=9, clip=ClipSpec(frames=12, fps=24, substeps=3, loop="exact", warmup=warmup,
+                                                        integrator=integrator),
+                    sources=sources, forces=forces,
+                    obstacles=(SphereSpec(center=(0.3, 0.6, 0.0), radius=0.15, kill=True),
+                               PlaneSpec(point=(0.0, -0.05, 0.0), bounce=0.2, friction=0.5)))
+
+
+def _twin_looks():
+    return [_busy_look("exact", frames=24), _busy_look("exact", frames=24, integrator="midpoint"), _long_life_look(),
+            _long_life_look("euler"), _long_life_look(warmup=3.0)]
+
+
+def _same_state(a: FrameState, b: FrameState):
+    assert (a.frame, a.time) == (b.frame, b.time)
+    for name in driver.PER_PUFF_FIELDS:
+        np.testing.assert_array_equal(getattr(a, name), getattr(b, name), err_msg=name)
+
+
+@pytest.mark.parametrize("index", range(5))
+def test_exact_loop_from_twins_equals_warm_up_bit_for_bit(index):
+    look = _twin_looks()[index]
+    plan = plan_simulation(look)
+    assert driver._twins_apply(plan)
+    n = plan.frames
+    ranges = [range(n + 3), range(5, 9), [n - 1], [0, n, 2 * n + 1]]
+    for frames in ranges:
+        old = list(driver._simulate_warmup(look, plan, sorted(frames)))
+        new = list(simulate(look, plan, frames=frames))
+        assert [s.frame for s in new] == sorted(frames)
+        for a, b in zip(old, new):
+            assert len(a) > 0
+            _same_state(a, b)
+
+
+def test_twins_step_fewer_puffs_than_the_warm_up(monkeypatch):
+    # The point of the twin driver: no warm-up population is stepped.
+    look = _long_life_look()
+    plan = plan_simulation(look)
+    counted = []
+    real = driver._advance
+    monkeypatch.setattr(driver, "_advance", lambda lk, pl, puffs, *a: (counted.append(len(puffs)),
+                                                                        real(lk, pl, puffs, *a)))
+    list(driver._simulate_warmup(look, plan, list(range(plan.frames))))
+    old, counted[:] = sum(counted), []
+    list(simulate(look, plan, frames=range(plan.frames)))
+    assert sum(counted) < 0.75 * old
+
+
+def test_looks_the_twins_cannot_serve_take_the_warm_up():
+    assert not driver._twins_apply(plan_simulation(_busy_look("none")))
+    assert not driver._twins_apply(plan_simulation(_busy_look("crossfade")))
+    look = _busy_look("exact", frames=24)
+    started = LookSpec(name="s", clip=look.clip, forces=look.forces,
+                       sources=(look.sources[0], SourceSpec(rate=10.0, start=0.2)))
+    assert not driver._twins_apply(plan_simulation(started))
+    assert driver._twins_apply(plan_simulation(look))

@@ -23,6 +23,23 @@ random draws are keyed by its slot modulo that number; every time-varying
 force sees the time ``(step mod Ns) * dt``; ages are computed from integer
 step counts.  So frame ``frames`` equals frame 0 bit for bit (only ``id``
 differs), provided nothing in :attr:`SimPlan.notes` says otherwise.
+
+The same periodicity spares an exact loop its warm-up population.  Slot
+``k + j per`` is born ``j Ns`` steps after slot ``k`` with the same draws and
+step fraction, and every force sees the same times on the way, so at any
+boundary ``S`` it is bit for bit slot ``k`` at ``S - j Ns``.  When every
+source emits on its whole lattice (no ``start``, no ``stop``), the driver
+steps only the first period's slots ``k < per`` (born at boundaries
+``0 .. Ns``) from birth to death and builds frame ``f`` from the ones alive
+at ``W + f * substeps - j Ns`` for ``j = 0, 1, ...``, with the ids the
+step-by-step driver would have given their twins (closed-form birth
+counts).  Bursts never repeat and are stepped as they are.  The states are
+the same arrays as stepping everything from the start of the warm-up
+(``tests/test_simulate.py`` compares them field by field), at about
+``Ns / (W + Ns)`` of the puff-steps when lives are long, but the frames
+wait for the puffs that finish them: their moving parts are kept until
+then (up to every requested frame's puffs at once when lives exceed the
+period).  Other clips run from the start of the warm-up.
 """
 
 from __future__ import annotations
@@ -112,7 +129,7 @@ PER_PUFF_FIELDS = ("id", "slot", "source", "pos", "vel", "age", "life", "size", 
                    "aspect", "quat", "stretch", "density", "deform")
 
 
-_INT_FIELDS = {"id": np.int64, "slot": np.int64, "source": np.int32, "bstep": np.int64}
+_INT_FIELDS = {"id": np.int64, "slot": np.int64, "source": np.int32, "bstep": np.int64, "base": np.int64}
 _WIDTH = {"pos": (3,), "vel": (3,), "quat": (4,), "deform": (3, 3)}
 _STORE = ("id", "slot", "source", "bstep", "bfrac", "life", "size0", "aspect", "quat", "pos", "vel", "deform")
 
@@ -125,15 +142,21 @@ class _Puffs:
     every step, and no puff's result depends on its row).
     """
 
-    def __init__(self, capacity: int = 1024):
+    def __init__(self, capacity: int = 1024, fields: tuple = _STORE):
         self.n = 0
         self.dead = 0
+        self.fields = fields
         self.live = np.zeros(capacity, dtype=bool)
         self.buf = {name: np.zeros((capacity,) + _WIDTH.get(name, ()),
-                                   dtype=_INT_FIELDS.get(name, np.float64)) for name in _STORE}
+                                   dtype=_INT_FIELDS.get(name, np.float64)) for name in fields}
 
     def __len__(self):
         return self.n
+
+    @property
+    def alive(self) -> int:
+        """Rows not flagged dead."""
+        return self.n - self.dead
 
     @property
     def a(self) -> dict:
@@ -155,7 +178,7 @@ class _Puffs:
             self.live = live
         for p in parts:
             m = p["id"].shape[0]
-            for name in _STORE:
+            for name in self.fields:
                 self.buf[name][self.n:self.n + m] = p[name]
             self.live[self.n:self.n + m] = True
             self.n += m
@@ -236,7 +259,11 @@ def _frame_state(look, plan: SimPlan, puffs: _Puffs, frame: int, step: int) -> F
     a = puffs.a
     live = np.flatnonzero(puffs.live[:puffs.n])
     order = live[np.lexsort((a["id"][live], a["slot"][live], a["source"][live]))]
-    pick = {name: a[name][order] for name in _STORE}
+    return _state_of(look, plan, {name: a[name][order] for name in _STORE}, frame, step)
+
+
+def _state_of(look, plan: SimPlan, pick: dict, frame: int, step: int) -> FrameState:
+    """The frame state of the stored attributes ``pick`` (already in output order) at boundary ``step``."""
     age = ((step - pick["bstep"]) + pick["bfrac"]) * plan.dt
     m = age.shape[0]
     x = age / pick["life"]
@@ -265,7 +292,12 @@ def _frame_state(look, plan: SimPlan, puffs: _Puffs, frame: int, step: int) -> F
 
 
 def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int]) -> Iterator[FrameState]:
-    """Run the simulation from the start of the warm-up and yield the requested frames.
+    """Run the simulation and yield the requested frames.
+
+    Exact loops whose sources emit on their whole lattice (no ``start`` or
+    ``stop``) simulate one loop period of births over their whole lives and
+    read every frame off them and their twins (see the module notes); every
+    other look runs from the start of the warm-up.  Both give the same bits.
 
     Parameters
     ----------
@@ -282,6 +314,14 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int]) -> 
     FrameState
         One per distinct requested frame, in increasing order.  The states do
         not depend on which other frames were requested.
+
+    Examples
+    --------
+    >>> from splatter.look.records import ClipSpec, LookSpec, SourceSpec
+    >>> look = LookSpec(name="doc", clip=ClipSpec(frames=4, fps=10, loop="exact"),
+    ...                 sources=(SourceSpec(rate=20.0, life=(0.5, 0.8)),))
+    >>> [(st.frame, len(st) > 0) for st in simulate(look, frames=[3, 0])]
+    [(0, True), (3, True)]
     """
     wanted = sorted({int(f) for f in frames})
     if wanted and wanted[0] < 0:
@@ -290,6 +330,38 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int]) -> 
         plan = plan_simulation(look)
     if not wanted:
         return
+    if _twins_apply(plan):
+        yield from _simulate_twins(look, plan, wanted)
+    else:
+        yield from _simulate_warmup(look, plan, wanted)
+
+
+def _shaping(look, plan: SimPlan):
+    """Per-source ``follow`` and ``elongation``, and whether shapes are advanced at all."""
+    follow = np.array([float(src.follow) for src in look.sources])
+    elongation = np.array([float(src.elongation) for src in look.sources])
+    # Shapes only when some source follows a flow that has a gradient (swirl or vortex).
+    shaping = bool(np.any(follow > 0)) and (plan.forces.swirl_b.shape[0] + plan.forces.vortex.shape[0]) > 0
+    return follow, elongation, shaping
+
+
+def _advance(look, plan: SimPlan, puffs: _Puffs, s: int, follow, elongation, shaping: bool) -> None:
+    """Step every live puff from boundary ``s - 1`` to ``s`` and drop those an obstacle killed."""
+    if not len(puffs):
+        return
+    a = puffs.a
+    src = a["source"]
+    ages = puffs.ages(s - 1, plan.dt)
+    sigma = _sizes(look, src, a["size0"], ages / a["life"]) if shaping else None
+    killed = step_puffs(a["pos"], a["vel"], ages, dt=plan.dt,
+                        time=plan.force_time(s - 1), forces=plan.forces, obstacles=plan.obstacles,
+                        integrator=plan.integrator, deform=a["deform"] if shaping else None,
+                        follow=follow[src], elongation=elongation[src], sigma=sigma)
+    puffs.kill(killed)
+
+
+def _simulate_warmup(look, plan: SimPlan, wanted: list) -> Iterator[FrameState]:
+    """Step every puff from the start of the warm-up (step 0) through the last wanted frame."""
     targets = iter(wanted)
     frame = next(targets)
     puffs = _Puffs()
@@ -297,21 +369,10 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int]) -> 
     draws: dict = {}
     next_id = 0
     last = plan.frame_step(wanted[-1])
-    follow = np.array([float(src.follow) for src in look.sources])
-    elongation = np.array([float(src.elongation) for src in look.sources])
-    # Shapes only when some source follows a flow that has a gradient (swirl or vortex).
-    shaping = bool(np.any(follow > 0)) and (plan.forces.swirl_b.shape[0] + plan.forces.vortex.shape[0]) > 0
+    follow, elongation, shaping = _shaping(look, plan)
     for s in range(last + 1):
-        if s > 0 and len(puffs):
-            a = puffs.a
-            src = a["source"]
-            ages = puffs.ages(s - 1, plan.dt)
-            sigma = _sizes(look, src, a["size0"], ages / a["life"]) if shaping else None
-            killed = step_puffs(a["pos"], a["vel"], ages, dt=plan.dt,
-                                time=plan.force_time(s - 1), forces=plan.forces, obstacles=plan.obstacles,
-                                integrator=plan.integrator, deform=a["deform"] if shaping else None,
-                                follow=follow[src], elongation=elongation[src], sigma=sigma)
-            puffs.kill(killed)
+        if s > 0:
+            _advance(look, plan, puffs, s, follow, elongation, shaping)
         parts, next_id = _spawn(look, plan, s, cursors, draws, next_id)
         puffs.add(parts)
         if len(puffs):
@@ -319,6 +380,193 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int]) -> 
         while frame is not None and plan.frame_step(frame) == s:
             yield _frame_state(look, plan, puffs, frame, s)
             frame = next(targets, None)
+
+
+# ---------------------------------------------------------------------------------------------------------------
+# Exact loops from twins.
+
+def _twins_apply(plan: SimPlan) -> bool:
+    """True for an exact loop whose sources emit on their whole lattice (births repeat every period)."""
+    return plan.period_steps is not None and all(sc.lo is None and sc.hi is None for sc in plan.schedules)
+
+
+class _Births:
+    """Closed-form birth counts of an exact loop, to give each puff the id the step-by-step driver gives it.
+
+    That driver numbers puffs in birth order: boundary by boundary, source
+    by source, a source's bursts (in listed order) before its lattice.
+    """
+
+    def __init__(self, plan: SimPlan):
+        self.ns = int(plan.period_steps)
+        self.per = [int(sc.per) for sc in plan.schedules]
+        self.bursts = [tuple((int(b), int(n)) for b, _, n in sc.bursts) for sc in plan.schedules]
+
+    def lattice(self, i: int, s: np.ndarray) -> np.ndarray:
+        """Lattice births of source ``i`` at boundaries ``<= s``."""
+        s = np.asarray(s, dtype=np.int64)
+        if self.per[i] == 0:
+            return np.zeros_like(s)
+        return np.where(s >= 0, (s * self.per[i]) // self.ns + 1, 0)
+
+    def count(self, i: int, s: np.ndarray) -> np.ndarray:
+        """All births of source ``i`` at boundaries ``<= s``."""
+        c = self.lattice(i, s)
+        for b, n in self.bursts[i]:
+            c = c + np.where(b <= s, n, 0)
+        return c
+
+    def first(self, i: int, s: np.ndarray) -> np.ndarray:
+        """Id of the first puff source ``i`` gives at boundary ``s``."""
+        s = np.asarray(s, dtype=np.int64)
+        out = np.zeros_like(s)
+        for q in range(len(self.per)):
+            out += self.count(q, s - 1)
+            if q < i:
+                out += self.count(q, s) - self.count(q, s - 1)
+        return out
+
+    def lattice_ids(self, i: int, k: np.ndarray, s: np.ndarray) -> np.ndarray:
+        """Ids of lattice slots ``k`` of source ``i``, born at boundaries ``s``."""
+        s = np.asarray(s, dtype=np.int64)
+        here = sum((np.where(b == s, n, 0) for b, n in self.bursts[i]), np.zeros_like(s))
+        return self.first(i, s) + here + (k - self.lattice(i, s - 1))
+
+
+_TWIN_FIELDS = _STORE + ("base",)
+_STATIC = ("id", "slot", "source", "bstep", "bfrac", "life", "size0", "aspect", "quat")
+
+
+def _spawn_twins(look, plan: SimPlan, births: _Births, s: int, cursors: list, draws: dict):
+    """Births at boundary ``s``: lattice slots of the first period (``k < per``) and bursts, as two lists."""
+    lattice, bursts = [], []
+    for i, (src, sched) in enumerate(zip(look.sources, plan.schedules)):
+        offset = 0
+        for b, (bstep, bfrac, count) in enumerate(sched.bursts):
+            if bstep == s and count > 0:
+                keys = np.arange(count, dtype=np.int64)
+                u = draws.setdefault((i, 1 + b), PuffDraws(look.seed, i, 1 + b, N_DRAWS))(keys)
+                before = sum(c for bs, _, c in sched.bursts[:b] if bs == s)
+                ids = births.first(i, np.full(count, s, dtype=np.int64)) + before + keys
+                bursts.append(_born(src, u, ids, sched.per + offset + keys, i, np.full(count, s, dtype=np.int64),
+                                    np.full(count, bfrac), plan.dt))
+            offset += count
+        if cursors[i] >= sched.per:
+            continue
+        ks = sched.due(cursors[i], s)
+        ks = ks[ks < sched.per]
+        if ks.size == 0:
+            continue
+        cursors[i] = int(ks[-1]) + 1
+        bstep, bfrac = sched.birth(ks)
+        u = draws.setdefault((i, 0), PuffDraws(look.seed, i, 0, N_DRAWS))(ks)
+        lattice.append(_born(src, u, births.lattice_ids(i, ks, bstep), ks, i, bstep, bfrac, plan.dt))
+    return lattice, bursts
+
+
+def _snapshot(puffs: _Puffs, shaping: bool):
+    """Base numbers and moving state of the live rows."""
+    live = np.flatnonzero(puffs.live[:puffs.n])
+    b = puffs.buf
+    return (b["base"][live], b["pos"][live], b["vel"][live], b["deform"][live] if shaping else None)
+
+
+def _simulate_twins(look, plan: SimPlan, wanted: list) -> Iterator[FrameState]:
+    """Exact loop from one period of births, each over its whole life.
+
+    The lattice slots ``k < per`` of every source (born at boundaries
+    ``0 .. Ns``) are stepped from birth to death, with the same step
+    boundaries ``s`` (so the same force times ``(s mod Ns) dt``), ages and
+    draws as in the warm-up driver.  Slot ``k + j per`` is born ``j Ns``
+    steps later with the same draws and fraction, so at boundary ``S`` it is
+    bit for bit slot ``k`` at boundary ``S - j Ns``: frame ``f`` (boundary
+    ``S``) is the union, over ``j >= 0``, of the first-period puffs alive at
+    ``S - j Ns``.  Bursts do not repeat; they are stepped as they are (the
+    frame at ``S`` takes them at ``S``).
+    """
+    ns = int(plan.period_steps)
+    births = _Births(plan)
+    at = {f: plan.frame_step(f) for f in wanted}
+    phase: dict = {}
+    for f in wanted:
+        phase.setdefault(at[f] % ns, []).append(f)
+    chunks = {f: [] for f in wanted}
+    last = at[wanted[-1]]
+    twins, once = _Puffs(fields=_TWIN_FIELDS), _Puffs(fields=_TWIN_FIELDS)
+    table = {name: [] for name in _STATIC}
+    cache: dict = {}
+    n_base = 0
+    cursors = [0] * len(look.sources)
+    draws: dict = {}
+    follow, elongation, shaping = _shaping(look, plan)
+    burst_steps = [b for sc in plan.schedules for b, _, n in sc.bursts if n > 0]
+    targets = iter(wanted)
+    frame = next(targets)
+
+    def static():
+        if cache.get("n") != n_base:  # rebuilt only after new births
+            cache.update({name: np.concatenate(parts) if parts else _empty(name)
+                          for name, parts in table.items()}, n=n_base)
+        return cache
+
+    def state(f):
+        parts = chunks.pop(f)
+        per_j = [np.full(c[0].shape[0], j, dtype=np.int64) for j, c in parts]
+        j = np.concatenate(per_j) if parts else np.zeros(0, dtype=np.int64)
+        base = np.concatenate([c[0] for _, c in parts]) if parts else np.zeros(0, dtype=np.int64)
+        t = static()
+        pick = {name: t[name][base] for name in _STATIC}
+        pick["pos"] = np.concatenate([c[1] for _, c in parts]) if parts else _empty("pos")
+        pick["vel"] = np.concatenate([c[2] for _, c in parts]) if parts else _empty("vel")
+        if shaping:
+            pick["deform"] = np.concatenate([c[3] for _, c in parts]) if parts else _empty("deform")
+        else:
+            pick["deform"] = np.tile(np.eye(3), (base.shape[0], 1, 1))
+        twin = j > 0
+        if twin.any():
+            src = pick["source"][twin]
+            bstep = pick["bstep"][twin] + j[twin] * ns
+            ids = np.empty(bstep.shape[0], dtype=np.int64)
+            for i, per in enumerate(births.per):
+                sel = src == i
+                if sel.any():
+                    ids[sel] = births.lattice_ids(i, pick["slot"][twin][sel] + j[twin][sel] * per, bstep[sel])
+            pick["bstep"][twin] = bstep
+            pick["id"][twin] = ids
+        order = np.lexsort((pick["id"], pick["slot"], pick["source"]))
+        return _state_of(look, plan, {name: v[order] for name, v in pick.items()}, f, at[f])
+
+    for s in range(last + 1):
+        if s > 0:
+            _advance(look, plan, twins, s, follow, elongation, shaping)
+            _advance(look, plan, once, s, follow, elongation, shaping)
+        lattice, bursts = _spawn_twins(look, plan, births, s, cursors, draws)
+        for parts, puffs in ((lattice, twins), (bursts, once)):
+            for p in parts:
+                m = p["id"].shape[0]
+                p["base"] = np.arange(n_base, n_base + m, dtype=np.int64)
+                n_base += m
+                for name in _STATIC:
+                    table[name].append(p[name])
+            puffs.add(parts)
+            if len(puffs):
+                puffs.kill(puffs.ages(s, plan.dt) >= puffs.a["life"])
+        if s % ns in phase and len(twins):
+            snap = _snapshot(twins, shaping)
+            for f in phase[s % ns]:
+                if s <= at[f]:
+                    chunks[f].append(((at[f] - s) // ns, snap))
+        while frame is not None and at[frame] == s:
+            if len(once):
+                chunks[frame].append((0, _snapshot(once, shaping)))
+            yield state(frame)
+            frame = next(targets, None)
+        if (not twins.alive and not once.alive and all(c >= sc.per for c, sc in zip(cursors, plan.schedules))
+                and not any(s < b <= last for b in burst_steps)):
+            break  # nothing alive and nothing left to be born: the other frames are complete
+    while frame is not None:
+        yield state(frame)
+        frame = next(targets, None)
 
 
 def _empty(name: str) -> np.ndarray:

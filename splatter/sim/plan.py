@@ -45,7 +45,10 @@ class SimPlan:
     loop : str
         ``clip.loop``.
     warmup_steps : int
-        Steps simulated before frame 0.
+        Steps before frame 0 (the origin of step counts).  An exact loop
+        whose sources emit on their whole lattice does not step a warm-up
+        population: the driver reads it off the twins (see
+        :mod:`splatter.sim.driver`).
     warmup : float
         ``warmup_steps * dt`` seconds.
     period : float or None
