@@ -228,6 +228,21 @@ def test_twins_step_fewer_puffs_than_the_warm_up(monkeypatch):
     assert sum(counted) < 0.75 * old
 
 
+def test_twins_that_would_hold_too_much_take_the_warm_up(monkeypatch):
+    # Memory stays bounded: above TWIN_MEMORY the warm-up driver runs (same bits).
+    look = _long_life_look()
+    plan = plan_simulation(look)
+    counted = []
+    real = driver._advance
+    monkeypatch.setattr(driver, "_advance", lambda lk, pl, puffs, *a: (counted.append(len(puffs)),
+                                                                        real(lk, pl, puffs, *a)))
+    list(driver._simulate_warmup(look, plan, list(range(plan.frames))))
+    old, counted[:] = sum(counted), []
+    monkeypatch.setattr(driver, "TWIN_MEMORY", 0)
+    list(simulate(look, plan, frames=range(plan.frames)))
+    assert sum(counted) == old
+
+
 def test_looks_the_twins_cannot_serve_take_the_warm_up():
     assert not driver._twins_apply(plan_simulation(_busy_look("none")))
     assert not driver._twins_apply(plan_simulation(_busy_look("crossfade")))

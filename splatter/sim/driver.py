@@ -330,7 +330,7 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int]) -> 
         plan = plan_simulation(look)
     if not wanted:
         return
-    if _twins_apply(plan):
+    if _twins_apply(plan) and _twin_bytes(plan, len(wanted)) <= TWIN_MEMORY:
         yield from _simulate_twins(look, plan, wanted)
     else:
         yield from _simulate_warmup(look, plan, wanted)
@@ -384,6 +384,22 @@ def _simulate_warmup(look, plan: SimPlan, wanted: list) -> Iterator[FrameState]:
 
 # ---------------------------------------------------------------------------------------------------------------
 # Exact loops from twins.
+
+TWIN_MEMORY = 256 * 2**20
+"""Bytes the twin driver may hold; above it the warm-up driver (same bits, less memory) runs.
+
+The twin driver finishes a frame only when the puffs that fill it reach it,
+so while puffs outlive a period it holds the moving state of nearly every
+requested frame at once: about :data:`_TWIN_BYTES_PER_PUFF` per puff per frame.
+"""
+
+_TWIN_BYTES_PER_PUFF = 128  # position, velocity, deformation and bookkeeping of one puff in one held frame
+
+
+def _twin_bytes(plan: SimPlan, frames: int) -> float:
+    """What the twin driver would hold for ``frames`` requested frames, estimated from the steady-state count."""
+    return plan.steady_state_puffs * frames * _TWIN_BYTES_PER_PUFF
+
 
 def _twins_apply(plan: SimPlan) -> bool:
     """True for an exact loop whose sources emit on their whole lattice (births repeat every period)."""
