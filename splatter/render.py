@@ -36,8 +36,18 @@ FIT_OCTAVES = 2
 """Octaves an "auto" swirl is simulated with to fit the camera, before its count is known.
 
 The count depends on the framing and a fit framing on the simulation; the
-framing follows the large eddies, so it is fitted once with this small fixed
-count, the octaves are resolved from that framing, and the render keeps it.
+framing follows the large eddies, so it is fitted first with this small fixed
+count, the octaves are resolved from that framing, and the camera is fitted
+again on the flow with those octaves (what the render shows).
+"""
+
+FIT_PUFFS = 8000
+"""About how many live puffs ``camera.fit`` frames on.
+
+A dense look is framed on every ``n``-th spawn slot (an exact subset of its
+puffs, see :func:`~splatter.sim.driver.simulate`), so framing costs a fraction
+of the render; the outermost puffs of thousands are as good a bound as those
+of all of them, and ``camera.margin`` holds the rest.
 """
 
 
@@ -88,7 +98,9 @@ def make_camera(look: LookSpec, plan: Optional[SimPlan] = None, frames: Optional
 
     ``frames`` defaults to the whole clip (plus the crossfade frames), so a
     partial render frames exactly like a full one.  A look with "auto" swirl
-    octaves is fitted with :data:`FIT_OCTAVES` for them, whatever ``plan`` says.
+    octaves and no ``plan`` is fitted with :data:`FIT_OCTAVES` for them;
+    :func:`plan_and_camera` then resolves the octaves at that framing and
+    fits again with them.
     """
     c = look.camera
     cam = Camera(
@@ -97,11 +109,9 @@ def make_camera(look: LookSpec, plan: Optional[SimPlan] = None, frames: Optional
     )
     if not c.fit:
         return cam
-    if has_auto_octaves(look):
-        # Framed before the octaves are known (see FIT_OCTAVES); a given plan has the resolved ones, so it
-        # is not used here, which keeps every caller on the same framing.
+    if plan is None and has_auto_octaves(look):
+        # Framed before the octaves are known (see FIT_OCTAVES).
         look = with_octaves(look, FIT_OCTAVES)
-        plan = None
     plan = plan or plan_simulation(look)
     if frames is None:
         frames = range(look.clip.frames + _crossfade_frames(look))
@@ -113,7 +123,8 @@ def make_camera(look: LookSpec, plan: Optional[SimPlan] = None, frames: Optional
         op = effective_opacity(state.opacity, state.density, blend)
         return op if getattr(state, "deform", None) is None else thin_stretched(op, state, cam)
 
-    return fit_camera(cam, simulate(look, plan, frames=frames), margin=c.margin, opacity_of=seen)
+    sample = max(1, int(plan.steady_state_puffs // FIT_PUFFS))
+    return fit_camera(cam, simulate(look, plan, frames=frames, sample=sample), margin=c.margin, opacity_of=seen)
 
 
 def pixel_size(camera: Camera) -> float:
@@ -150,8 +161,10 @@ def plan_and_camera(look: LookSpec) -> "tuple[SimPlan, Camera]":
     camera : Camera
     """
     if has_auto_octaves(look):
-        camera = make_camera(look)
-        return plan_simulation(look, pixel_size=pixel_size(camera)), camera
+        # Octaves from a framing with few of them; then the framing of the flow
+        # that is rendered (the finest eddies carry smoke a little further).
+        plan = plan_simulation(look, pixel_size=pixel_size(make_camera(look)))
+        return plan, make_camera(look, plan)
     plan = plan_simulation(look)
     return plan, make_camera(look, plan)
 

@@ -175,7 +175,8 @@ def test_auto_octaves_with_a_fit_camera_do_not_depend_on_the_frames_rendered(tmp
     look = load_look(write_look(tmp_path, SMALL_PLUME.replace("octaves = 2\n", "")))
     assert look.camera.fit and look.forces[2].octaves is None
     plan, cam = plan_and_camera(look)
-    assert plan.pixel_size == pixel_size(cam)
+    assert plan.pixel_size == pixel_size(make_camera(look))  # octaves from the first framing
+    assert cam == make_camera(look, plan)  # the camera: fitted again on the resolved flow
     assert 1 <= plan.swirl_octaves[0] <= 8
     full = digests(quiet_render(look, tmp_path / "full").out_dir)
     part = digests(quiet_render(look, tmp_path / "part", frames=range(4, 6)).out_dir)
