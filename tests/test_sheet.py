@@ -212,3 +212,28 @@ def test_cell_size_sets_the_sheet_exactly():
     assert layout.resampled
     wide = sheet_layout(4, 400, 200, columns=2, padding=1, cell=100)
     assert (wide.width, wide.height, wide.cells[3].y) == (200, 100, 51)
+
+
+def test_dilation_stays_in_each_cell_so_mip_levels_up_to_the_gutter_do_not_bleed(tmp_path):
+    # Common practice (flipbook texture conventions): straight-alpha texels
+    # with alpha 0 take the colour of the nearest covered texel of their own
+    # frame, and a gutter of 2^k px keeps mip level k from mixing two cells.
+    # Frame 0 is a red dot, frame 1 a blue one; read back with Pillow.
+    from PIL import Image
+
+    frames = np.zeros((2, 16, 16, 4), np.float32)
+    # At the frames' left edges, so much of cell 0 lies nearer the blue dot than the red one.
+    frames[0, 7:9, 1:3] = (0.8, 0.0, 0.0, 0.8)  # premultiplied red, alpha 0.8
+    frames[1, 3:5, 0:2] = (0.0, 0.0, 0.6, 0.6)  # premultiplied blue, alpha 0.6
+    layout = sheet_layout(2, 16, 16, columns=2, padding=4)
+    write_sheet(tmp_path, "dots", frames, layout)
+    rgb = np.asarray(Image.open(tmp_path / "dots.sheet.png").convert("RGBA"), dtype=np.float64)[..., :3]
+    assert rgb.shape[:2] == (24, 48)
+    left, right = rgb[:, :24], rgb[:, 24:]
+    assert (left[..., 0] == 255).all() and (left[..., 1:] == 0).all()  # red everywhere in cell 0's tile
+    assert (right[..., 2] == 255).all() and (right[..., :2] == 0).all()  # blue everywhere in cell 1's tile
+    for k in (1, 2):  # mip levels 1 and 2 (2x2 and 4x4 box), gutter 4 = 2^2
+        f = 2**k
+        mip = rgb.reshape(24 // f, f, 48 // f, f, 3).mean(axis=(1, 3))
+        half = mip.shape[1] // 2
+        assert (mip[:, :half, 2] == 0).all() and (mip[:, half:, 0] == 0).all()

@@ -297,13 +297,18 @@ def place_frame(sheet, layout, k, frame, *, clip_alpha=True):
     if f.shape[2] != sheet.shape[2]:
         raise ValueError(f"frames[{k}]: {f.shape[2]} channels, frame 0 has {sheet.shape[2]}")
     cell = layout.cells[k]
+    sheet[cell.y : cell.y + cell.h, cell.x : cell.x + cell.w] = _cell_content(f, cell, clip_alpha)
+
+
+def _cell_content(f, cell, clip_alpha=True):
+    """``f`` ((H, W, C)) as float32 at the cell's size, Lanczos-resampled when it differs."""
     f = f.astype(np.float32, copy=False)
     if (cell.w, cell.h) != f.shape[1::-1]:
         f = _resample(f, cell.w, cell.h)
         if clip_alpha:
             np.clip(f[..., :-1], 0.0, None, out=f[..., :-1])
             np.clip(f[..., -1], 0.0, 1.0, out=f[..., -1])
-    sheet[cell.y : cell.y + cell.h, cell.x : cell.x + cell.w] = f
+    return f
 
 
 def assemble_sheet(frames, layout, *, clip_alpha=True, background=None):
@@ -403,9 +408,77 @@ def write_sheet(
     check_positive(fps, "fps")
     if maps is not None and not isinstance(maps, dict):
         raise TypeError(f"maps: expected a dict of map entries, got {type(maps).__name__}")
+    if format == "png":
+        codes = empty_codes(layout, png_bits)
+        k = -1
+        for k, frame in enumerate(frames_premult_linear):
+            if k >= layout.frames:
+                raise ValueError(f"frames: more than the layout's {layout.frames} frames")
+            put_cell_codes(codes, layout, k, frame, alpha=alpha, png_bits=png_bits, exposure=exposure)
+        if k + 1 != layout.frames:
+            raise ValueError(f"frames: got {k + 1} frames, the layout has {layout.frames}")
+        return write_sheet_codes(dir, name, codes, layout, alpha=alpha, fps=fps, loop=loop, maps=maps)
     return write_sheet_image(dir, name, assemble_sheet(frames_premult_linear, layout), layout, format=format,
                              alpha=alpha, png_bits=png_bits, exr_type=exr_type, fps=fps, loop=loop, maps=maps,
                              exposure=exposure)
+
+
+def empty_codes(layout, png_bits):
+    """A transparent ``(layout.height, layout.width, 4)`` sheet of uint8 or uint16 PNG codes."""
+    return np.zeros((layout.height, layout.width, 4), dtype=np.uint8 if png_bits == 8 else np.uint16)
+
+
+def put_cell_codes(codes, layout, k, frame, *, alpha="straight", png_bits=8, exposure=0.0):
+    """Encode frame ``k`` into its cell of a PNG code sheet, gutter included.
+
+    The cell's whole tile (its content and the gutter around it) is encoded
+    on its own: display encoding (exposure, sRGB, ``alpha``), then, for
+    straight alpha, dilation within the tile, so a transparent texel takes the
+    colour of the nearest covered texel of the same frame, never of a
+    neighbouring cell, and mip levels up to the gutter's size stay clean
+    (common practice). Memory is one tile, not one float sheet.
+
+    Parameters
+    ----------
+    codes : (layout.height, layout.width, 4) uint8 or uint16 ndarray
+        Written in place (from :func:`empty_codes`).
+    layout : SheetLayout
+    k : int
+    frame : (layout.frame_height, layout.frame_width, 4) float ndarray
+        Linear premultiplied RGBA.
+    alpha : {"straight", "premultiplied"}
+    png_bits : {8, 16}
+    exposure : float
+    """
+    f = np.asarray(frame)
+    if f.ndim != 3 or f.shape[:2] != (layout.frame_height, layout.frame_width) or f.shape[2] != 4:
+        raise ValueError(f"frames[{k}]: expected shape ({layout.frame_height}, {layout.frame_width}, 4), "
+                         f"got {np.shape(frame)}")
+    cell, pad = layout.cells[k], layout.padding
+    tile = np.zeros((cell.h + 2 * pad, cell.w + 2 * pad, 4), dtype=np.float32)
+    tile[pad : pad + cell.h, pad : pad + cell.w] = _cell_content(f, cell)
+    codes[cell.y - pad : cell.y + cell.h + pad, cell.x - pad : cell.x + cell.w + pad] = _encode_tile(
+        tile, alpha, png_bits, exposure)
+
+
+def _encode_tile(tile, alpha, png_bits, exposure):
+    """One cell's tile (content and gutter), float premultiplied linear, to PNG codes; dilated within it."""
+    disp = to_display(tile, alpha=alpha, color="srgb", exposure=exposure)
+    if alpha == "straight":
+        disp = dilate_colour(disp)
+    return quantize(disp, png_bits)
+
+
+def write_sheet_codes(dir, name, codes, layout, *, alpha="straight", fps=30, loop="none", maps=None):
+    """Write a PNG sheet of codes already encoded (:func:`put_cell_codes`) and its JSON; return both paths."""
+    dir = os.fspath(dir)
+    image = sheet_file(name, "png")
+    path = os.path.join(dir, image)
+    text = {"Software": "splatter"}
+    if alpha == "premultiplied":
+        text["splatter.alpha"] = "premultiplied"
+    write_png_encoded(path, codes, srgb=True, text=text)
+    return [path, _write_sheet_meta(dir, name, image, "png", layout, fps, loop, alpha, "srgb", maps)]
 
 
 def write_sheet_image(dir, name, sheet, layout, *, format="png", alpha="straight", png_bits=8, exr_type="half",
@@ -417,21 +490,21 @@ def write_sheet_image(dir, name, sheet, layout, *, format="png", alpha="straight
     dir = os.fspath(dir)
     if sheet.shape[2] != 4:
         raise ValueError(f"frames_premult_linear: expected 4 channels (RGBA), got {sheet.shape[2]}")
+    if format == "png":
+        codes = empty_codes(layout, png_bits)
+        pad = layout.padding
+        for cell in layout.cells:
+            ys = slice(cell.y - pad, cell.y + cell.h + pad)
+            xs = slice(cell.x - pad, cell.x + cell.w + pad)
+            codes[ys, xs] = _encode_tile(sheet[ys, xs], alpha, png_bits, exposure)
+        return write_sheet_codes(dir, name, codes, layout, alpha=alpha, fps=fps, loop=loop, maps=maps)
     image = sheet_file(name, format)
     path = os.path.join(dir, image)
-    if format == "png":
-        disp = to_display(sheet, alpha=alpha, color="srgb", exposure=exposure)
-        del sheet
-        if alpha == "straight":
-            disp = dilate_colour(disp)
-        text = {"Software": "splatter"}
-        if alpha == "premultiplied":
-            text["splatter.alpha"] = "premultiplied"
-        write_png_encoded(path, quantize(disp, png_bits), srgb=True, text=text)
-        color = "srgb"
-    else:
-        write_exr(path, rgba_channels(sheet), pixel_type=exr_type)
-        alpha, color = "premultiplied", "linear"
+    write_exr(path, rgba_channels(sheet), pixel_type=exr_type)
+    return [path, _write_sheet_meta(dir, name, image, format, layout, fps, loop, "premultiplied", "linear", maps)]
+
+
+def _write_sheet_meta(dir, name, image, format, layout, fps, loop, alpha, color, maps):
     meta = {"version": SCHEMA_VERSION, "image": image, "format": format}
     meta.update(layout.to_json())
     meta.update({"fps": float(fps), "loop": loop, "alpha": alpha, "color": color, "maps": dict(maps or {})})
@@ -440,4 +513,4 @@ def write_sheet_image(dir, name, sheet, layout, *, format="png", alpha="straight
     meta["maps"] = meta.pop("maps")
     json_path = os.path.join(dir, sheet_meta_file(name))
     atomic_write_text(json_path, json.dumps(meta, indent=1) + "\n")
-    return [path, json_path]
+    return json_path

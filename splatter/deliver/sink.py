@@ -24,7 +24,8 @@ from splatter.deliver.map_sheets import write_depth_sheet, write_lightdirs_map, 
 from splatter.deliver.names import frame_file, preview_file
 from splatter.deliver.png import write_png
 from splatter.deliver.preview import over_checker, write_contact_codes, write_gif_codes, write_mp4_codes
-from splatter.deliver.sheet import empty_sheet, place_frame, sheet_layout, write_sheet_image
+from splatter.deliver.sheet import (empty_codes, empty_sheet, place_frame, put_cell_codes, sheet_layout,
+                                    write_sheet_codes, write_sheet_image)
 from splatter.look.records import LookSpec
 
 __all__ = ["OutputSink"]
@@ -84,7 +85,10 @@ class OutputSink:
                 h, w = rgba.shape[:2]
                 self._layout = sheet_layout(max(self.n_frames, 1), w, h, columns=spec.columns, rows=spec.rows,
                                             padding=spec.padding, pow2=spec.pow2, cell=spec.cell)
-                self._sheet = empty_sheet(self._layout, 4)
+                if spec.format == "png":  # encoded cell by cell as frames arrive: memory one 8/16-bit sheet
+                    self._sheet = empty_codes(self._layout, out.png_bits)
+                else:
+                    self._sheet = empty_sheet(self._layout, 4)
             if layers:
                 self._sheet_alpha.append(rgba[..., 3])
             for k, v in layers.items():
@@ -100,7 +104,11 @@ class OutputSink:
         if out.frames:
             self._write_frame(frame, rgba, layers)
         if self._sheet is not None:
-            place_frame(self._sheet, self._layout, index, rgba)
+            if out.sheet.format == "png":
+                put_cell_codes(self._sheet, self._layout, index, rgba, alpha=out.png_alpha, png_bits=out.png_bits,
+                               exposure=self.look.shading.exposure)
+            else:
+                place_frame(self._sheet, self._layout, index, rgba)
         if out.preview:
             exp = self.look.shading.exposure
             if set(out.preview) - {"contact"}:
@@ -174,6 +182,10 @@ class OutputSink:
             for f in entry.get("files", [entry.get("file")]):
                 self.files.append(os.path.join(self.out_dir, f))
         sheet, self._sheet = self._sheet, None
+        if spec.format == "png":
+            self.files += write_sheet_codes(self.out_dir, look.name, sheet, layout, alpha=look.output.png_alpha,
+                                            fps=look.clip.fps, loop=look.clip.loop, maps=maps)
+            return
         self.files += write_sheet_image(
             self.out_dir, look.name, sheet, layout, format=spec.format, alpha=look.output.png_alpha,
             png_bits=look.output.png_bits, exr_type=look.output.exr_type, fps=look.clip.fps, loop=look.clip.loop,
