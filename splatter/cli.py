@@ -187,7 +187,8 @@ def _cmd_simulate(args) -> int:
         raise _UsageError(f"--out: expected a file name ending in .npz, got {args.out!r}")
     frames = parse_frames(args.frames, look.clip.frames) or range(look.clip.frames)
     from splatter.render import look_plan
-    from splatter.sim.driver import save_states, simulate
+    from splatter.deliver.states import save_states
+    from splatter.sim.driver import simulate
 
     plan = look_plan(look)  # "auto" swirl octaves resolved at the render's framing
     for note in plan.notes:

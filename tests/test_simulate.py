@@ -8,7 +8,8 @@ import pytest
 from splatter.look.records import (BurstSpec, ClipSpec, DragSpec, GravitySpec, LiftSpec, LookSpec, PlaneSpec,
                                    SourceSpec, SphereSpec, SwirlSpec, VortexSpec, WindSpec)
 from splatter.sim import driver
-from splatter.sim.driver import FrameState, plan_simulation, save_states, simulate
+from splatter.deliver.states import save_states
+from splatter.sim.driver import FrameState, plan_simulation, simulate
 
 FIELDS = ("id", "slot", "source", "pos", "vel", "age", "life", "size", "opacity", "color", "glow", "aspect", "quat",
           "stretch", "density")

@@ -44,8 +44,6 @@ period).  Other clips run from the start of the warm-up.
 
 from __future__ import annotations
 
-import os
-import tempfile
 from dataclasses import dataclass
 from typing import Iterable, Iterator, Optional
 
@@ -57,7 +55,7 @@ from splatter.sim.ramps import evaluate_color_ramp, evaluate_ramp
 from splatter.sim.rng import PuffDraws
 from splatter.sim.plan import SimPlan, plan_simulation
 
-__all__ = ["SimPlan", "FrameState", "plan_simulation", "simulate", "save_states"]
+__all__ = ["SimPlan", "FrameState", "plan_simulation", "simulate", "PER_PUFF_FIELDS", "empty_field"]
 
 @dataclass(frozen=True, eq=False)
 class FrameState:
@@ -543,7 +541,7 @@ def _simulate_twins(look, plan: SimPlan, wanted: list, sample: int = 1) -> Itera
 
     def static():
         if cache.get("n") != n_base:  # rebuilt only after new births
-            cache.update({name: np.concatenate(parts) if parts else _empty(name)
+            cache.update({name: np.concatenate(parts) if parts else empty_field(name)
                           for name, parts in table.items()}, n=n_base)
         return cache
 
@@ -554,10 +552,10 @@ def _simulate_twins(look, plan: SimPlan, wanted: list, sample: int = 1) -> Itera
         base = np.concatenate([c[0] for _, c in parts]) if parts else np.zeros(0, dtype=np.int64)
         t = static()
         pick = {name: t[name][base] for name in _STATIC}
-        pick["pos"] = np.concatenate([c[1] for _, c in parts]) if parts else _empty("pos")
-        pick["vel"] = np.concatenate([c[2] for _, c in parts]) if parts else _empty("vel")
+        pick["pos"] = np.concatenate([c[1] for _, c in parts]) if parts else empty_field("pos")
+        pick["vel"] = np.concatenate([c[2] for _, c in parts]) if parts else empty_field("vel")
         if shaping:
-            pick["deform"] = np.concatenate([c[3] for _, c in parts]) if parts else _empty("deform")
+            pick["deform"] = np.concatenate([c[3] for _, c in parts]) if parts else empty_field("deform")
         else:
             pick["deform"] = np.tile(np.eye(3), (base.shape[0], 1, 1))
         twin = j > 0
@@ -607,51 +605,7 @@ def _simulate_twins(look, plan: SimPlan, wanted: list, sample: int = 1) -> Itera
         frame = next(targets, None)
 
 
-def _empty(name: str) -> np.ndarray:
+def empty_field(name: str) -> np.ndarray:
+    """A zero-length array of per-puff field ``name`` with its trailing shape and dtype."""
     width = {"pos": (3,), "vel": (3,), "quat": (4,), "color": (3,), "glow": (3,), "deform": (3, 3)}.get(name, ())
     return np.zeros((0,) + width, dtype=_INT_FIELDS.get(name, np.float64))
-
-
-def save_states(path, states: Iterable[FrameState]) -> None:
-    """Write frame states to one ``.npz`` file, atomically.
-
-    Parameters
-    ----------
-    path : str or os.PathLike
-        Destination; written to a temporary file in the same folder, then
-        moved into place with ``os.replace``.
-    states : iterable of FrameState
-
-    Notes
-    -----
-    Arrays: ``frame_start (F+1,) int64`` (puffs of frame j are rows
-    ``frame_start[j]:frame_start[j+1]``), ``frame (F,) int64``,
-    ``time (F,) float64``, and per puff ``id``, ``slot``, ``source``, ``pos``,
-    ``vel``, ``age``, ``life``, ``size``, ``opacity``, ``color``, ``glow``,
-    ``aspect``, ``quat``, ``stretch``, ``density``, ``deform`` (rows of (3, 3)).
-    """
-    path = os.fspath(path)
-    cols = {name: [] for name in PER_PUFF_FIELDS}
-    frame, time, counts = [], [], [0]
-    for st in states:
-        frame.append(st.frame)
-        time.append(st.time)
-        counts.append(len(st))
-        for name in PER_PUFF_FIELDS:
-            cols[name].append(getattr(st, name))
-    arrays = {name: (np.concatenate(cols[name]) if cols[name] else _empty(name)) for name in PER_PUFF_FIELDS}
-    arrays["frame_start"] = np.cumsum(np.array(counts, dtype=np.int64))
-    arrays["frame"] = np.array(frame, dtype=np.int64)
-    arrays["time"] = np.array(time, dtype=np.float64)
-    folder = os.path.dirname(os.path.abspath(path))
-    fd, tmp = tempfile.mkstemp(prefix=".simulate-", suffix=".npz.tmp", dir=folder)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            np.savez(fh, **arrays)
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise

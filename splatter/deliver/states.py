@@ -1,0 +1,62 @@
+"""Particle states to a file: ``splatter simulate``'s ``.npz``.
+
+Examples
+--------
+>>> import pathlib, tempfile
+>>> from splatter.look.records import ClipSpec, LookSpec, SourceSpec
+>>> from splatter.sim.driver import simulate
+>>> look = LookSpec(name="doc", clip=ClipSpec(frames=3, fps=10), sources=(SourceSpec(rate=20.0),))
+>>> path = pathlib.Path(tempfile.mkdtemp()) / "doc.npz"
+>>> save_states(path, simulate(look, frames=range(3)))
+>>> data = np.load(path)
+>>> data["frame"].tolist(), data["frame_start"].shape, data["deform"].shape[1:]
+([0, 1, 2], (4,), (3, 3))
+"""
+
+from __future__ import annotations
+
+import os
+from typing import Iterable
+
+import numpy as np
+
+from splatter.deliver.fileio import atomic_path
+from splatter.sim.driver import PER_PUFF_FIELDS, FrameState, empty_field
+
+__all__ = ["save_states"]
+
+
+def save_states(path, states: Iterable[FrameState]) -> None:
+    """Write frame states to one ``.npz`` file, atomically.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        Destination; written to a temporary file in the same folder, then
+        moved into place with ``os.replace``.
+    states : iterable of FrameState
+
+    Notes
+    -----
+    Arrays: ``frame_start (F+1,) int64`` (puffs of frame j are rows
+    ``frame_start[j]:frame_start[j+1]``), ``frame (F,) int64``,
+    ``time (F,) float64``, and per puff ``id``, ``slot``, ``source``, ``pos``,
+    ``vel``, ``age``, ``life``, ``size``, ``opacity``, ``color``, ``glow``,
+    ``aspect``, ``quat``, ``stretch``, ``density``, ``deform`` (rows of (3, 3)).
+    """
+    path = os.fspath(path)
+    cols = {name: [] for name in PER_PUFF_FIELDS}
+    frame, time, counts = [], [], [0]
+    for st in states:
+        frame.append(st.frame)
+        time.append(st.time)
+        counts.append(len(st))
+        for name in PER_PUFF_FIELDS:
+            cols[name].append(getattr(st, name))
+    arrays = {name: (np.concatenate(cols[name]) if cols[name] else empty_field(name)) for name in PER_PUFF_FIELDS}
+    arrays["frame_start"] = np.cumsum(np.array(counts, dtype=np.int64))
+    arrays["frame"] = np.array(frame, dtype=np.int64)
+    arrays["time"] = np.array(time, dtype=np.float64)
+    with atomic_path(path, suffix=".npz") as tmp:
+        with open(tmp, "wb") as fh:
+            np.savez(fh, **arrays)
