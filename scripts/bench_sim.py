@@ -138,6 +138,7 @@ def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--puffs", type=int, default=20000)
     ap.add_argument("--steps", type=int, default=100)
+    ap.add_argument("--octaves", type=int, default=3, help="swirl octaves of the step benchmark")
     ap.add_argument("--repeats", type=int, default=5, help="best of this many timings")
     ap.add_argument("--look", help="compare the two simulate() paths on this look file only")
     ap.add_argument("--rate-scale", type=float, default=1.0, help="with --look: multiply every source's rate")
@@ -148,7 +149,7 @@ def main():
         _look_ab(args)
         return
     forces = (GravitySpec((0.0, -0.3, 0.0)), WindSpec(velocity=(0.6, 0.0, 0.0), gust=0.4, gust_period=2.0, grip=1.0),
-              LiftSpec(accel=1.5, cooling=0.4), SwirlSpec(strength=0.4, scale=1.0, octaves=3, evolve=2.0))
+              LiftSpec(accel=1.5, cooling=0.4), SwirlSpec(strength=0.4, scale=1.0, octaves=args.octaves, evolve=2.0))
     ft = pack_forces(forces, seed=3)
     ot = pack_obstacles((PlaneSpec(point=(0.0, -1.0, 0.0)),))
     rng = np.random.default_rng(1)
@@ -156,13 +157,14 @@ def main():
     pos0 = rng.uniform(-1.5, 1.5, (n, 3))
     vel0 = rng.normal(0.0, 0.5, (n, 3))
     age = rng.uniform(0.0, 3.0, n)
+    sigma = rng.uniform(0.02, 0.1, n)  # puff sizes: the shaped step filters eddies smaller than each puff
     dt = 1.0 / 60.0
 
     pos, vel = pos0.copy(), vel0.copy()
     step_puffs(pos, vel, age, dt=dt, time=0.0, forces=ft, obstacles=ot)  # compile
     eye = np.tile(np.eye(3), (n, 1, 1))
     step_puffs(pos, vel, age, dt=dt, time=0.0, forces=ft, obstacles=ot, deform=eye.copy(), follow=1.0,
-               elongation=36.0)  # compile the shaped step
+               elongation=36.0, sigma=sigma)  # compile the shaped step
     t_numba = t_numpy = t_shaped = float("inf")
     for _ in range(args.repeats):  # interleaved, so a busy machine slows both alike
         pos, vel = pos0.copy(), vel0.copy()
@@ -174,7 +176,7 @@ def main():
         t0 = time.perf_counter()
         for s in range(args.steps):
             step_puffs(pos, vel, age, dt=dt, time=s * dt, forces=ft, obstacles=ot, deform=deform, follow=1.0,
-                       elongation=36.0)
+                       elongation=36.0, sigma=sigma)
         t_shaped = min(t_shaped, time.perf_counter() - t0)
         pos = pos0.copy()  # the shaped step moves puffs identically; keep the unshaped result for the check
         vel = vel0.copy()

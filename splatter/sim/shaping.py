@@ -46,7 +46,6 @@ import numpy as np
 from splatter.core.jit import KERNEL, PARALLEL
 
 _JACOBI_SWEEPS = 12  # cyclic Jacobi on 3x3 converges to round-off in about 5 sweeps
-_BISECT = 60  # halvings of the window search: far below float64 round-off of log stretches
 
 
 @numba.njit(inline="always", **KERNEL)
@@ -111,20 +110,17 @@ def _relax(f, i, elongation, work):
     width = math.log(elongation)
     if max(l0, l1, l2) - min(l0, l1, l2) <= width:
         return False
-    # Window [m - width/2, m + width/2] with sum of clamped log stretches 0; the
-    # sum is monotone in m, so bisection finds it.
-    lo = min(l0, l1, l2)
-    hi = max(l0, l1, l2)
+    # Window [m - width/2, m + width/2] with the clamped log stretches summing
+    # to 0 (volume kept). The largest is clamped down, the smallest up; the
+    # middle one stays where the window holds it (m = -mid / 2), else it is
+    # clamped with the extreme on its side (m = -+width / 6).
     half = 0.5 * width
-    for _ in range(_BISECT):
-        m = 0.5 * (lo + hi)
-        tot = (min(max(l0, m - half), m + half) + min(max(l1, m - half), m + half)
-               + min(max(l2, m - half), m + half))
-        if tot > 0.0:
-            hi = m
-        else:
-            lo = m
-    m = 0.5 * (lo + hi)
+    mid = l0 + l1 + l2 - max(l0, l1, l2) - min(l0, l1, l2)
+    m = -0.5 * mid
+    if mid > m + half:
+        m = -width / 6.0
+    elif mid < m - half:
+        m = width / 6.0
     g0 = math.exp(min(max(l0, m - half), m + half) - l0)
     g1 = math.exp(min(max(l1, m - half), m + half) - l1)
     g2 = math.exp(min(max(l2, m - half), m + half) - l2)

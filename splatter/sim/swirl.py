@@ -60,6 +60,7 @@ from splatter.sim.rng import force_generator
 MODES_PER_OCTAVE = 16  # base directions
 SPECTRUM_EXPONENT = -1.0 / 3.0  # mode speed ~ |k|**(-1/3): Kolmogorov with equal modes per octave (docstring)
 H_FRACTION = 1e-3  # h = H_FRACTION * scale
+GRADIENT_FLOOR = 1e-6  # octave weight below which a block of puffs skips that octave's gradient (|error| < 1e-6 of it)
 AUTO_MAX_OCTAVES = 8  # "auto" may go past the explicit 1..6; each octave costs 16 modes per puff and step
 AUTO_SMALLEST_EDDY_PX = 2.0  # "auto" stops before the smallest wavelength drops below this many pixels
 
@@ -351,7 +352,9 @@ def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s, si
     transform of the puff's Gaussian, so eddies smaller than the puff mix
     its inside instead of stretching it (``sig = 0``: the point gradient).
     Octave ``o`` of a direction has ``|k| = 2**o |q|``, so its weight is the
-    previous octave's to the fourth power. ``w`` is scratch of ``n``.
+    previous octave's to the fourth power. ``w`` is scratch of ``n``. Once
+    every puff of the block weighs an octave below :data:`GRADIENT_FLOOR`,
+    its gradient terms (and the finer octaves') are skipped.
     """
     m = 0
     for d in range(q.shape[0]):
@@ -359,10 +362,31 @@ def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s, si
         q1 = q[d, 1]
         q2 = q[d, 2]
         qq = -0.5 * (q0 * q0 + q1 * q1 + q2 * q2)
+        wmax = 0.0
         for i in range(n):
             c[i], s[i] = _sincos(q0 * x[i] + q1 * y[i] + q2 * z[i])
             w[i] = math.exp(qq * sig[i] * sig[i])
+            wmax = max(wmax, w[i])
         for o in range(octaves[d]):
+            if wmax < GRADIENT_FLOOR:
+                # Eddies this fine mix every puff of the block: velocity only.
+                cp = cs[0, m]
+                sp = cs[1, m]
+                b0 = b[m, 0]
+                b1 = b[m, 1]
+                b2 = b[m, 2]
+                for i in range(n):
+                    ct = c[i] * cp - s[i] * sp
+                    ux[i] += ct * b0
+                    uy[i] += ct * b1
+                    uz[i] += ct * b2
+                if o + 1 < octaves[d]:
+                    for i in range(n):
+                        c2 = c[i] * c[i] - s[i] * s[i]
+                        s[i] = 2.0 * s[i] * c[i]
+                        c[i] = c2
+                m += 1
+                continue
             cp = cs[0, m]
             sp = cs[1, m]
             b0 = b[m, 0]
@@ -403,6 +427,8 @@ def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s, si
                     c[i] = c2
                     w2 = w[i] * w[i]
                     w[i] = w2 * w2
+                wmax = wmax * wmax
+                wmax = wmax * wmax
             m += 1
 
 
