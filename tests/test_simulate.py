@@ -215,33 +215,33 @@ def test_exact_loop_from_twins_equals_warm_up_bit_for_bit(index):
             _same_state(a, b)
 
 
-def test_twins_step_fewer_puffs_than_the_warm_up(monkeypatch):
-    # The point of the twin driver: no warm-up population is stepped.
-    look = _long_life_look()
-    plan = plan_simulation(look)
+def _puff_steps(monkeypatch, run):
+    """How many puff-steps ``run()`` advances (the driver's ``_advance`` counted)."""
     counted = []
     real = driver._advance
     monkeypatch.setattr(driver, "_advance", lambda lk, pl, puffs, *a: (counted.append(len(puffs)),
                                                                         real(lk, pl, puffs, *a)))
-    list(driver._simulate_warmup(look, plan, list(range(plan.frames))))
-    old, counted[:] = sum(counted), []
-    list(simulate(look, plan, frames=range(plan.frames)))
-    assert sum(counted) < 0.75 * old
+    run()
+    monkeypatch.setattr(driver, "_advance", real)
+    return sum(counted)
+
+
+def test_twins_step_fewer_puffs_than_the_warm_up(monkeypatch):
+    # The point of the twin driver: no warm-up population is stepped.
+    look = _long_life_look()
+    plan = plan_simulation(look)
+    old = _puff_steps(monkeypatch, lambda: list(driver._simulate_warmup(look, plan, list(range(plan.frames)))))
+    new = _puff_steps(monkeypatch, lambda: list(simulate(look, plan, frames=range(plan.frames))))
+    assert new < 0.75 * old
 
 
 def test_twins_that_would_hold_too_much_take_the_warm_up(monkeypatch):
     # Memory stays bounded: above TWIN_MEMORY the warm-up driver runs (same bits).
     look = _long_life_look()
     plan = plan_simulation(look)
-    counted = []
-    real = driver._advance
-    monkeypatch.setattr(driver, "_advance", lambda lk, pl, puffs, *a: (counted.append(len(puffs)),
-                                                                        real(lk, pl, puffs, *a)))
-    list(driver._simulate_warmup(look, plan, list(range(plan.frames))))
-    old, counted[:] = sum(counted), []
+    old = _puff_steps(monkeypatch, lambda: list(driver._simulate_warmup(look, plan, list(range(plan.frames)))))
     monkeypatch.setattr(driver, "TWIN_MEMORY", 0)
-    list(simulate(look, plan, frames=range(plan.frames)))
-    assert sum(counted) == old
+    assert _puff_steps(monkeypatch, lambda: list(simulate(look, plan, frames=range(plan.frames)))) == old
 
 
 def test_looks_the_twins_cannot_serve_take_the_warm_up():

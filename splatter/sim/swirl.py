@@ -302,22 +302,25 @@ def _swirl_block(x, y, z, n, q, octaves, b, cs, ux, uy, uz, c, s):
         for i in range(n):
             c[i], s[i] = _sincos(q0 * x[i] + q1 * y[i] + q2 * z[i])
         for o in range(octaves[d]):
-            cp = cs[0, m]
-            sp = cs[1, m]
-            b0 = b[m, 0]
-            b1 = b[m, 1]
-            b2 = b[m, 2]
-            for i in range(n):
-                ct = c[i] * cp - s[i] * sp  # cos(2**o a + phase)
-                ux[i] += ct * b0
-                uy[i] += ct * b1
-                uz[i] += ct * b2
-            if o + 1 < octaves[d]:
-                for i in range(n):
-                    c2 = c[i] * c[i] - s[i] * s[i]
-                    s[i] = 2.0 * s[i] * c[i]
-                    c[i] = c2
+            _velocity_octave(n, c, s, cs[0, m], cs[1, m], b[m, 0], b[m, 1], b[m, 2], ux, uy, uz,
+                             o + 1 < octaves[d])
             m += 1
+
+
+@numba.njit(inline="always", **KERNEL)
+def _velocity_octave(n, c, s, cp, sp, b0, b1, b2, ux, uy, uz, double):
+    """Add one mode's velocity ``cos(theta) b`` at points ``0 .. n-1``; then, if
+    ``double``, turn ``c, s`` (the octave's angle) into the next octave's by doubling."""
+    for i in range(n):
+        ct = c[i] * cp - s[i] * sp  # cos(2**o a + phase)
+        ux[i] += ct * b0
+        uy[i] += ct * b1
+        uz[i] += ct * b2
+    if double:
+        for i in range(n):
+            c2 = c[i] * c[i] - s[i] * s[i]
+            s[i] = 2.0 * s[i] * c[i]
+            c[i] = c2
 
 
 @numba.njit(**PARALLEL)
@@ -370,21 +373,8 @@ def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s, si
         for o in range(octaves[d]):
             if wmax < GRADIENT_FLOOR:
                 # Eddies this fine mix every puff of the block: velocity only.
-                cp = cs[0, m]
-                sp = cs[1, m]
-                b0 = b[m, 0]
-                b1 = b[m, 1]
-                b2 = b[m, 2]
-                for i in range(n):
-                    ct = c[i] * cp - s[i] * sp
-                    ux[i] += ct * b0
-                    uy[i] += ct * b1
-                    uz[i] += ct * b2
-                if o + 1 < octaves[d]:
-                    for i in range(n):
-                        c2 = c[i] * c[i] - s[i] * s[i]
-                        s[i] = 2.0 * s[i] * c[i]
-                        c[i] = c2
+                _velocity_octave(n, c, s, cs[0, m], cs[1, m], b[m, 0], b[m, 1], b[m, 2], ux, uy, uz,
+                                 o + 1 < octaves[d])
                 m += 1
                 continue
             cp = cs[0, m]
