@@ -4,11 +4,11 @@ from __future__ import annotations
 
 from typing import List
 
-from splatter.view.camera import project_puffs
-from splatter.look.records import LookSpec
 from splatter.deliver.names import planned_files
+from splatter.look.records import LookSpec
 from splatter.render import output_dir, pixel_size, plan_and_camera
 from splatter.sim.driver import simulate
+from splatter.view.camera import project_puffs
 from splatter.view.framing import cut_by_border
 from splatter.view.splats import effective_opacity
 

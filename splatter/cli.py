@@ -186,8 +186,8 @@ def _cmd_simulate(args) -> int:
     if not args.out.endswith(".npz"):
         raise _UsageError(f"--out: expected a file name ending in .npz, got {args.out!r}")
     frames = parse_frames(args.frames, look.clip.frames) or range(look.clip.frames)
-    from splatter.render import look_plan
     from splatter.deliver.states import save_states
+    from splatter.render import look_plan
     from splatter.sim.driver import simulate
 
     plan = look_plan(look)  # "auto" swirl octaves resolved at the render's framing

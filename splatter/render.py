@@ -16,18 +16,24 @@ from typing import Dict, Iterable, List, Optional
 
 import numpy as np
 
-from splatter.view.camera import Camera
-from splatter.view.framing import border_alpha_share, fit_camera, max_border_alpha
-from splatter.raster.compositor import composite_features, kernels_cached
 from splatter.core.errors import LookError, LookWarning
 from splatter.core.thresholds import VISIBLE_ALPHA
-from splatter.view.light import light_puffs
-from splatter.look.records import LookSpec
-from splatter.raster.maps import normal_map
 from splatter.deliver.sink import OutputSink
+from splatter.look.records import LookSpec
+from splatter.raster.compositor import composite_features, kernels_cached
+from splatter.raster.maps import normal_map
 from splatter.sim.driver import SimPlan, plan_simulation, simulate
 from splatter.sim.plan import has_auto_octaves, with_octaves
-from splatter.view.splats import effective_opacity, feature_layout, make_splats, split_layers, thin_stretched
+from splatter.view.camera import Camera
+from splatter.view.framing import border_alpha_share, fit_camera, max_border_alpha
+from splatter.view.light import light_puffs
+from splatter.view.splats import (
+    effective_opacity,
+    feature_layout,
+    make_splats,
+    split_layers,
+    thin_stretched,
+)
 
 __all__ = ["render", "RenderResult", "make_camera", "plan_and_camera", "look_plan", "pixel_size", "output_dir",
            "frame_images"]

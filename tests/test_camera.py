@@ -8,9 +8,15 @@ import math
 import numpy as np
 import pytest
 
-from splatter.view.camera import LOW_PASS, Camera, ewa_covariance, project_puffs, puff_covariances
-from splatter.view.framing import border_alpha_share, fit_view
 from splatter.raster.compositor import composite
+from splatter.view.camera import (
+    LOW_PASS,
+    Camera,
+    ewa_covariance,
+    project_puffs,
+    puff_covariances,
+)
+from splatter.view.framing import border_alpha_share, fit_view
 
 
 def rz(deg):

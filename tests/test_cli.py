@@ -6,8 +6,8 @@ import sys
 
 import numpy as np
 import pytest
-
 from lookfiles import LONE_PUFF, SMALL_PLUME, write_look
+
 from splatter.cli import main
 
 

@@ -5,9 +5,14 @@ import math
 import numpy as np
 from scipy import stats
 
-from splatter.sim.emit import Schedule, sample_directions, sample_positions, sample_quaternions
 from splatter.look.records import BurstSpec, ClipSpec, LookSpec, SourceSpec
 from splatter.sim.driver import plan_simulation, simulate
+from splatter.sim.emit import (
+    Schedule,
+    sample_directions,
+    sample_positions,
+    sample_quaternions,
+)
 
 RNG = np.random.default_rng(12345)
 

@@ -5,9 +5,9 @@ import math
 import numpy as np
 import pytest
 
+from splatter.look.records import DragSpec, LiftSpec, VortexSpec, WindSpec
 from splatter.sim.forces import pack_forces, snap_period
 from splatter.sim.integrate import air_velocity, step_puffs
-from splatter.look.records import DragSpec, LiftSpec, VortexSpec, WindSpec
 from splatter.sim.obstacles import pack_obstacles
 
 NONE = pack_obstacles(())

@@ -4,9 +4,17 @@ import numba
 import numpy as np
 import pytest
 
+from splatter.look.records import (
+    DragSpec,
+    GravitySpec,
+    LiftSpec,
+    PlaneSpec,
+    SwirlSpec,
+    VortexSpec,
+    WindSpec,
+)
 from splatter.sim.forces import pack_forces
 from splatter.sim.integrate import step_puffs
-from splatter.look.records import DragSpec, GravitySpec, LiftSpec, PlaneSpec, SwirlSpec, VortexSpec, WindSpec
 from splatter.sim.obstacles import pack_obstacles
 
 NO_OBSTACLES = pack_obstacles(())

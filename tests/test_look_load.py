@@ -5,8 +5,8 @@ import textwrap
 import pytest
 
 from splatter.core.errors import LookError
-from splatter.look.records import LookSpec, SourceSpec, SwirlSpec, WindSpec
 from splatter.look.load import load_look, parse_override
+from splatter.look.records import LookSpec, SourceSpec, SwirlSpec, WindSpec
 
 
 def write(tmp_path, name, text):

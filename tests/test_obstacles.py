@@ -3,11 +3,18 @@
 import numpy as np
 import pytest
 
+from splatter.look.records import (
+    ClipSpec,
+    GravitySpec,
+    LookSpec,
+    PlaneSpec,
+    SourceSpec,
+    SphereSpec,
+)
+from splatter.sim.driver import simulate
 from splatter.sim.forces import pack_forces
 from splatter.sim.integrate import step_puffs
-from splatter.look.records import ClipSpec, GravitySpec, LookSpec, PlaneSpec, SourceSpec, SphereSpec
 from splatter.sim.obstacles import pack_obstacles
-from splatter.sim.driver import simulate
 
 
 def _one_step(pos, vel, obstacles, dt=1e-3):

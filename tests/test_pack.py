@@ -6,10 +6,10 @@ import os
 import numpy as np
 import pytest
 
-from splatter.deliver.pack import pack_folder
-from splatter.deliver.sheet import assemble_sheet, sheet_layout
 from splatter.deliver.exr import read_exr, rgba_channels, write_exr
+from splatter.deliver.pack import pack_folder
 from splatter.deliver.png import read_png, write_png
+from splatter.deliver.sheet import assemble_sheet, sheet_layout
 
 
 def _frames(n, h=12, w=16, seed=0):

@@ -7,7 +7,13 @@ import pytest
 from PIL import Image
 
 from splatter.core.colorspace import srgb_decode, srgb_encode
-from splatter.deliver.preview import checker, over_checker, write_contact_sheet, write_gif, write_mp4
+from splatter.deliver.preview import (
+    checker,
+    over_checker,
+    write_contact_sheet,
+    write_gif,
+    write_mp4,
+)
 
 
 def _clip(n=9, h=32, w=48):

@@ -6,15 +6,21 @@ from pathlib import Path
 import numba
 import numpy as np
 import pytest
-
 from lookfiles import LONE_PUFF, SMALL_PLUME, write_look
-from splatter.view.framing import border_alpha_share
-from splatter.look.load import load_look
+
 from splatter.check import check_look
-from splatter.render import frame_images, make_camera, pixel_size, plan_and_camera, render
-from splatter.sim.driver import plan_simulation, simulate
-from splatter.view.splats import split_layers
 from splatter.deliver.exr import read_exr
+from splatter.look.load import load_look
+from splatter.render import (
+    frame_images,
+    make_camera,
+    pixel_size,
+    plan_and_camera,
+    render,
+)
+from splatter.sim.driver import plan_simulation, simulate
+from splatter.view.framing import border_alpha_share
+from splatter.view.splats import split_layers
 
 LOOKS = Path(__file__).resolve().parent.parent / "looks"
 

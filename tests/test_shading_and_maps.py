@@ -5,12 +5,12 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-
 from lookfiles import LIT_BALL, LONE_PUFF, write_look
-from splatter.look.load import load_look
-from splatter.render import render
+
 from splatter.deliver.exr import read_exr
 from splatter.deliver.png import read_png
+from splatter.look.load import load_look
+from splatter.render import render
 
 
 def render_one(tmp_path, text, overrides=(), name="look.toml", frames=(0,)):

@@ -7,9 +7,9 @@ from pathlib import Path
 import numba
 import numpy as np
 import pytest
+from lookfiles import SMALL_PLUME, write_look
 
 import splatter.view.splats as splats_module
-from lookfiles import SMALL_PLUME, write_look
 from splatter.deliver.exr import read_exr
 from splatter.look.load import load_look
 from splatter.look.records import SwirlSpec, VortexSpec

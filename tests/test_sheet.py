@@ -6,10 +6,10 @@ import math
 import numpy as np
 import pytest
 
-from splatter.deliver.map_sheets import write_lightdirs_sheets, write_map_sheet
-from splatter.deliver.sheet import assemble_sheet, sheet_layout, write_sheet
 from splatter.deliver.exr import read_exr
+from splatter.deliver.map_sheets import write_lightdirs_sheets, write_map_sheet
 from splatter.deliver.png import read_png, write_png
+from splatter.deliver.sheet import assemble_sheet, sheet_layout, write_sheet
 
 
 def _puff_frames(n, h, w, colour=(0.8, 0.5, 0.3), seed=0):

@@ -5,10 +5,22 @@ import os
 import numpy as np
 import pytest
 
-from splatter.look.records import (BurstSpec, ClipSpec, DragSpec, GravitySpec, LiftSpec, LookSpec, PlaneSpec,
-                                   SourceSpec, SphereSpec, SwirlSpec, VortexSpec, WindSpec)
-from splatter.sim import driver
 from splatter.deliver.states import save_states
+from splatter.look.records import (
+    BurstSpec,
+    ClipSpec,
+    DragSpec,
+    GravitySpec,
+    LiftSpec,
+    LookSpec,
+    PlaneSpec,
+    SourceSpec,
+    SphereSpec,
+    SwirlSpec,
+    VortexSpec,
+    WindSpec,
+)
+from splatter.sim import driver
 from splatter.sim.driver import FrameState, plan_simulation, simulate
 
 FIELDS = ("id", "slot", "source", "pos", "vel", "age", "life", "size", "opacity", "color", "glow", "aspect", "quat",

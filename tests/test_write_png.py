@@ -8,7 +8,13 @@ import numpy as np
 import pytest
 from PIL import Image
 
-from splatter.deliver.png import read_png, read_png_linear, write_png, write_png_encoded, write_png_map
+from splatter.deliver.png import (
+    read_png,
+    read_png_linear,
+    write_png,
+    write_png_encoded,
+    write_png_map,
+)
 
 
 def _chunks(path):

@@ -10,7 +10,6 @@ The sheet is written by :func:`splatter.deliver.sheet.write_sheet`.
 from __future__ import annotations
 
 import os
-import re
 
 import numpy as np
 import OpenEXR
@@ -18,10 +17,10 @@ from PIL import Image
 
 from splatter.core.args import check_choice
 from splatter.core.choices import FRAME_FORMATS
-from splatter.deliver.names import FRAME_FILE
-from splatter.deliver.sheet import sheet_layout, write_sheet
 from splatter.deliver.exr import read_exr
+from splatter.deliver.names import FRAME_FILE
 from splatter.deliver.png import read_png_linear
+from splatter.deliver.sheet import sheet_layout, write_sheet
 
 __all__ = ["find_frames", "pack_folder"]
 

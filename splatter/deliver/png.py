@@ -28,10 +28,10 @@ import numba
 import numpy as np
 
 from splatter.core.colorspace import srgb_decode
+from splatter.core.jit import KERNEL
 from splatter.deliver.dilate import dilate_colour
 from splatter.deliver.display import quantize, to_display, unpremultiply
 from splatter.deliver.fileio import atomic_path
-from splatter.core.jit import KERNEL
 
 __all__ = [
     "write_png",

@@ -8,7 +8,6 @@ result is sRGB-encoded (IEC 61966-2-1) to 8 bits.
 
 from __future__ import annotations
 
-import math
 import os
 
 import numpy as np
@@ -18,8 +17,8 @@ from splatter.core.args import check_image, check_positive
 from splatter.core.colorspace import srgb_decode, srgb_encode
 from splatter.deliver.display import quantize
 from splatter.deliver.fileio import atomic_path
-from splatter.deliver.sheet import sheet_layout
 from splatter.deliver.png import write_png_encoded
+from splatter.deliver.sheet import sheet_layout
 
 __all__ = ["write_gif_codes", "write_mp4_codes", "write_contact_codes", "checker", "over_checker", "write_gif", "write_mp4", "write_contact_sheet"]
 

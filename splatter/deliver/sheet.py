@@ -79,11 +79,17 @@ import numpy as np
 from PIL import Image
 
 from splatter.core.args import check_choice, check_int, check_positive
-from splatter.core.choices import EXR_TYPES, FRAME_FORMATS, LOOP_MODES, PNG_ALPHAS, PNG_BITS
+from splatter.core.choices import (
+    EXR_TYPES,
+    FRAME_FORMATS,
+    LOOP_MODES,
+    PNG_ALPHAS,
+    PNG_BITS,
+)
 from splatter.deliver.dilate import dilate_colour
 from splatter.deliver.display import quantize, to_display
-from splatter.deliver.fileio import atomic_write_text
 from splatter.deliver.exr import rgba_channels, write_exr
+from splatter.deliver.fileio import atomic_write_text
 from splatter.deliver.names import sheet_file, sheet_meta_file
 from splatter.deliver.png import write_png_encoded
 

@@ -20,12 +20,29 @@ from typing import Dict, List
 import numpy as np
 
 from splatter.deliver.exr import rgba_channels, write_exr
-from splatter.deliver.map_sheets import write_depth_sheet, write_lightdirs_map, write_motion_sheet, write_normal_sheet
+from splatter.deliver.map_sheets import (
+    write_depth_sheet,
+    write_lightdirs_map,
+    write_motion_sheet,
+    write_normal_sheet,
+)
 from splatter.deliver.names import frame_file, preview_file
 from splatter.deliver.png import write_png
-from splatter.deliver.preview import over_checker, write_contact_codes, write_gif_codes, write_mp4_codes
-from splatter.deliver.sheet import (empty_codes, empty_sheet, place_frame, put_cell_codes, sheet_layout,
-                                    write_sheet_codes, write_sheet_image)
+from splatter.deliver.preview import (
+    over_checker,
+    write_contact_codes,
+    write_gif_codes,
+    write_mp4_codes,
+)
+from splatter.deliver.sheet import (
+    empty_codes,
+    empty_sheet,
+    place_frame,
+    put_cell_codes,
+    sheet_layout,
+    write_sheet_codes,
+    write_sheet_image,
+)
 from splatter.look.records import LookSpec
 
 __all__ = ["OutputSink"]

@@ -27,6 +27,7 @@ from typing import Any, Callable, Tuple
 from splatter.core.colorspace import hex_to_linear
 from splatter.core.errors import LookError
 
+
 def describe(value: Any) -> str:
     """Format an arrived value for a message: its TOML type and its text."""
     if isinstance(value, bool):

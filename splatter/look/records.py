@@ -32,10 +32,34 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import ClassVar, Dict, Optional, Tuple, Union
 
-from splatter.core.choices import (BLENDS, EXR_TYPES, FRAME_FORMATS, INTEGRATORS, LOOP_MODES, MAPS, NORMAL_Y,
-                                   PNG_ALPHAS, PREVIEWS, PROJECTIONS, SHAPES)
-from splatter.look.checks import (boolean, choice, color, color_ramp, dir_text, list_of, name_text, number, png_bits,
-                                  ramp, text_or_number, value_range, vec3)
+from splatter.core.choices import (
+    BLENDS,
+    EXR_TYPES,
+    FRAME_FORMATS,
+    INTEGRATORS,
+    LOOP_MODES,
+    MAPS,
+    NORMAL_Y,
+    PNG_ALPHAS,
+    PREVIEWS,
+    PROJECTIONS,
+    SHAPES,
+)
+from splatter.look.checks import (
+    boolean,
+    choice,
+    color,
+    color_ramp,
+    dir_text,
+    list_of,
+    name_text,
+    number,
+    png_bits,
+    ramp,
+    text_or_number,
+    value_range,
+    vec3,
+)
 
 Vec3 = Tuple[float, float, float]
 Range = Tuple[float, float]

@@ -66,9 +66,21 @@ import math
 import numba
 import numpy as np
 
-from splatter.raster._simd import (prefetch, vadd, vexp, vfma, vkeep_below, vload, vmul, vpowers,
-                            vramp, vsplat, vstore, vsub)
 from splatter.core.jit import KERNEL, PARALLEL
+from splatter.raster._simd import (
+    prefetch,
+    vadd,
+    vexp,
+    vfma,
+    vkeep_below,
+    vload,
+    vmul,
+    vpowers,
+    vramp,
+    vsplat,
+    vstore,
+    vsub,
+)
 
 MODE_OVER = 0
 MODE_ADD = 1

@@ -51,9 +51,9 @@ import numpy as np
 
 from splatter.sim.emit import N_DRAWS, sample_puffs
 from splatter.sim.integrate import air_velocity, step_puffs
+from splatter.sim.plan import SimPlan, plan_simulation
 from splatter.sim.ramps import evaluate_color_ramp, evaluate_ramp
 from splatter.sim.rng import PuffDraws
-from splatter.sim.plan import SimPlan, plan_simulation
 
 __all__ = ["SimPlan", "FrameState", "plan_simulation", "simulate", "PER_PUFF_FIELDS", "empty_field"]
 

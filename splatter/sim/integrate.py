@@ -24,15 +24,19 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-from splatter.sim.forces import ForceTables, _accel, _vortex_at, _vortex_grad_at, _wind_sum
+from splatter.core.args import check_choice
+from splatter.core.choices import INTEGRATORS
 from splatter.core.jit import KERNEL, PARALLEL
+from splatter.sim.forces import (
+    ForceTables,
+    _accel,
+    _vortex_at,
+    _vortex_grad_at,
+    _wind_sum,
+)
 from splatter.sim.obstacles import ObstacleTables, _collide
 from splatter.sim.shaping import _advance_one, _check_deform
 from splatter.sim.swirl import BLOCK, _swirl_block, _swirl_grad_block
-from splatter.core.args import check_choice
-from splatter.core.choices import INTEGRATORS
-
-
 
 
 @numba.njit(**KERNEL)

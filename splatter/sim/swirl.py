@@ -60,7 +60,7 @@ from splatter.sim.rng import force_generator
 MODES_PER_OCTAVE = 16  # base directions
 SPECTRUM_EXPONENT = -1.0 / 3.0  # mode speed ~ |k|**(-1/3): Kolmogorov with equal modes per octave (docstring)
 H_FRACTION = 1e-3  # h = H_FRACTION * scale
-GRADIENT_FLOOR = 1e-6  # octave weight below which a block of puffs skips that octave's gradient (|error| < 1e-6 of it)
+GRADIENT_FLOOR = 1e-12  # a puff's octave weight below this is taken as 0 (its gradient terms are dropped)
 AUTO_MAX_OCTAVES = 8  # "auto" may go past the explicit 1..6; each octave costs 16 modes per puff and step
 AUTO_SMALLEST_EDDY_PX = 2.0  # "auto" stops before the smallest wavelength drops below this many pixels
 
@@ -355,9 +355,11 @@ def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s, si
     transform of the puff's Gaussian, so eddies smaller than the puff mix
     its inside instead of stretching it (``sig = 0``: the point gradient).
     Octave ``o`` of a direction has ``|k| = 2**o |q|``, so its weight is the
-    previous octave's to the fourth power. ``w`` is scratch of ``n``. Once
-    every puff of the block weighs an octave below :data:`GRADIENT_FLOOR`,
-    its gradient terms (and the finer octaves') are skipped.
+    previous octave's to the fourth power. ``w`` is scratch of ``n``. A
+    weight below :data:`GRADIENT_FLOOR` is taken as exactly 0 for that puff,
+    so when every puff of the block weighs 0 the octave's gradient terms can
+    be skipped without changing a bit: results never depend on which puffs
+    share a block (twins and warm-up, frame ranges, thread counts agree).
     """
     m = 0
     for d in range(q.shape[0]):
@@ -369,9 +371,11 @@ def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s, si
         for i in range(n):
             c[i], s[i] = _sincos(q0 * x[i] + q1 * y[i] + q2 * z[i])
             w[i] = math.exp(qq * sig[i] * sig[i])
+            if w[i] < GRADIENT_FLOOR:
+                w[i] = 0.0
             wmax = max(wmax, w[i])
         for o in range(octaves[d]):
-            if wmax < GRADIENT_FLOOR:
+            if wmax == 0.0:
                 # Eddies this fine mix every puff of the block: velocity only.
                 _velocity_octave(n, c, s, cs[0, m], cs[1, m], b[m, 0], b[m, 1], b[m, 2], ux, uy, uz,
                                  o + 1 < octaves[d])
@@ -416,9 +420,11 @@ def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s, si
                     s[i] = 2.0 * s[i] * c[i]
                     c[i] = c2
                     w2 = w[i] * w[i]
-                    w[i] = w2 * w2
-                wmax = wmax * wmax
-                wmax = wmax * wmax
+                    w2 = w2 * w2
+                    w[i] = w2 if w2 >= GRADIENT_FLOOR else 0.0
+                wmax = 0.0
+                for i in range(n):
+                    wmax = max(wmax, w[i])
             m += 1
 
 
