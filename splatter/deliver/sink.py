@@ -66,9 +66,9 @@ class OutputSink:
     Notes
     -----
     Work that needs only one frame happens on the writer thread as frames
-    arrive, overlapping the compositing of the next: frame files, placing the
-    frame into its sheet cell (so memory is one sheet, not every frame), and
-    the preview frames over the checker. Map sheets keep their layers and the
+    arrive, overlapping the compositing of the next: frame files, the frame's
+    sheet cell (PNG sheets are encoded cell by cell, so memory is one 8/16-bit
+    sheet, not every frame), and the preview frames over the checker. Map sheets keep their layers and the
     frames' alpha until the end, since their encodings use clip-wide ranges.
     """
 
