@@ -170,7 +170,7 @@ class SourceSpec:
     stretch: float = key(0.0, number(0.0, 100.0))
     density: float = key(1.0, number(0.0, 1e4))
     follow: float = key(1.0, number(0.0, 1.0))  # extension: how strongly shapes follow the flow
-    elongation: float = key(36.0, number(1.5, 1000.0))  # extension: long/short axis ratio before relaxing
+    elongation: float = key(10.0, number(1.5, 1000.0))  # extension: long/short axis ratio before relaxing
 
 
 @dataclass(frozen=True)
