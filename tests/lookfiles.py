@@ -113,3 +113,33 @@ def write_look(folder, text, name="look.toml", extra=""):
     path = folder / name
     path.write_text(textwrap.dedent(text) + textwrap.dedent(extra))
     return path
+
+
+def digests(folder):
+    """sha256 of every file in ``folder``, by name."""
+    import hashlib
+    from pathlib import Path
+
+    return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in sorted(Path(folder).iterdir())}
+
+
+def quiet_render(look, out, **kw):
+    """``render`` into ``out`` without a progress bar."""
+    from splatter.render import render
+
+    return render(look, out_dir=str(out), progress=False, **kw)
+
+
+def thread_digests(look, folder):
+    """Digests of the look rendered on one numba thread and on all of them: ``(one, many)``."""
+    import numba
+
+    old = numba.get_num_threads()
+    try:
+        numba.set_num_threads(1)
+        one = digests(quiet_render(look, folder / "one").out_dir)
+        numba.set_num_threads(numba.config.NUMBA_NUM_THREADS)
+        many = digests(quiet_render(look, folder / "many").out_dir)
+    finally:
+        numba.set_num_threads(old)
+    return one, many

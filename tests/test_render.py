@@ -1,12 +1,17 @@
 """End to end: determinism, frame ranges, exact loops, crossfades, framing of the demos."""
 
-import hashlib
 from pathlib import Path
 
-import numba
 import numpy as np
 import pytest
-from lookfiles import LONE_PUFF, SMALL_PLUME, write_look
+from lookfiles import (
+    LONE_PUFF,
+    SMALL_PLUME,
+    digests,
+    quiet_render,
+    thread_digests,
+    write_look,
+)
 
 from splatter.check import check_look
 from splatter.deliver.exr import read_exr
@@ -16,21 +21,12 @@ from splatter.render import (
     make_camera,
     pixel_size,
     plan_and_camera,
-    render,
 )
 from splatter.sim.driver import plan_simulation, simulate
 from splatter.view.framing import border_alpha_share
 from splatter.view.splats import split_layers
 
 LOOKS = Path(__file__).resolve().parent.parent / "looks"
-
-
-def digests(folder):
-    return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in sorted(Path(folder).iterdir())}
-
-
-def quiet_render(look, out, **kw):
-    return render(look, out_dir=str(out), progress=False, **kw)
 
 
 def test_same_seed_same_bytes_other_seed_differs(tmp_path):
@@ -56,14 +52,7 @@ def test_frame_range_matches_full_render_and_may_run_past_the_end(tmp_path):
 
 def test_thread_count_changes_no_byte(tmp_path):
     look = load_look(write_look(tmp_path, SMALL_PLUME))
-    old = numba.get_num_threads()
-    try:
-        numba.set_num_threads(1)
-        one = digests(quiet_render(look, tmp_path / "one").out_dir)
-        numba.set_num_threads(numba.config.NUMBA_NUM_THREADS)
-        many = digests(quiet_render(look, tmp_path / "many").out_dir)
-    finally:
-        numba.set_num_threads(old)
+    one, many = thread_digests(look, tmp_path)
     assert one == many
 
 

@@ -1,19 +1,16 @@
 """Puff shapes that follow the flow: the deformation gradient F, its update, its bound and its rendering."""
 
-import hashlib
 import math
 from pathlib import Path
 
-import numba
 import numpy as np
 import pytest
-from lookfiles import SMALL_PLUME, write_look
+from lookfiles import SMALL_PLUME, digests, quiet_render, thread_digests, write_look
 
 import splatter.view.splats as splats_module
 from splatter.deliver.exr import read_exr
 from splatter.look.load import load_look
 from splatter.look.records import SwirlSpec, VortexSpec
-from splatter.render import render
 from splatter.sim.driver import simulate
 from splatter.sim.forces import pack_forces
 from splatter.sim.integrate import air_gradient, air_velocity, step_puffs
@@ -23,14 +20,6 @@ from splatter.view.camera import puff_covariances
 
 # SMALL_PLUME with a swirl strong enough that shapes clearly follow it.
 SHAPED_PLUME = SMALL_PLUME.replace("strength = 0.3", "strength = 1.5")
-
-
-def digests(folder):
-    return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in sorted(Path(folder).iterdir())}
-
-
-def quiet_render(look, out, **kw):
-    return render(look, out_dir=str(out), progress=False, **kw)
 
 
 def flows():
@@ -211,14 +200,7 @@ def test_exact_loop_closes_with_shapes_on(tmp_path):
 
 def test_thread_count_and_frame_range_change_no_byte_with_shapes_on(tmp_path):
     look = load_look(write_look(tmp_path, SHAPED_PLUME))
-    old = numba.get_num_threads()
-    try:
-        numba.set_num_threads(1)
-        one = digests(quiet_render(look, tmp_path / "one").out_dir)
-        numba.set_num_threads(numba.config.NUMBA_NUM_THREADS)
-        many = digests(quiet_render(look, tmp_path / "many").out_dir)
-    finally:
-        numba.set_num_threads(old)
+    one, many = thread_digests(look, tmp_path)
     assert one == many
     part = digests(quiet_render(look, tmp_path / "part", frames=range(5, 8)).out_dir)
     assert part == {k: many[k] for k in part}

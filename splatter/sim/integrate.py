@@ -36,7 +36,7 @@ from splatter.sim.forces import (
 )
 from splatter.sim.obstacles import ObstacleTables, _collide
 from splatter.sim.shaping import _advance_one, _check_deform
-from splatter.sim.swirl import BLOCK, _swirl_block, _swirl_grad_block
+from splatter.sim.swirl import BLOCK, _swirl_block, _swirl_grad_block, load_points
 
 
 @numba.njit(**KERNEL)
@@ -92,10 +92,8 @@ def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, li
     wk1 = wind1[0]
     wu1 = wind1[1:]
     half = 0.5 * h
+    load_points(pos, i0, n, buf)
     for j in range(n):
-        buf[0, j] = pos[i0 + j, 0]
-        buf[1, j] = pos[i0 + j, 1]
-        buf[2, j] = pos[i0 + j, 2]
         buf[23, j] = sigma[i0 + j] if shaping else 0.0
     _air_block(buf, 0, 3, n, sq, so, sb, ph0, vortex, skt, 14 if shaping and method != 2 else 0)
     if method == 2:
@@ -174,10 +172,7 @@ def _air_velocity(pos, sq, so, sb, cs, vortex, out):
         i0 = blk * BLOCK
         n = min(pos.shape[0], i0 + BLOCK) - i0
         buf = np.empty((14, BLOCK))
-        for j in range(n):
-            buf[0, j] = pos[i0 + j, 0]
-            buf[1, j] = pos[i0 + j, 1]
-            buf[2, j] = pos[i0 + j, 2]
+        load_points(pos, i0, n, buf)
         _air_block(buf, 0, 3, n, sq, so, sb, cs, vortex, sq, 0)
         for j in range(n):
             out[i0 + j, 0] = buf[3, j]
@@ -193,10 +188,8 @@ def _air_gradient(pos, sq, so, sb, skt, cs, vortex, sigma, out):
         i0 = blk * BLOCK
         n = min(pos.shape[0], i0 + BLOCK) - i0
         buf = np.empty((25, BLOCK))
+        load_points(pos, i0, n, buf)
         for j in range(n):
-            buf[0, j] = pos[i0 + j, 0]
-            buf[1, j] = pos[i0 + j, 1]
-            buf[2, j] = pos[i0 + j, 2]
             buf[23, j] = sigma[i0 + j]
         _air_block(buf, 0, 3, n, sq, so, sb, cs, vortex, skt, 14)
         for j in range(n):

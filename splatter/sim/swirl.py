@@ -323,6 +323,15 @@ def _velocity_octave(n, c, s, cp, sp, b0, b1, b2, ux, uy, uz, double):
             c[i] = c2
 
 
+@numba.njit(inline="always", **KERNEL)
+def load_points(pos, i0, n, buf):
+    """Copy points ``i0 .. i0+n-1`` of ``pos`` ((N, 3)) into rows 0-2 of a block buffer."""
+    for j in range(n):
+        buf[0, j] = pos[i0 + j, 0]
+        buf[1, j] = pos[i0 + j, 1]
+        buf[2, j] = pos[i0 + j, 2]
+
+
 @numba.njit(**PARALLEL)
 def _swirl_velocity(pos, q, octaves, b, cs, out):
     nblocks = (pos.shape[0] + BLOCK - 1) // BLOCK
@@ -330,10 +339,7 @@ def _swirl_velocity(pos, q, octaves, b, cs, out):
         i0 = blk * BLOCK
         n = min(pos.shape[0], i0 + BLOCK) - i0
         buf = np.zeros((8, BLOCK))
-        for j in range(n):
-            buf[0, j] = pos[i0 + j, 0]
-            buf[1, j] = pos[i0 + j, 1]
-            buf[2, j] = pos[i0 + j, 2]
+        load_points(pos, i0, n, buf)
         _swirl_block(buf[0], buf[1], buf[2], n, q, octaves, b, cs, buf[3], buf[4], buf[5], buf[6], buf[7])
         for j in range(n):
             out[i0 + j, 0] = buf[3, j]
