@@ -27,13 +27,7 @@ from splatter.sim.plan import has_auto_octaves, with_octaves
 from splatter.view.camera import Camera
 from splatter.view.framing import border_alpha_share, fit_camera, max_border_alpha
 from splatter.view.light import light_puffs
-from splatter.view.splats import (
-    effective_opacity,
-    feature_layout,
-    make_splats,
-    split_layers,
-    thin_stretched,
-)
+from splatter.view.splats import feature_layout, make_splats, seen_opacity, split_layers
 
 __all__ = ["render", "RenderResult", "make_camera", "plan_and_camera", "look_plan", "pixel_size", "output_dir",
            "frame_images"]
@@ -122,15 +116,10 @@ def make_camera(look: LookSpec, plan: Optional[SimPlan] = None, frames: Optional
     if frames is None:
         frames = range(look.clip.frames + _crossfade_frames(look))
     blend = look.shading.blend
-
-    def seen(state):
-        # Peak opacity as composited: stretched puffs thin as they do in make_splats
-        # (the fit keeps the view direction, so the camera's axes are already final).
-        op = effective_opacity(state.opacity, state.density, blend)
-        return op if getattr(state, "deform", None) is None else thin_stretched(op, state, cam)
-
     sample = max(1, int(plan.steady_state_puffs // FIT_PUFFS))
-    return fit_camera(cam, simulate(look, plan, frames=frames, sample=sample), margin=c.margin, opacity_of=seen)
+    # The fit keeps the view direction, so the camera's axes (which thinning uses) are already final.
+    return fit_camera(cam, simulate(look, plan, frames=frames, sample=sample), margin=c.margin,
+                      opacity_of=lambda state: seen_opacity(state, blend, cam))
 
 
 def pixel_size(camera: Camera) -> float:
@@ -166,19 +155,16 @@ def plan_and_camera(look: LookSpec) -> "tuple[SimPlan, Camera]":
     plan : SimPlan
     camera : Camera
     """
-    if has_auto_octaves(look):
-        # Octaves from a framing with few of them; then the framing of the flow
-        # that is rendered (the finest eddies carry smoke a little further).
-        plan = plan_simulation(look, pixel_size=pixel_size(make_camera(look)))
-        return plan, make_camera(look, plan)
-    plan = plan_simulation(look)
+    # With "auto" octaves the camera is fitted again on the flow that is rendered
+    # (the finest eddies carry smoke a little further than the first framing's).
+    plan = look_plan(look)
     return plan, make_camera(look, plan)
 
 
 def look_plan(look: LookSpec) -> SimPlan:
-    """The look's simulation plan alone, "auto" octaves resolved (a fit camera is fitted only when needed)."""
+    """The look's simulation plan alone, "auto" octaves resolved at a framing with few of them."""
     if has_auto_octaves(look):
-        return plan_and_camera(look)[0]
+        return plan_simulation(look, pixel_size=pixel_size(make_camera(look)))
     return plan_simulation(look)
 
 

@@ -80,6 +80,30 @@ def effective_opacity(opacity, density, blend: str):
     return 1.0 - np.power(1.0 - np.minimum(opacity, MAX_OPACITY), np.asarray(density, dtype=np.float64))
 
 
+def seen_opacity(state, blend: str, camera: Camera) -> np.ndarray:
+    """Each puff's peak opacity as composited: the blend's density rule, then thinning.
+
+    The one rule behind the splats, ``camera.fit`` and ``check``'s border
+    warnings, so all three see the same smoke.
+
+    Parameters
+    ----------
+    state : FrameState-like
+        ``opacity``, ``density`` and, for thinning, ``size``, ``aspect``,
+        ``quat``, ``deform`` (``None`` for rigid puffs).
+    blend : {"over", "add", "absorb"}
+    camera : Camera
+
+    Returns
+    -------
+    (M,) float64 ndarray
+    """
+    opac = effective_opacity(state.opacity, state.density, blend)
+    if getattr(state, "deform", None) is not None:
+        opac = thin_stretched(opac, state, camera)
+    return opac
+
+
 def thin_stretched(opacity, state, camera: Camera) -> np.ndarray:
     """Peak opacity of puffs the flow has stretched across the view, their smoke kept.
 
@@ -167,9 +191,7 @@ def make_splats(
     screen = project_puffs(camera, state.pos, state.size, state.aspect, state.quat, state.vel, state.stretch,
                            state.deform)
     keep = np.asarray(screen.visible, dtype=bool)
-    opac = effective_opacity(state.opacity, state.density, blend)
-    if getattr(state, "deform", None) is not None:
-        opac = thin_stretched(opac, state, camera)
+    opac = seen_opacity(state, blend, camera)
     keep &= opac > 0.0
     idx = np.nonzero(keep)[0]
     if idx.size == 0:
