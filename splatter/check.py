@@ -10,7 +10,7 @@ from splatter.render import output_dir, pixel_size, plan_and_camera
 from splatter.sim.driver import simulate
 from splatter.view.camera import project_puffs
 from splatter.view.framing import cut_by_border
-from splatter.view.splats import effective_opacity
+from splatter.view.splats import seen_opacity
 
 __all__ = ["check_look", "border_report"]
 
@@ -29,7 +29,7 @@ def border_report(look: LookSpec, camera, plan, frames) -> List[str]:
             continue
         s = project_puffs(camera, state.pos, state.size, state.aspect, state.quat, state.vel, state.stretch,
                           state.deform)
-        op = effective_opacity(state.opacity, state.density, look.shading.blend)
+        op = seen_opacity(state, look.shading.blend, camera)
         cut = cut_by_border(s, op, w, h)
         if cut.any():
             hits += 1
