@@ -20,6 +20,7 @@ from typing import Dict, List
 import numpy as np
 
 from splatter.deliver.exr import rgba_channels, write_exr
+from splatter.deliver.map_frames import write_map_frames
 from splatter.deliver.map_sheets import (
     write_depth_sheet,
     write_lightdirs_map,
@@ -45,11 +46,18 @@ from splatter.deliver.sheet import (
 )
 from splatter.look.records import LookSpec
 
-__all__ = ["OutputSink"]
+__all__ = ["OutputSink", "NORMAL_ATTRIBUTE"]
 
 _PREVIEW_MAX = 512  # GIF and MP4 frames fit this many pixels on a side
 _CONTACT_MAX = 256  # contact-sheet thumbnails fit this
 _MAX_PENDING = 3
+
+NORMAL_ATTRIBUTE = "splatter.normal_convention"
+"""EXR header attribute of frames with normal layers: ``"+y up"`` or ``"+y down"``, what ``normal.y`` holds."""
+
+
+def _convention(out) -> str:
+    return "+y down" if out.normal_y == "down" else "+y up"
 
 
 class OutputSink:
@@ -106,8 +114,9 @@ class OutputSink:
                     self._sheet = empty_codes(self._layout, out.png_bits)
                 else:
                     self._sheet = empty_sheet(self._layout, 4)
-            if layers:
-                self._sheet_alpha.append(rgba[..., 3])
+        if layers and (out.sheet is not None or out.map_frames):
+            # Map sheets and map frames are encoded with clip-wide ranges, at the end.
+            self._sheet_alpha.append(rgba[..., 3])
             for k, v in layers.items():
                 self._sheet_layers.setdefault(k, []).append(v)
         while len(self._pending) >= _MAX_PENDING:
@@ -145,11 +154,13 @@ class OutputSink:
         for ext in out.frames:
             path = os.path.join(self.out_dir, frame_file(name, frame, ext))
             if ext == "png":
-                write_png(path, rgba, bits=out.png_bits, alpha=out.png_alpha, exposure=self.look.shading.exposure)
+                write_png(path, rgba, bits=out.png_bits, alpha=out.png_alpha, exposure=self.look.shading.exposure,
+                          dilate=out.dilate)
             else:
                 channels = rgba_channels(rgba)
                 channels.update(layers)
-                write_exr(path, channels, pixel_type=out.exr_type)
+                attrs = {NORMAL_ATTRIBUTE: _convention(out)} if "normal.x" in layers else None
+                write_exr(path, channels, pixel_type=out.exr_type, attributes=attrs)
             written.append(path)
         with self._lock:
             self.files.extend(written)
@@ -165,6 +176,10 @@ class OutputSink:
         start = time.perf_counter()
         if self._sheet is not None:
             self._write_sheets()
+        if self.look.output.map_frames and self._sheet_layers:
+            out = self.look.output
+            self.files += write_map_frames(self.out_dir, self.look.name, self._frame_numbers, self._sheet_layers,
+                                           self._sheet_alpha, png_bits=out.png_bits, y_down=out.normal_y == "down")
         if self._frame_numbers and self.look.output.preview:
             self._write_previews()
         self.write_seconds += time.perf_counter() - start
@@ -193,7 +208,7 @@ class OutputSink:
         if "normal.x" in layers:
             maps["normal"] = write_normal_sheet(d, name, layout, layers, alpha, common,
                                                 y_down=look.output.normal_y == "down")
-        if "lightdirs.right" in layers:
+        if "lightdirs_pos.x" in layers:
             maps["lightdirs"] = write_lightdirs_map(d, name, layout, layers, alpha, png_bits=look.output.png_bits)
         for entry in maps.values():
             for f in entry.get("files", [entry.get("file")]):
