@@ -146,7 +146,8 @@ def test_normal_y_down_holds_everywhere_and_metadata_says_so(tmp_path):
 def test_map_frames_are_written_per_frame_and_read_back(tmp_path):
     look, d = render_look(tmp_path, MOVING_PUFF, ['output.maps=["motion", "depth", "normal", "lightdirs"]',
                                                   "output.map_frames=true", "output.frames=['png', 'exr']",
-                                                  "shading.light={direction=[1, 0, 0]}"], frames=(0, 1, 2))
+                                                  "shading.light={direction=[1, 0, 0]}",
+                                                  'force.0={kind="drag", rate=3}'], frames=(0, 1, 2))
     names = sorted(p.name for p in d.iterdir())
     for f in range(3):
         for part in ("motion", "depth", "normal", "lightdirs_pos", "lightdirs_neg"):
@@ -161,7 +162,7 @@ def test_map_frames_are_written_per_frame_and_read_back(tmp_path):
     assert (2 * px[r, c, 0] / 255 - 1) * s == pytest.approx(exr["motion.x"][r, c] / 64, abs=2 * s / 255)
     assert (2 * px[r, c, 1] / 255 - 1) * s == pytest.approx(exr["motion.y"][r, c] / 64, abs=2 * s / 255)
     assert np.all(px[..., 2] == 0)
-    # One scale for the clip: every frame states the same numbers.
+    # One scale for the clip (drag slows the puff, so frames differ): every frame states the same numbers.
     assert {json.loads(pillow(d / f"lone_puff.motion.{f:04d}.png")[2]["splatter.map"])["scale"]
             for f in range(3)} == {s}
     for sign, axes in (("pos", "xyz"), ("neg", "xyz")):
@@ -170,6 +171,12 @@ def test_map_frames_are_written_per_frame_and_read_back(tmp_path):
         for i, axis in enumerate(axes):
             want = exr[f"lightdirs_{sign}.{axis}"][r, c]
             assert px[r, c, i] / 255 == pytest.approx(want, abs=1 / 255)
+        # Under alpha 0 the light of the nearest covered texel (scipy's exact
+        # distance transform names it), so filtering never darkens the rim.
+        empty = exr["A"] == 0
+        _, (iy, ix) = ndimage.distance_transform_edt(empty, return_indices=True)
+        assert empty.any()
+        assert np.abs(px[empty].astype(int) - px[iy, ix][empty].astype(int)).max() <= 2
 
 
 # ---------------------------------------------------------------- dilation
@@ -249,6 +256,11 @@ def test_relighting_from_each_side_matches_a_direct_render(tmp_path):
     neg = read_png(neg_file)[0][:64, :64].astype(float) / 65535
     # Pillow (8 bits of a 16-bit RGB file) sees the same channels.
     assert np.abs(pillow(pos_file)[1][:64, :64] / 255.0 - pos).max() <= 1 / 255 + 1e-9
+    # Under alpha 0 the sheets carry the nearest covered texel's light (dilated like colour).
+    alpha = read_png(d / "lit_ball.sheet.png")[0][:64, :64, 3]
+    empty = alpha == 0
+    _, (iy, ix) = ndimage.distance_transform_edt(empty, return_indices=True)
+    assert empty.any() and np.abs(pos[empty] - pos[iy, ix][empty]).max() < 0.01
     c = np.array([0.8, 0.8, 0.8])
     colour = np.array([1.0, 0.9, 0.7])
     means = {}
