@@ -21,6 +21,7 @@ from scipy import ndimage
 
 from splatter.core.colorspace import srgb_decode
 from splatter.deliver.exr import read_exr
+from splatter.deliver.names import FRAME_FILE, planned_files
 from splatter.deliver.png import read_png
 from splatter.look.load import load_look
 
@@ -149,9 +150,11 @@ def test_map_frames_are_written_per_frame_and_read_back(tmp_path):
                                                   "shading.light={direction=[1, 0, 0]}",
                                                   'force.0={kind="drag", rate=3}'], frames=(0, 1, 2))
     names = sorted(p.name for p in d.iterdir())
+    assert names == sorted(Path(f).name for f in planned_files(look, str(d), range(3)))  # what check lists
     for f in range(3):
         for part in ("motion", "depth", "normal", "lightdirs_pos", "lightdirs_neg"):
             assert f"lone_puff.{part}.{f:04d}.png" in names
+            assert FRAME_FILE.match(f"lone_puff.{part}.{f:04d}.png") is None  # pack never takes them for frames
     exr = read_exr(d / "lone_puff.0001.exr")
     r, c = np.unravel_index(np.argmax(exr["A"]), exr["A"].shape)
     mode, px, info = pillow(d / "lone_puff.motion.0001.png")
@@ -261,16 +264,21 @@ def test_relighting_from_each_side_matches_a_direct_render(tmp_path):
     empty = alpha == 0
     _, (iy, ix) = ndimage.distance_transform_edt(empty, return_indices=True)
     assert empty.any() and np.abs(pos[empty] - pos[iy, ix][empty]).max() < 0.01
-    c = np.array([0.8, 0.8, 0.8])
+    # The unlit colour an engine multiplies: the same look without its light.
+    unlit_text = LIT_BALL.split("[shading]")[0] + '[output]\nframes = ["exr"]\nexr_type = "float"\n'
+    _, du = render_look(tmp_path, unlit_text, sub="unlit")
+    unlit = read_exr(du / "lit_ball.0000.exr")
+    unlit_rgb = np.stack([unlit[k] for k in "RGB"], -1)
+    assert np.abs(unlit_rgb - 0.8 * unlit["A"][..., None]).max() < 1e-5
     colour = np.array([1.0, 0.9, 0.7])
     means = {}
     for side, direction in AXES.items():
         _, dd = render_look(tmp_path, LIT_BALL, base + [f"shading.light.direction={direction}"],
                             sub=f"direct{side[0] == '+'}{side[1]}")
         direct = read_exr(dd / "lit_ball.0000.exr")
-        a = direct["A"][..., None]
+        np.testing.assert_array_equal(direct["A"], unlit["A"])
         L = relight(pos, neg, direction)[..., None]
-        relit = a * c * (0.25 * colour + 0.75 * colour * L)
+        relit = unlit_rgb * (0.25 * colour + 0.75 * colour * L)
         got = np.stack([direct[k] for k in "RGB"], -1)
         np.testing.assert_allclose(relit, got, atol=3e-4, err_msg=side)
         means[side] = float(got[..., 0].sum())
@@ -290,3 +298,32 @@ def test_relighting_weights_sum_to_one_for_any_direction(tmp_path):
     direct = read_exr(dd / "lit_ball.0000.exr")
     relit = direct["A"] * 0.8 * (0.25 + 0.75 * relight(pos, neg, direction))
     np.testing.assert_allclose(relit, direct["R"], atol=2e-3)
+
+
+# ---------------------------------------------------------------- the docs say what the files hold
+
+
+def test_sheet_metadata_doc_states_what_the_files_hold(tmp_path):
+    # Every map entry of a render with all maps: the doc quotes its channel
+    # lists, encodings, units and relighting formula character for character.
+    doc = (Path(__file__).resolve().parents[1] / "docs" / "sheet-metadata.md").read_text()
+    ref = (Path(__file__).resolve().parents[1] / "docs" / "look-reference.md").read_text()
+    _, d = render_look(tmp_path, MOVING_PUFF, ['output.maps=["motion", "depth", "normal", "lightdirs"]',
+                                               "output.map_frames=true", "output.sheet={padding=0}"], frames=(0, 1))
+    maps = json.loads((d / "lone_puff.sheet.json").read_text())["maps"]
+    for key, entry in maps.items():
+        assert f"| `{key}` |" in doc
+        for field in ("channels", "encoding", "units", "convention", "axes"):
+            if field in entry:
+                assert f"`{json.dumps(entry[field])}`" in doc, (key, field)
+        for f in entry.get("files", [entry.get("file")]):
+            assert f.replace("lone_puff", "{name}") in doc, f
+    for line in maps["lightdirs"]["relight"].split("; "):
+        assert line in doc
+    for part in ("motion", "depth", "normal", "lightdirs_pos", "lightdirs_neg"):
+        mode, _, info = pillow(d / f"lone_puff.{part}.0001.png")
+        entry = json.loads(info["splatter.map"])
+        assert entry["map"] == part and json.dumps(entry["channels"]) in doc
+        assert mode == ("L" if part == "depth" else "RGB")
+    assert "`{dir}/{name}.{motion,depth,normal,lightdirs_pos,lightdirs_neg}.{frame:04d}.png`" in ref
+    assert "`lightdirs_pos.x/y/z` and `lightdirs_neg.x/y/z`" in ref and "`splatter.normal_convention`" in ref
