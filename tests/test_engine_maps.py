@@ -327,3 +327,14 @@ def test_sheet_metadata_doc_states_what_the_files_hold(tmp_path):
         assert mode == ("L" if part == "depth" else "RGB")
     assert "`{dir}/{name}.{motion,depth,normal,lightdirs_pos,lightdirs_neg}.{frame:04d}.png`" in ref
     assert "`lightdirs_pos.x/y/z` and `lightdirs_neg.x/y/z`" in ref and "`splatter.normal_convention`" in ref
+
+
+def test_check_warns_only_when_maps_have_nowhere_to_go(tmp_path):
+    from splatter.check import check_look
+
+    text = LONE_PUFF.replace('frames = ["exr"]', 'frames = ["png"]')
+    look = load_look(write_look(tmp_path, text), overrides=['output.maps=["depth"]'])
+    assert "warning   output.maps" in check_look(look)
+    look = load_look(write_look(tmp_path, text), overrides=['output.maps=["depth"]', "output.map_frames=true"])
+    report = check_look(look)
+    assert "warning   output.maps" not in report and "lone_puff.depth.0002.png" in report

@@ -1,4 +1,4 @@
-"""Where finished frames go: frame files, sprite sheets, previews, map sheets.
+"""Where finished frames go: frame files, sprite sheets, previews, map sheets, map frames.
 
 :class:`OutputSink` receives each composited frame in order and writes its
 frame files on a background thread (so encoding and writing overlap the
@@ -76,8 +76,9 @@ class OutputSink:
     Work that needs only one frame happens on the writer thread as frames
     arrive, overlapping the compositing of the next: frame files, the frame's
     sheet cell (PNG sheets are encoded cell by cell, so memory is one 8/16-bit
-    sheet, not every frame), and the preview frames over the checker. Map sheets keep their layers and the
-    frames' alpha until the end, since their encodings use clip-wide ranges.
+    sheet, not every frame), and the preview frames over the checker. Map sheets and
+    per-frame map PNGs (``output.map_frames``) keep their layers and the frames'
+    alpha until the end, since their encodings use clip-wide ranges.
     """
 
     def __init__(self, look: LookSpec, out_dir: str, n_frames: int):
