@@ -150,7 +150,7 @@ def fade_to_neutral(value, alpha, neutral):
 def _round_up_2sig(x: float) -> float:
     """Round up to two significant digits, so the stored scale reads cleanly."""
     e = math.floor(math.log10(x)) - 1
-    return math.ceil(x / 10.0**e) * 10.0**e
+    return round(math.ceil(x / 10.0**e) * 10.0**e, -e)  # round(): 0.013, not 0.013000000000000001
 
 
 def motion_scale(motions, alphas):
