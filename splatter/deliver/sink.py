@@ -20,7 +20,7 @@ from typing import Dict, List
 import numpy as np
 
 from splatter.deliver.exr import rgba_channels, write_exr
-from splatter.deliver.map_frames import write_map_frames
+from splatter.deliver.map_frames import is_ranged, write_map_frame, write_ranged_map_frames
 from splatter.deliver.map_sheets import (
     write_depth_sheet,
     write_lightdirs_map,
@@ -76,9 +76,11 @@ class OutputSink:
     Work that needs only one frame happens on the writer thread as frames
     arrive, overlapping the compositing of the next: frame files, the frame's
     sheet cell (PNG sheets are encoded cell by cell, so memory is one 8/16-bit
-    sheet, not every frame), and the preview frames over the checker. Map sheets and
-    per-frame map PNGs (``output.map_frames``) keep their layers and the frames'
-    alpha until the end, since their encodings use clip-wide ranges.
+    sheet, not every frame), the preview frames over the checker, and the normal and
+    light-direction map PNGs of ``output.map_frames``. Map sheets, and the motion
+    and depth map PNGs, keep their layers and the frames' alpha until the end,
+    since their encodings use clip-wide ranges (without a sheet only motion and
+    depth layers are kept).
     """
 
     def __init__(self, look: LookSpec, out_dir: str, n_frames: int):
@@ -115,10 +117,12 @@ class OutputSink:
                     self._sheet = empty_codes(self._layout, out.png_bits)
                 else:
                     self._sheet = empty_sheet(self._layout, 4)
-        if layers and (out.sheet is not None or out.map_frames):
-            # Map sheets and map frames are encoded with clip-wide ranges, at the end.
+        # Map sheets, and the motion and depth map frames, are encoded with clip-wide
+        # ranges at the end; without a sheet only those layers are kept.
+        keep = {k: v for k, v in layers.items() if out.sheet is not None or (out.map_frames and is_ranged(k))}
+        if keep:
             self._sheet_alpha.append(rgba[..., 3])
-            for k, v in layers.items():
+            for k, v in keep.items():
                 self._sheet_layers.setdefault(k, []).append(v)
         while len(self._pending) >= _MAX_PENDING:
             self._pending.pop(0).result()
@@ -130,6 +134,11 @@ class OutputSink:
         out = self.look.output
         if out.frames:
             self._write_frame(frame, rgba, layers)
+        if out.map_frames and layers:
+            files = write_map_frame(self.out_dir, self.look.name, frame, layers, rgba[..., 3], png_bits=out.png_bits,
+                                    y_down=out.normal_y == "down")
+            with self._lock:
+                self.files.extend(files)
         if self._sheet is not None:
             if out.sheet.format == "png":
                 put_cell_codes(self._sheet, self._layout, index, rgba, alpha=out.png_alpha, png_bits=out.png_bits,
@@ -178,9 +187,9 @@ class OutputSink:
         if self._sheet is not None:
             self._write_sheets()
         if self.look.output.map_frames and self._sheet_layers:
-            out = self.look.output
-            self.files += write_map_frames(self.out_dir, self.look.name, self._frame_numbers, self._sheet_layers,
-                                           self._sheet_alpha, png_bits=out.png_bits, y_down=out.normal_y == "down")
+            self.files += write_ranged_map_frames(self.out_dir, self.look.name, self._frame_numbers,
+                                                  self._sheet_layers, self._sheet_alpha,
+                                                  png_bits=self.look.output.png_bits)
         if self._frame_numbers and self.look.output.preview:
             self._write_previews()
         self.write_seconds += time.perf_counter() - start
