@@ -74,9 +74,10 @@ def check_look(look: LookSpec) -> str:
     lines.append(f"writes    {len(files)} files to {folder}/")
     shown = files if len(files) <= 8 else files[:3] + ["..."] + files[-4:]
     lines += [f"          {f}" for f in shown]
-    if look.output.maps and "exr" not in look.output.frames and look.output.sheet is None:
-        lines.append("warning   output.maps: maps are written as EXR layers and map sheets; "
-                     "ask for exr frames or a sheet to get them")
+    out = look.output
+    if out.maps and "exr" not in out.frames and out.sheet is None and not out.map_frames:
+        lines.append("warning   output.maps: maps are written as EXR layers, map sheets and map frames; "
+                     "ask for exr frames, a sheet or map_frames = true to get them")
     for note in plan.notes:
         lines.append(f"note      {note}")
     for warn in border_report(look, camera, plan, range(clip.frames)):

@@ -319,7 +319,7 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
                 image = w * late + (np.float32(1.0) - w) * image
             rgba, layers = split_layers(image, channels)
             if "normal" in maps:
-                layers.update(normal_map(rgba[..., 3], sigma))
+                layers.update(normal_map(rgba[..., 3], sigma, y_down=look.output.normal_y == "down"))
             border = max_border_alpha(rgba[..., 3])
             if border > worst[0]:
                 worst = (border, frame, border_alpha_share(rgba[..., 3]))

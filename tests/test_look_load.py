@@ -35,6 +35,7 @@ def test_defaults_follow_the_spec(tmp_path):
     assert src.rate == 20.0 and src.life == (2.0, 3.0) and src.spread == 10.0
     assert src.opacity == ((0.0, 0.0), (0.1, 0.5), (1.0, 0.0))
     assert look.output.frames == ("png",) and look.output.png_alpha == "straight"
+    assert look.output.dilate is True and look.output.map_frames is False  # extensions: docs/look-reference.md
 
 
 def test_default_colour_is_the_spec_hex_decoded_to_linear(tmp_path):
@@ -137,6 +138,8 @@ BAD = [
     ('[output]\ndir = "renders/{nmae}"\n' + MINIMAL, [], "output.dir", "{name}"),
     ("[output]\nsheet = { columns = 2, rows = 2 }\n" + MINIMAL, [], "output.sheet.rows", "columns x rows"),
     ("[camera]\neye = [0, 0, 0]\n" + MINIMAL, [], "camera.target", "different"),
+    ('[output]\nmap_frames = "yes"\n' + MINIMAL, [], "output.map_frames", "true or false"),
+    (MINIMAL, ["output.dilate=1"], "output.dilate", "true or false"),
     (MINIMAL, ["clip.frames=0"], "clip.frames", "integer"),
     (MINIMAL, ["source.5.rate=3"], "source.5", "index"),
     (MINIMAL, ["nonsense"], "nonsense", "KEY=VALUE"),

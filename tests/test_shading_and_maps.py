@@ -94,6 +94,11 @@ def test_normal_map_y_down_flips_green(tmp_path):
     assert codes[24, 32, 1] < 100  # the top edge leans up, stored flipped
 
 
+# Light-direction layers: light from the camera's +x (right), +y (up), +z (toward the viewer) and back.
+LAYER = {"right": "lightdirs_pos.x", "top": "lightdirs_pos.y", "front": "lightdirs_pos.z",
+         "left": "lightdirs_neg.x", "bottom": "lightdirs_neg.y", "back": "lightdirs_neg.z"}
+
+
 def test_each_light_direction_map_is_brightest_on_its_own_side(tmp_path):
     _, d = render_one(tmp_path, LIT_BALL, ['output.maps=["lightdirs"]'])
     L = read_exr(d / "lit_ball.0000.exr")
@@ -101,7 +106,7 @@ def test_each_light_direction_map_is_brightest_on_its_own_side(tmp_path):
     w = a.shape[0] // 2
 
     def mean(name, sl):
-        return (L[f"lightdirs.{name}"][sl] * a[sl]).sum() / a[sl].sum()
+        return (L[LAYER[name]][sl] * a[sl]).sum() / a[sl].sum()
 
     left_half, right_half = np.s_[:, :w], np.s_[:, w:]
     top_half, bottom_half = np.s_[:w, :], np.s_[w:, :]

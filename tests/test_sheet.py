@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 
 from splatter.deliver.exr import read_exr
-from splatter.deliver.map_sheets import write_lightdirs_sheets, write_map_sheet
+from splatter.deliver.map_sheets import write_lightdir_sheets, write_map_sheet
 from splatter.deliver.png import read_png, write_png
 from splatter.deliver.sheet import assemble_sheet, sheet_layout, write_sheet
 
@@ -155,7 +155,7 @@ def test_metadata_json(tmp_path):
                              encoding="0.5+0.5*clamp(d/s,-1,1)", scale=0.05)
     normal = write_map_sheet(tmp_path, "chimney", "normal", [np.full((16, 16, 3), 0.5, np.float32)] * 6, lay,
                              encoding="n*0.5+0.5", convention="+y up")
-    light = write_lightdirs_sheets(tmp_path, "chimney", [np.zeros((16, 16, 3), np.float32)] * 6,
+    light = write_lightdir_sheets(tmp_path, "chimney", [np.zeros((16, 16, 3), np.float32)] * 6,
                                    [np.ones((16, 16, 3), np.float32)] * 6, lay)
     paths = write_sheet(tmp_path, "chimney", frames, lay, fps=25, loop="crossfade",
                         maps={"motion": motion, "normal": normal, "lightdirs": light})

@@ -1,5 +1,10 @@
 """Data-map encodings: motion, depth and normal values to [0, 1] texture values.
 
+The same functions encode map sheets and per-frame map PNGs, so both hold
+the same values for the same texel. The clip-wide ranges (motion scale,
+depth near and far) are measured on texels whose alpha exceeds
+:data:`MAP_COVERED`.
+
 Examples
 --------
 >>> encode_signed([0.0, 0.05, -0.2], 0.1).tolist()
@@ -10,9 +15,33 @@ Examples
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
-__all__ = ["encode_signed", "encode_depth", "encode_normal"]
+from splatter.core.thresholds import VISIBLE_ALPHA
+
+__all__ = ["encode_signed", "encode_depth", "encode_normal", "fade_to_neutral", "motion_scale", "depth_range",
+           "encode_motion_rgb", "encode_depth_grey", "MAP_COVERED", "MOTION_ENCODING", "LIGHT_RELIGHT"]
+
+MAP_COVERED = VISIBLE_ALPHA
+"""Alpha above which a texel counts when a map's range (motion scale, depth near and far) is measured."""
+
+MOTION_ENCODING = "0.5+0.5*clamp(d/s,-1,1)"
+"""How a motion texel ``c`` in [0, 1] reads back: ``d = (2c - 1) s``."""
+
+LIGHT_RELIGHT = ("L = x*x*(x>=0 ? pos.r : neg.r) + y*y*(y>=0 ? pos.g : neg.g) + z*z*(z>=0 ? pos.b : neg.b); "
+                 "colour = base * intensity * (ambient * ambient_colour + (1 - ambient) * light_colour * L)")
+"""The relighting formula stored with the light-direction maps (see ``docs/sheet-metadata.md``).
+
+``(x, y, z)`` is the unit direction from the smoke toward the light in the
+camera's axes (+x right, +y up, +z toward the viewer); ``base`` is the
+unlit colour. For a light along an axis it picks one map exactly; the
+squared components sum to 1, so smoke that no side shadows relights
+uniformly from every direction.
+"""
+
+_MAP_FADE = 1.0 / 32.0  # motion and depth texels fade to neutral below this alpha
 
 
 def encode_signed(x, strength):
@@ -86,3 +115,119 @@ def encode_normal(n, *, y_down=False):
     if y_down:
         n = n * np.array([1.0, -1.0, 1.0])
     return np.clip(n * 0.5 + 0.5, 0.0, 1.0).astype(np.float32)
+
+
+def fade_to_neutral(value, alpha, neutral):
+    """Blend a straight map value toward ``neutral`` where the smoke is nearly transparent.
+
+    A map holds each texel's alpha-weighted mean, which stays at full
+    strength out to a puff's faint 3-sigma rim; fading it below alpha 1/32
+    keeps those rims from showing as hard discs in the map, where nothing
+    can be seen.
+
+    Parameters
+    ----------
+    value : (H, W) or (H, W, C) float ndarray
+    alpha : (H, W) float ndarray
+    neutral : float or (C,) float
+
+    Returns
+    -------
+    float32 ndarray, the shape of ``value``
+
+    Examples
+    --------
+    >>> fade_to_neutral(np.array([1.0, 1.0]), np.array([1.0, 1.0 / 64]), 0.0).tolist()
+    [1.0, 0.5]
+    """
+    value = np.asarray(value, dtype=np.float64)
+    w = np.minimum(1.0, np.asarray(alpha, dtype=np.float64) / _MAP_FADE)
+    if value.ndim == w.ndim + 1:
+        w = w[..., None]
+    return (neutral + (value - neutral) * w).astype(np.float32)
+
+
+def _round_up_2sig(x: float) -> float:
+    """Round up to two significant digits, so the stored scale reads cleanly."""
+    e = math.floor(math.log10(x)) - 1
+    return round(math.ceil(x / 10.0**e) * 10.0**e, -e)  # round(): 0.013, not 0.013000000000000001
+
+
+def motion_scale(motions, alphas):
+    """The clip's largest displacement on covered texels, rounded up to two significant digits.
+
+    Parameters
+    ----------
+    motions : sequence of (H, W, 2) float ndarray
+        Displacement per frame (any units).
+    alphas : sequence of (H, W) float ndarray
+
+    Returns
+    -------
+    float
+        At least 1e-6, so a still clip still has a valid scale.
+
+    Examples
+    --------
+    >>> motion_scale([np.full((1, 1, 2), -0.01234)], [np.ones((1, 1))])
+    0.013
+    """
+    peak = max((float(np.abs(d[a > MAP_COVERED]).max(initial=0.0)) for d, a in zip(motions, alphas)), default=0.0)
+    return _round_up_2sig(max(peak, 1e-6))
+
+
+def depth_range(depths, alphas):
+    """Nearest and farthest covered view depth of the clip (``far > near``).
+
+    Examples
+    --------
+    >>> depth_range([np.array([[3.0, 9.0]])], [np.array([[1.0, 0.0]])])
+    (3.0, 4.0)
+    """
+    zs = [z[a > MAP_COVERED] for z, a in zip(depths, alphas)]
+    near = min((float(z.min()) for z in zs if z.size), default=0.0)
+    far = max((float(z.max()) for z in zs if z.size), default=1.0)
+    return near, (far if far > near else near + 1.0)
+
+
+def encode_motion_rgb(d, alpha, scale):
+    """Motion as an RGB texture: red = x, green = y, blue 0.
+
+    Parameters
+    ----------
+    d : (H, W, 2) float ndarray
+        Displacement per frame, x right and y down.
+    alpha : (H, W) float ndarray
+    scale : float
+        Displacement stored as 1 (see :data:`MOTION_ENCODING`).
+
+    Returns
+    -------
+    (H, W, 3) float32 ndarray
+        ``encode_signed`` of the faded displacement in red and green, 0 in blue.
+
+    Examples
+    --------
+    >>> encode_motion_rgb(np.array([[[0.1, -0.1]]]), np.ones((1, 1)), 0.2)[0, 0].tolist()
+    [0.75, 0.25, 0.0]
+    """
+    d = np.asarray(d)
+    out = np.zeros(d.shape[:2] + (3,), dtype=np.float32)
+    out[..., :2] = encode_signed(fade_to_neutral(d, alpha, 0.0), scale)
+    return out
+
+
+def encode_depth_grey(z, alpha, near, far):
+    """Depth as one grey channel: ``(z - near) / (far - near)``, 1 where there is no smoke.
+
+    Returns
+    -------
+    (H, W, 1) float32 ndarray
+
+    Examples
+    --------
+    >>> encode_depth_grey(np.array([[2.0, 0.0]]), np.array([[1.0, 0.0]]), 1.0, 3.0)[..., 0].tolist()
+    [[0.5, 1.0]]
+    """
+    a = np.asarray(alpha)
+    return fade_to_neutral(np.where(a > 0, encode_depth(z, near, far), 1.0), a, 1.0)[..., None]

@@ -2,54 +2,68 @@
 
 Each map sheet shares the colour sheet's cells. PNG map sheets hold encoded
 values (:mod:`splatter.deliver.map_encode`) with no colour chunks, since they
-are data; EXR map sheets hold raw values in ``map.channel`` layers. Each
+are data, in the channels an engine samples: motion RGB (red x, green y,
+blue 0), depth one grey channel, normals RGB, light directions RGB; EXR map
+sheets hold raw values in ``map.channel`` layers. Each
 writer returns the metadata entry stored under ``"maps"`` in the sheet's
 JSON (see :func:`splatter.deliver.sheet.write_sheet`).
 """
 
 from __future__ import annotations
 
-import math
 import os
 
 import numpy as np
 
 from splatter.core.args import check_choice
 from splatter.core.choices import EXR_TYPES, FRAME_FORMATS, PNG_BITS
-from splatter.core.thresholds import VISIBLE_ALPHA
+from splatter.deliver.dilate import dilate_colour
 from splatter.deliver.display import quantize
 from splatter.deliver.exr import write_exr
-from splatter.deliver.map_encode import encode_depth, encode_normal, encode_signed
+from splatter.deliver.map_encode import (
+    LIGHT_RELIGHT,
+    MAP_COVERED,
+    MOTION_ENCODING,
+    depth_range,
+    encode_depth_grey,
+    encode_motion_rgb,
+    encode_normal,
+    motion_scale,
+)
 from splatter.deliver.names import LIGHTDIR_SHEETS, map_sheet_file
 from splatter.deliver.png import write_png_encoded
 from splatter.deliver.sheet import assemble_sheet
 
-__all__ = ["write_map_sheet", "write_lightdirs_sheets", "write_motion_sheet", "write_depth_sheet",
-           "write_normal_sheet", "write_lightdirs_map", "MAP_COVERED"]
+__all__ = ["write_map_sheet", "write_lightdir_sheets", "write_motion_sheet", "write_depth_sheet",
+           "write_normal_sheet", "write_lightdirs_map", "lightdir_entry", "dilate_under", "MAP_COVERED",
+           "LIGHT_AXES"]
 
-MAP_COVERED = VISIBLE_ALPHA
-"""Alpha above which a texel counts when a map's range (motion scale, depth near and far) is measured."""
-
-_MAP_FADE = 1.0 / 32.0  # map texels fade to neutral below this alpha
+LIGHT_AXES = "+x right, +y up, +z toward the viewer"
+"""The camera axes of the light-direction maps and of the normal map."""
 
 
-def _fade(value, alpha, neutral):
-    """Blend a straight map value toward ``neutral`` where the smoke is nearly transparent.
+def dilate_under(values, alpha):
+    """Fill texels where ``alpha == 0`` with the values of the nearest covered texel.
 
-    A map holds each texel's alpha-weighted mean, which stays at full strength
-    out to a puff's faint 3-sigma rim; fading it below alpha 1/32 keeps those
-    rims from showing as hard discs in the map, where nothing can be seen.
+    Parameters
+    ----------
+    values : (H, W, C) float ndarray
+    alpha : (H, W) float ndarray
+
+    Returns
+    -------
+    (H, W, C) float32 ndarray
+        Covered texels unchanged (see :func:`splatter.deliver.dilate.dilate_colour`).
     """
-    w = np.minimum(1.0, alpha / _MAP_FADE)
-    if value.ndim == 3:
-        w = w[..., None]
-    return (neutral + (value - neutral) * w).astype(np.float32)
+    v = np.asarray(values, dtype=np.float32)
+    both = np.concatenate([v, np.asarray(alpha, dtype=np.float32)[..., None]], axis=-1)
+    return dilate_colour(both)[..., :-1]
 
 
-def _round_up_2sig(x: float) -> float:
-    """Round up to two significant digits, so the stored scale reads cleanly."""
-    e = math.floor(math.log10(x)) - 1
-    return math.ceil(x / 10.0**e) * 10.0**e
+def lightdir_entry(files, format="png"):
+    """The metadata entry of the two light-direction maps (sheets or frames)."""
+    return {"files": list(files), "format": format, "encoding": "linear",
+            "channels": [["+x", "+y", "+z"], ["-x", "-y", "-z"]], "axes": LIGHT_AXES, "relight": LIGHT_RELIGHT}
 
 
 def write_map_sheet(
@@ -66,6 +80,7 @@ def write_map_sheet(
     channels=None,
     file_suffix=None,
     background=None,
+    dilate_alpha=None,
     **meta,
 ):
     """Write one data-map sheet ``{name}.{map_name}.sheet.{png|exr}``; return its metadata entry.
@@ -87,7 +102,7 @@ def write_map_sheet(
     encoding : str
         How to read the values back, stored in the entry (see the module docstring).
     format : {"png", "exr"}
-        PNG maps get no colour chunks (they are data) and are not dilated.
+        PNG maps get no colour chunks (they are data).
     png_bits : {8, 16}
     exr_type : {"half", "float"}
     channels : sequence of str, optional
@@ -97,6 +112,10 @@ def write_map_sheet(
         Replaces ``map_name`` in the file name (``{name}.{file_suffix}.sheet.png``).
     background : sequence of float, optional
         Per-channel value outside the cells' content (see :func:`assemble_sheet`).
+    dilate_alpha : sequence of (H, W) float ndarray, optional
+        The frames' alpha: within each cell's tile (content and gutter),
+        texels where it is 0 take the value of the nearest covered texel, as
+        colour sheets do; for maps that are filtered like colour (light).
     **meta
         Extra entry keys: ``scale`` for motion, ``near``/``far`` for depth,
         ``convention`` for normals ...
@@ -112,7 +131,13 @@ def write_map_sheet(
     check_choice(exr_type, "exr_type", EXR_TYPES)
     if not isinstance(map_name, str) or not map_name or not all(ch.isalnum() or ch == "_" for ch in map_name):
         raise ValueError(f"map_name: expected letters, digits and '_', got {map_name!r}")
+    if dilate_alpha is not None:
+        frames = [np.concatenate([np.asarray(f, np.float32), np.asarray(a, np.float32)[..., None]], axis=-1)
+                  for f, a in zip(frames, dilate_alpha)]
+        background = None if background is None else tuple(background) + (0.0,)
     sheet = assemble_sheet(frames, layout, clip_alpha=False, background=background)
+    if dilate_alpha is not None:
+        sheet = _dilate_tiles(sheet, layout)
     c = sheet.shape[2]
     if not 1 <= c <= 4:
         raise ValueError(f"frames: expected 1 to 4 channels, got {c}")
@@ -130,7 +155,18 @@ def write_map_sheet(
     return entry
 
 
-def write_lightdirs_sheets(dir, name, frames_rlt, frames_bfb, layout, *, png_bits=8):
+def _dilate_tiles(sheet, layout):
+    """Dilate each cell's tile (content and gutter) on its own; drop the alpha channel last."""
+    out = sheet[..., :-1].copy()
+    pad = layout.padding
+    for cell in layout.cells:
+        ys = slice(max(cell.y - pad, 0), cell.y + cell.h + pad)
+        xs = slice(max(cell.x - pad, 0), cell.x + cell.w + pad)
+        out[ys, xs] = dilate_colour(sheet[ys, xs])[..., :-1]
+    return out
+
+
+def write_lightdir_sheets(dir, name, frames_pos, frames_neg, layout, *, png_bits=8, alphas=None):
     """Write the two light-direction sheets and return one metadata entry.
 
     Parameters
@@ -139,77 +175,84 @@ def write_lightdirs_sheets(dir, name, frames_rlt, frames_bfb, layout, *, png_bit
         Existing output folder.
     name : str
         Base name of the files.
-    frames_rlt : iterable of (H, W, 3) float ndarray
-        Per frame, light received from the right, left and top, in [0, 1].
-    frames_bfb : iterable of (H, W, 3) float ndarray
-        Per frame, light received from the bottom, front and back, in [0, 1].
+    frames_pos : iterable of (H, W, 3) float ndarray
+        Per frame, light arriving from the camera's +x (right), +y (up) and
+        +z (toward the viewer) sides, in [0, 1], as red, green and blue.
+    frames_neg : iterable of (H, W, 3) float ndarray
+        The same from -x (left), -y (down) and -z (away from the viewer).
     layout : SheetLayout
     png_bits : {8, 16}
+    alphas : sequence of (H, W) float ndarray, optional
+        The frames' alpha; texels where it is 0 take the nearest covered
+        texel's light (dilation), so filtering never darkens the rim.
 
     Returns
     -------
     dict
-        ``{"files": [A, B], "format": "png", "encoding": "linear",
-        "channels": [["right", "left", "top"], ["bottom", "front", "back"]]}``.
+        :func:`lightdir_entry`: ``files`` ``[pos, neg]``, ``channels``
+        ``[["+x", "+y", "+z"], ["-x", "-y", "-z"]]``, ``axes``, ``relight``.
     """
-    a = write_map_sheet(dir, name, "lightdirs", frames_rlt, layout, encoding="linear", png_bits=png_bits,
-                        channels=("right", "left", "top"), file_suffix=LIGHTDIR_SHEETS[0])
-    b = write_map_sheet(dir, name, "lightdirs", frames_bfb, layout, encoding="linear", png_bits=png_bits,
-                        channels=("bottom", "front", "back"), file_suffix=LIGHTDIR_SHEETS[1])
-    return {"files": [a["file"], b["file"]], "format": "png", "encoding": "linear",
-            "channels": [a["channels"], b["channels"]]}
+    files = []
+    for frames, suffix, chans in ((frames_pos, LIGHTDIR_SHEETS[0], ("px", "py", "pz")),
+                                  (frames_neg, LIGHTDIR_SHEETS[1], ("nx", "ny", "nz"))):
+        e = write_map_sheet(dir, name, suffix, frames, layout, encoding="linear", png_bits=png_bits,
+                            channels=chans, dilate_alpha=alphas)
+        files.append(e["file"])
+    return lightdir_entry(files)
 
 
 def write_motion_sheet(out_dir, name, layout, layers, alpha, w, h, common) -> dict:
-    """Screen motion in sheet UV units per frame; the scale is the clip's largest."""
+    """Screen motion in sheet UV units per frame; the scale is the clip's largest.
+
+    PNG: red = x, green = y, blue 0 (an RGB image, 8 or 16 bit); EXR:
+    layers ``motion.x``, ``motion.y`` holding the displacement itself.
+    """
     # Pixels per frame -> sheet UV units per frame (cells may be resampled).
     sx = layout.cells[0].w / w / layout.width
     sy = layout.cells[0].h / h / layout.height
     d_uv = [np.stack([mx * sx, my * sy], axis=-1) for mx, my in zip(layers["motion.x"], layers["motion.y"])]
-    peak = max((float(np.abs(d[a > MAP_COVERED]).max(initial=0.0)) for d, a in zip(d_uv, alpha)), default=0.0)
-    scale = _round_up_2sig(max(peak, 1e-6))
-    png = common["format"] == "png"
-    if png:
-        frames, enc = [encode_signed(_fade(d, a, 0.0), scale) for d, a in zip(d_uv, alpha)], "0.5+0.5*clamp(d/s,-1,1)"
+    scale = motion_scale(d_uv, alpha)
+    if common["format"] == "png":
+        frames = [encode_motion_rgb(d, a, scale) for d, a in zip(d_uv, alpha)]
+        enc, chans, bg = MOTION_ENCODING, ("x", "y", "0"), (0.5, 0.5, 0.0)
     else:
-        frames, enc = d_uv, "raw"
-    return write_map_sheet(out_dir, name, "motion", frames, layout, encoding=enc,
-                           channels=("x", "y"), background=(0.5, 0.5) if png else (0.0, 0.0), scale=scale,
-                           units="sheet uv per frame", **common)
+        frames, enc, chans, bg = d_uv, "raw", ("x", "y"), (0.0, 0.0)
+    return write_map_sheet(out_dir, name, "motion", frames, layout, encoding=enc, channels=chans, background=bg,
+                           scale=scale, units="sheet uv per frame", **common)
+
 
 def write_depth_sheet(out_dir, name, layout, depths, alpha, common) -> dict:
-    """Alpha-weighted view depth; PNG normalised between the clip's nearest and farthest smoke."""
-    zs = [z[a > MAP_COVERED] for z, a in zip(depths, alpha)]
-    near = min((float(z.min()) for z in zs if z.size), default=0.0)
-    far = max((float(z.max()) for z in zs if z.size), default=1.0)
-    far = far if far > near else near + 1.0
+    """Alpha-weighted view depth, one grey channel; PNG normalised between the clip's nearest and farthest smoke."""
+    near, far = depth_range(depths, alpha)
     png = common["format"] == "png"
     if png:
-        frames = [_fade(np.where(a > 0, encode_depth(z, near, far), 1.0), a, 1.0)[..., None]
-                  for z, a in zip(depths, alpha)]
-        enc = "linear"
+        frames, enc = [encode_depth_grey(z, a, near, far) for z, a in zip(depths, alpha)], "linear"
     else:
         frames, enc = [z[..., None] for z in depths], "raw"
     return write_map_sheet(out_dir, name, "depth", frames, layout, encoding=enc, channels=("z",),
                            background=(1.0,) if png else (far,), near=near, far=far, units="world", **common)
 
+
 def write_normal_sheet(out_dir, name, layout, layers, alpha, common, *, y_down) -> dict:
-    """View-space normals; PNG encoded n * 0.5 + 0.5 in the look's Y convention."""
+    """View-space normals as the layers hold them (already in the look's Y convention).
+
+    PNG: encoded ``n * 0.5 + 0.5``; EXR: the unit vectors. ``y_down`` only
+    names the convention in the entry and sets the flat background.
+    """
     normals = [np.stack([layers[f"normal.{c}"][i] for c in "xyz"], axis=-1) for i in range(len(alpha))]
     png = common["format"] == "png"
     if png:
-        frames, enc = [encode_normal(n, y_down=y_down) for n in normals], "n*0.5+0.5"
+        frames, enc = [encode_normal(n) for n in normals], "n*0.5+0.5"
     else:
         frames, enc = normals, "raw"
     return write_map_sheet(out_dir, name, "normal", frames, layout, encoding=enc,
                            channels=("x", "y", "z"), background=(0.5, 0.5, 1.0) if png else (0.0, 0.0, 1.0),
                            convention="+y down" if y_down else "+y up", **common)
 
-def write_lightdirs_map(out_dir, name, layout, layers, alpha, *, png_bits) -> dict:
-    """Six light-direction factors packed into two RGB PNG sheets."""
-    def pack(sides):
-        return [_fade(np.stack([layers[f"lightdirs.{s}"][i] for s in sides], -1), a, 0.0)
-                for i, a in enumerate(alpha)]
 
-    return write_lightdirs_sheets(out_dir, name, pack(("right", "left", "top")),
-                                  pack(("bottom", "front", "back")), layout, png_bits=png_bits)
+def write_lightdirs_map(out_dir, name, layout, layers, alpha, *, png_bits) -> dict:
+    """The six light-direction factors as two RGB PNG sheets, +x +y +z and -x -y -z."""
+    def pack(sign):
+        return [np.stack([layers[f"lightdirs_{sign}.{c}"][i] for c in "xyz"], -1) for i in range(len(alpha))]
+
+    return write_lightdir_sheets(out_dir, name, pack("pos"), pack("neg"), layout, png_bits=png_bits, alphas=alpha)

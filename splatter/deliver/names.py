@@ -12,6 +12,8 @@ Examples
 ('quay_vent.sheet.exr', 'quay_vent.sheet.json')
 >>> map_sheet_file("quay_vent", "motion", "png")
 'quay_vent.motion.sheet.png'
+>>> map_frame_file("quay_vent", "lightdirs_pos", 7)
+'quay_vent.lightdirs_pos.0007.png'
 >>> FRAME_FILE.match("quay_vent.0007.exr").group("name", "frame", "ext")
 ('quay_vent', '0007', 'exr')
 """
@@ -25,15 +27,16 @@ from typing import Iterable, List
 from splatter.look.records import LookSpec
 
 __all__ = [
-    "FRAME_FILE", "frame_file", "sheet_file", "sheet_meta_file", "map_sheet_file", "LIGHTDIR_SHEETS",
+    "FRAME_FILE", "frame_file", "sheet_file", "sheet_meta_file", "map_sheet_file", "map_frame_file", "map_files",
+    "LIGHTDIR_SHEETS",
     "preview_file", "planned_files",
 ]
 
 FRAME_FILE = re.compile(r"^(?P<name>[^.]+)\.(?P<frame>\d{4,})\.(?P<ext>png|exr)$")
 """A frame file: ``{name}.{frame:04d}.{ext}``, name without dots."""
 
-LIGHTDIR_SHEETS = ("lightdirs_rlt", "lightdirs_bfb")
-"""The two light-direction map sheets, each holding three directions."""
+LIGHTDIR_SHEETS = ("lightdirs_pos", "lightdirs_neg")
+"""The two light-direction maps: light from the camera's +x, +y, +z sides, and from -x, -y, -z."""
 
 
 def frame_file(name: str, frame: int, ext: str) -> str:
@@ -54,6 +57,16 @@ def sheet_meta_file(name: str) -> str:
 def map_sheet_file(name: str, map_name: str, fmt: str) -> str:
     """``{name}.{map_name}.sheet.{fmt}``: a sheet of one extra map."""
     return f"{name}.{map_name}.sheet.{fmt}"
+
+
+def map_frame_file(name: str, map_name: str, frame: int) -> str:
+    """``{name}.{map_name}.{frame:04d}.png``: one frame of one extra map (``output.map_frames``)."""
+    return f"{name}.{map_name}.{frame:04d}.png"
+
+
+def map_files(map_name: str) -> List[str]:
+    """The file-name parts one entry of ``output.maps`` writes: two for ``"lightdirs"``, else itself."""
+    return list(LIGHTDIR_SHEETS) if map_name == "lightdirs" else [map_name]
 
 
 def preview_file(name: str, kind: str) -> str:
@@ -83,10 +96,9 @@ def planned_files(look: LookSpec, out_dir: str, frames: Iterable[int]) -> List[s
         fmt = out.sheet.format
         files += [sheet_file(name, fmt), sheet_meta_file(name)]
         for m in out.maps:
-            if m == "lightdirs":
-                files += [map_sheet_file(name, s, "png") for s in LIGHTDIR_SHEETS]
-            else:
-                files.append(map_sheet_file(name, m, fmt))
+            files += [map_sheet_file(name, part, "png" if m == "lightdirs" else fmt) for part in map_files(m)]
+    if out.map_frames:
+        files += [map_frame_file(name, part, f) for m in out.maps for part in map_files(m) for f in frames]
     if frames:
         files += [preview_file(name, p) for p in out.preview]
     return [os.path.join(out_dir, f) for f in files]

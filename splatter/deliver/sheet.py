@@ -50,21 +50,12 @@ A JSON object with these keys::
                   {file, format, encoding, channels, ...}; all map sheets
                   share the colour sheet's layout and cells
 
-Map entries (from :func:`write_map_sheet`; ``encoding`` says how to read
-the stored values ``c`` in [0, 1] back, extra keys give the constants):
-
-* motion: ``file`` ``{name}.motion.sheet.png``, ``encoding``
-  ``"0.5+0.5*clamp(d/s,-1,1)"``, ``channels`` ``["x", "y"]`` (red, green),
-  ``scale`` ``s``: ``d = (2c - 1) s`` is the displacement to the next frame in
-  sheet UV units (x right, y down). EXR map sheets store ``d`` itself
-  (``encoding`` ``"raw"``).
-* depth: ``encoding`` ``"linear"``, ``near``, ``far``:
-  ``z = near + c (far - near)``; background is 1.
-* normal: ``encoding`` ``"n*0.5+0.5"``, ``convention`` ``"+y up"`` (glTF 2.0)
-  or ``"+y down"`` (green flipped); +x right, +z toward the viewer.
-* lightdirs: two RGB sheets, ``files`` ``[A, B]``; ``channels``
-  ``[["right", "left", "top"], ["bottom", "front", "back"]]``: how much light
-  each texel receives from a light on that side, in [0, 1].
+Map entries come from :mod:`splatter.deliver.map_sheets` (``encoding`` says
+how to read the stored values back, ``channels`` what each channel of the
+file holds, extra keys give the constants); ``docs/sheet-metadata.md``
+lists them: motion RGB (red x, green y, blue 0), depth grey, normals in the
+stated ``convention``, light directions as ``lightdirs_pos`` (+x, +y, +z)
+and ``lightdirs_neg`` (-x, -y, -z) with their relighting formula.
 """
 
 from __future__ import annotations

@@ -1,4 +1,4 @@
-"""Where finished frames go: frame files, sprite sheets, previews, map sheets.
+"""Where finished frames go: frame files, sprite sheets, previews, map sheets, map frames.
 
 :class:`OutputSink` receives each composited frame in order and writes its
 frame files on a background thread (so encoding and writing overlap the
@@ -20,6 +20,7 @@ from typing import Dict, List
 import numpy as np
 
 from splatter.deliver.exr import rgba_channels, write_exr
+from splatter.deliver.map_frames import is_ranged, write_map_frame, write_ranged_map_frames
 from splatter.deliver.map_sheets import (
     write_depth_sheet,
     write_lightdirs_map,
@@ -45,11 +46,18 @@ from splatter.deliver.sheet import (
 )
 from splatter.look.records import LookSpec
 
-__all__ = ["OutputSink"]
+__all__ = ["OutputSink", "NORMAL_ATTRIBUTE"]
 
 _PREVIEW_MAX = 512  # GIF and MP4 frames fit this many pixels on a side
 _CONTACT_MAX = 256  # contact-sheet thumbnails fit this
 _MAX_PENDING = 3
+
+NORMAL_ATTRIBUTE = "splatter.normal_convention"
+"""EXR header attribute of frames with normal layers: ``"+y up"`` or ``"+y down"``, what ``normal.y`` holds."""
+
+
+def _convention(out) -> str:
+    return "+y down" if out.normal_y == "down" else "+y up"
 
 
 class OutputSink:
@@ -68,8 +76,11 @@ class OutputSink:
     Work that needs only one frame happens on the writer thread as frames
     arrive, overlapping the compositing of the next: frame files, the frame's
     sheet cell (PNG sheets are encoded cell by cell, so memory is one 8/16-bit
-    sheet, not every frame), and the preview frames over the checker. Map sheets keep their layers and the
-    frames' alpha until the end, since their encodings use clip-wide ranges.
+    sheet, not every frame), the preview frames over the checker, and the normal and
+    light-direction map PNGs of ``output.map_frames``. Map sheets, and the motion
+    and depth map PNGs, keep their layers and the frames' alpha until the end,
+    since their encodings use clip-wide ranges (without a sheet only motion and
+    depth layers are kept).
     """
 
     def __init__(self, look: LookSpec, out_dir: str, n_frames: int):
@@ -106,9 +117,12 @@ class OutputSink:
                     self._sheet = empty_codes(self._layout, out.png_bits)
                 else:
                     self._sheet = empty_sheet(self._layout, 4)
-            if layers:
-                self._sheet_alpha.append(rgba[..., 3])
-            for k, v in layers.items():
+        # Map sheets, and the motion and depth map frames, are encoded with clip-wide
+        # ranges at the end; without a sheet only those layers are kept.
+        keep = {k: v for k, v in layers.items() if out.sheet is not None or (out.map_frames and is_ranged(k))}
+        if keep:
+            self._sheet_alpha.append(rgba[..., 3])
+            for k, v in keep.items():
                 self._sheet_layers.setdefault(k, []).append(v)
         while len(self._pending) >= _MAX_PENDING:
             self._pending.pop(0).result()
@@ -120,6 +134,11 @@ class OutputSink:
         out = self.look.output
         if out.frames:
             self._write_frame(frame, rgba, layers)
+        if out.map_frames and layers:
+            files = write_map_frame(self.out_dir, self.look.name, frame, layers, rgba[..., 3], png_bits=out.png_bits,
+                                    y_down=out.normal_y == "down")
+            with self._lock:
+                self.files.extend(files)
         if self._sheet is not None:
             if out.sheet.format == "png":
                 put_cell_codes(self._sheet, self._layout, index, rgba, alpha=out.png_alpha, png_bits=out.png_bits,
@@ -145,11 +164,13 @@ class OutputSink:
         for ext in out.frames:
             path = os.path.join(self.out_dir, frame_file(name, frame, ext))
             if ext == "png":
-                write_png(path, rgba, bits=out.png_bits, alpha=out.png_alpha, exposure=self.look.shading.exposure)
+                write_png(path, rgba, bits=out.png_bits, alpha=out.png_alpha, exposure=self.look.shading.exposure,
+                          dilate=out.dilate)
             else:
                 channels = rgba_channels(rgba)
                 channels.update(layers)
-                write_exr(path, channels, pixel_type=out.exr_type)
+                attrs = {NORMAL_ATTRIBUTE: _convention(out)} if "normal.x" in layers else None
+                write_exr(path, channels, pixel_type=out.exr_type, attributes=attrs)
             written.append(path)
         with self._lock:
             self.files.extend(written)
@@ -165,6 +186,10 @@ class OutputSink:
         start = time.perf_counter()
         if self._sheet is not None:
             self._write_sheets()
+        if self.look.output.map_frames and self._sheet_layers:
+            self.files += write_ranged_map_frames(self.out_dir, self.look.name, self._frame_numbers,
+                                                  self._sheet_layers, self._sheet_alpha,
+                                                  png_bits=self.look.output.png_bits)
         if self._frame_numbers and self.look.output.preview:
             self._write_previews()
         self.write_seconds += time.perf_counter() - start
@@ -193,7 +218,7 @@ class OutputSink:
         if "normal.x" in layers:
             maps["normal"] = write_normal_sheet(d, name, layout, layers, alpha, common,
                                                 y_down=look.output.normal_y == "down")
-        if "lightdirs.right" in layers:
+        if "lightdirs_pos.x" in layers:
             maps["lightdirs"] = write_lightdirs_map(d, name, layout, layers, alpha, png_bits=look.output.png_bits)
         for entry in maps.values():
             for f in entry.get("files", [entry.get("file")]):

@@ -314,6 +314,8 @@ class OutputSpec:
     preview: Tuple[str, ...] = key((), list_of(*PREVIEWS))
     maps: Tuple[str, ...] = key((), list_of(*MAPS))
     normal_y: str = key("up", choice(*NORMAL_Y))  # "up" (+Y up, glTF 2.0) or "down" (green flipped)
+    map_frames: bool = key(False, boolean)  # also each map as a PNG per frame, next to the frames
+    dilate: bool = key(True, boolean)  # straight-alpha PNG frames: alpha-0 texels take the nearest covered colour
 
 
 @dataclass(frozen=True)

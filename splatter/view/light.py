@@ -299,8 +299,9 @@ def light_puffs(state, shading, axes, want_lightdirs: bool):
         Light colour times intensity reaching each puff (ambient share
         included); ``None`` without a light.
     lightdirs : (M, 6) float64 ndarray or None
-        Light received from the right, left, top, bottom, front (toward the
-        viewer) and back, in [0, 1]; ``None`` unless asked for.
+        Light received from the camera's +x (right), +y (up), +z (toward the
+        viewer), then -x, -y, -z, in [0, 1]: the columns of the
+        ``lightdirs_pos`` and ``lightdirs_neg`` maps; ``None`` unless asked for.
     """
     sh = shading
     if sh.light is None and not want_lightdirs:
@@ -313,9 +314,9 @@ def light_puffs(state, shading, axes, want_lightdirs: bool):
         dirs.append(np.asarray(sh.light.direction, dtype=np.float64))
     if want_lightdirs:
         right, up, forward = axes
-        back = -forward
-        # right, left, top, bottom, front (toward the viewer), back
-        dirs += [right, -right, up, -up, back, -back]
+        toward_viewer = -forward
+        # The view-space axes of the normal map: +x, +y, +z, then -x, -y, -z.
+        dirs += [right, up, toward_viewer, -right, -up, forward]
     trans = transmittance(grid, state.pos, np.array(dirs))
     factor = None
     col = 0

@@ -13,7 +13,9 @@ Feature channels, in this order:
 * ``motion.x, motion.y``: screen velocity in pixels per frame (x right,
   y down), when motion maps are asked for;
 * ``depth.z``: view depth in world units, when depth maps are asked for;
-* ``lightdirs.*``: six lighting factors, when light-direction maps are asked for.
+* ``lightdirs_pos.x/y/z``, ``lightdirs_neg.x/y/z``: light reaching each puff
+  from the camera's +x, +y, +z and -x, -y, -z sides (x right, y up, z toward
+  the viewer), when light-direction maps are asked for.
 """
 
 from __future__ import annotations
@@ -26,7 +28,7 @@ import numpy as np
 from splatter.core.thresholds import MAX_OPACITY
 from splatter.view.camera import Camera, project_puffs, puff_covariances
 
-__all__ = ["ScreenSplats", "make_splats", "effective_opacity", "feature_layout"]
+__all__ = ["ScreenSplats", "make_splats", "effective_opacity", "feature_layout", "LIGHTDIR_CHANNELS"]
 
 
 @dataclass(frozen=True)
@@ -52,7 +54,8 @@ class ScreenSplats:
     channels: Dict[str, int]
 
 
-LIGHTDIR_NAMES = ("right", "left", "top", "bottom", "front", "back")
+LIGHTDIR_CHANNELS = tuple(f"lightdirs_{sign}.{axis}" for sign in ("pos", "neg") for axis in "xyz")
+"""Feature channels of the light-direction maps, in the column order of ``light_puffs``' factors."""
 
 
 def feature_layout(*, motion: bool, depth: bool, lightdirs: bool) -> Dict[str, int]:
@@ -63,7 +66,7 @@ def feature_layout(*, motion: bool, depth: bool, lightdirs: bool) -> Dict[str, i
     if depth:
         names += ["depth.z"]
     if lightdirs:
-        names += [f"lightdirs.{d}" for d in LIGHTDIR_NAMES]
+        names += list(LIGHTDIR_CHANNELS)
     return {n: i for i, n in enumerate(names)}
 
 
@@ -214,8 +217,8 @@ def make_splats(
         feats[:, channels["motion.y"]] = vel_px[:, 1]
     if "depth.z" in channels:
         feats[:, channels["depth.z"]] = depth
-    if "lightdirs.right" in channels:
-        c0 = channels["lightdirs.right"]
+    if LIGHTDIR_CHANNELS[0] in channels:
+        c0 = channels[LIGHTDIR_CHANNELS[0]]
         feats[:, c0 : c0 + 6] = np.asarray(lightdir_factors, dtype=np.float32)[idx]
     return ScreenSplats(
         means=np.ascontiguousarray(np.asarray(screen.means, dtype=np.float32)[idx]),
