@@ -5,9 +5,10 @@ from __future__ import annotations
 
 import math
 
-import numba
 import numpy as np
 import pytest
+
+from lookfiles import on_each_thread_count
 
 from splatter.raster.compositor import composite, composite_features
 
@@ -115,15 +116,9 @@ def test_thread_count_does_not_change_pixels(blend):
     # The product promise: identical pixels for any thread count.
     rng = np.random.default_rng(11)
     means, covs, feats, opac = random_splats(rng, 2000, 300, 260)
-    old = numba.get_num_threads()
-    try:
-        numba.set_num_threads(1)
-        one = composite(means, covs, feats, opac, shape=(300, 260), blend=blend)
-        numba.set_num_threads(numba.config.NUMBA_NUM_THREADS)
-        many = composite(means, covs, feats, opac, shape=(300, 260), blend=blend)
-    finally:
-        numba.set_num_threads(old)
-    np.testing.assert_array_equal(one, many)
+    one, *more = on_each_thread_count(lambda: composite(means, covs, feats, opac, shape=(300, 260), blend=blend))
+    for many in more:
+        np.testing.assert_array_equal(one, many)
 
 
 def point_splats(colors_alphas, h=1, w=1):
@@ -387,14 +382,6 @@ def test_thread_count_does_not_change_pixels_of_many_tiny_splats():
     covs = random_covs(rng, n, (0.7, 3.0), (0.25, 1.0)).astype(np.float32)
     feats = rng.uniform(0, 1, (n, 3)).astype(np.float32)
     opac = rng.uniform(0.05, 0.5, n).astype(np.float32)
-    if numba.config.NUMBA_NUM_THREADS < 2:
-        pytest.skip("needs at least two numba threads")
-    old = numba.get_num_threads()
-    try:
-        numba.set_num_threads(1)
-        one = composite(means, covs, feats, opac, shape=(h, w))
-        numba.set_num_threads(2)
-        many = composite(means, covs, feats, opac, shape=(h, w))
-    finally:
-        numba.set_num_threads(old)
-    np.testing.assert_array_equal(one, many)
+    one, *more = on_each_thread_count(lambda: composite(means, covs, feats, opac, shape=(h, w)))
+    for many in more:
+        np.testing.assert_array_equal(one, many)

@@ -139,19 +139,13 @@ def test_dilation_edge_cases():
 
 
 def test_dilation_does_not_depend_on_thread_count():
-    import numba
+    from lookfiles import on_each_thread_count
 
     rng = np.random.default_rng(9)
     img = np.where(rng.random((64, 80, 1)) < 0.01, rng.random((64, 80, 4)), 0).astype(np.float32)
-    before = numba.get_num_threads()
-    try:
-        numba.set_num_threads(1)
-        one = dilate_colour(img)
-        numba.set_num_threads(numba.config.NUMBA_NUM_THREADS)
-        many = dilate_colour(img)
-    finally:
-        numba.set_num_threads(before)
-    np.testing.assert_array_equal(one, many)
+    one, *more = on_each_thread_count(lambda: dilate_colour(img))
+    for many in more:
+        np.testing.assert_array_equal(one, many)
 
 
 def test_encode_signed():

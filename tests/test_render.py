@@ -52,8 +52,8 @@ def test_frame_range_matches_full_render_and_may_run_past_the_end(tmp_path):
 
 def test_thread_count_changes_no_byte(tmp_path):
     look = load_look(write_look(tmp_path, SMALL_PLUME))
-    one, many = thread_digests(look, tmp_path)
-    assert one == many
+    one, *more = thread_digests(look, tmp_path)
+    assert all(many == one for many in more)
 
 
 def test_exact_loop_frame_n_equals_frame_0_on_float_exr(tmp_path):
