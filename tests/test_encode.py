@@ -164,7 +164,8 @@ def test_encode_depth():
 
 
 def test_encode_normal():
-    # glTF 2.0: flat normal (0, 0, 1) -> (0.5, 0.5, 1.0); +Y up; Y-down flips green.
+    # glTF 2.0: flat normal (0, 0, 1) -> (0.5, 0.5, 1.0); +Y up. Y-down (green
+    # flipped, 1 - g) is the other convention in use: common practice, from memory.
     n = np.array([[0.0, 0.0, 1.0], [0.0, 1.0, 0.0], [1.0, 0.0, 0.0]])
     np.testing.assert_allclose(encode_normal(n), [[0.5, 0.5, 1.0], [0.5, 1.0, 0.5], [1.0, 0.5, 0.5]])
     np.testing.assert_allclose(encode_normal(n, y_down=True)[1], [0.5, 0.0, 0.5])

@@ -49,14 +49,18 @@ def test_gif_frame_count_and_loop(tmp_path):
     frames = iio.imread(p, index=None)
     assert frames.shape[:3] == (9, 32, 48)
     meta = iio.immeta(p)
-    assert meta["loop"] == 0  # NETSCAPE2.0 loop count 0 = forever (GIF89a application extension)
+    # The NETSCAPE2.0 application extension with loop count 0 = repeat forever:
+    # not in the GIF89a specification itself, common practice (from memory).
+    assert meta["loop"] == 0
     assert meta["duration"] == 40  # 1/25 s
     assert Image.open(p).n_frames == 9
 
 
 def test_mp4_frame_count_even_size(tmp_path):
     p = tmp_path / "harbour.mp4"
-    write_mp4(p, _clip(h=31, w=47), fps=24)  # odd size -> padded to even for yuv420p
+    # yuv420p halves the chroma in both directions, so H.264 encoders want even
+    # sizes (common practice, from memory): odd size -> padded to even.
+    write_mp4(p, _clip(h=31, w=47), fps=24)
     r = iio2.get_reader(p)
     try:
         assert r.count_frames() == 9

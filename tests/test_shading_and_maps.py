@@ -86,7 +86,7 @@ def test_normal_map_of_a_lone_puff(tmp_path):
 
 
 def test_normal_map_y_down_flips_green(tmp_path):
-    # The Y-down convention stores green as 1 - g (common practice; glTF 2.0
+    # The Y-down convention stores green as 1 - g (common practice, from memory; glTF 2.0
     # is +Y up): every texel's green code is 255 minus the +Y-up one (within
     # one code: round half up of 255 (1 - g) and of 255 g can both round up),
     # red and blue unchanged. Read back with Pillow.
