@@ -49,16 +49,17 @@ def render_look(folder, text, overrides, frames):
 # A lit ball, non-square, HALF EXR, 16-bit premultiplied PNG frames and sheets,
 # exposure +1 stop, light-direction maps; and the same look as float EXR.
 # ---------------------------------------------------------------------------
-LIT_OVERRIDES = ["image.width=72", "image.height=48", "camera.view_width=3.6", 'output.frames=["png", "exr"]', "output.exr_type='half'",
-                 "output.png_bits=16", "output.png_alpha='premultiplied'", "shading.exposure=1.0",
-                 'output.maps=["lightdirs"]', "output.sheet={padding=2}"]
+LIT_SHAPE = ["image.width=72", "image.height=48", "camera.view_width=3.6"]
+LIT_OVERRIDES = LIT_SHAPE + ['output.frames=["png", "exr"]', "output.exr_type='half'", "output.png_bits=16",
+                             "output.png_alpha='premultiplied'", "shading.exposure=1.0",
+                             'output.maps=["lightdirs"]', "output.sheet={padding=2}"]
 
 
 @pytest.fixture(scope="module")
 def lit(tmp_path_factory):
     half_dir = render_look(tmp_path_factory.mktemp("lit_half"), LIT_BALL, LIT_OVERRIDES, [0])[1]
     float_dir = render_look(tmp_path_factory.mktemp("lit_float"), LIT_BALL,
-                           ["image.width=72", "image.height=48", "camera.view_width=3.6", "output.exr_type='float'"], [0])[1]
+                            LIT_SHAPE + ["output.exr_type='float'"], [0])[1]
     return half_dir, float_dir
 
 
@@ -113,9 +114,7 @@ def test_16_bit_premultiplied_colour_and_light_sheets(lit):
     # Light-direction sheets: 16-bit linear values (right, left, top in the
     # first), equal to the EXR layers within half precision (2^-11) plus one code.
     layers = {n: v.astype(np.float64) for n, (v, _) in exr_channels(half_dir / "lit_ball.0000.exr").items()}
-    rlt = meta["maps"]["lightdirs"]["files"][0] if "files" in meta["maps"]["lightdirs"] else None
-    path = half_dir / (rlt or "lit_ball.lightdirs_rlt.sheet.png")
-    codes, bits = png16(path)
+    codes, bits = png16(half_dir / meta["maps"]["lightdirs"]["files"][0])
     assert bits == 16
     sub = codes[cell["y"]:cell["y"] + 48, cell["x"]:cell["x"] + 72]
     solid = layers["A"] > 0.1
