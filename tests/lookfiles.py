@@ -130,16 +130,42 @@ def quiet_render(look, out, **kw):
     return render(look, out_dir=str(out), progress=False, **kw)
 
 
-def thread_digests(look, folder):
-    """Digests of the look rendered on one numba thread and on all of them: ``(one, many)``."""
+def thread_counts():
+    """Thread counts a determinism test compares: 1, the machine's cores, and
+    more threads than cores (tests/conftest.py starts numba with them).
+
+    Skips, saying why, when numba has only one thread (``NUMBA_NUM_THREADS=1``
+    set for the run): there is then nothing to compare.
+    """
+    import os
+
+    import numba
+    import pytest
+
+    most = numba.config.NUMBA_NUM_THREADS
+    counts = sorted({1, min(os.cpu_count() or 1, most), most})
+    if len(counts) < 2:
+        pytest.skip("numba has one thread (NUMBA_NUM_THREADS=1): no second thread count to compare")
+    return counts
+
+
+def on_each_thread_count(fn):
+    """``[fn() for each of thread_counts()]``, numba's thread count restored after."""
     import numba
 
     old = numba.get_num_threads()
     try:
-        numba.set_num_threads(1)
-        one = digests(quiet_render(look, folder / "one").out_dir)
-        numba.set_num_threads(numba.config.NUMBA_NUM_THREADS)
-        many = digests(quiet_render(look, folder / "many").out_dir)
+        out = []
+        for n in thread_counts():
+            numba.set_num_threads(n)
+            out.append(fn())
+        return out
     finally:
         numba.set_num_threads(old)
-    return one, many
+
+
+def thread_digests(look, folder):
+    """Digests of the look rendered on each of ``thread_counts()`` numba threads, in that order."""
+    runs = iter(range(100))
+    return on_each_thread_count(
+        lambda: digests(quiet_render(look, folder / f"threads{next(runs)}").out_dir))

@@ -12,9 +12,24 @@ from splatter.cli import main
 
 
 def run(*args):
-    """Run the real console entry in a child process; return (code, stdout, stderr)."""
+    """Run the real console entry in a child process; return (code, stdout, stderr).
+
+    Only test_render_writes_named_frames_and_summary uses it (a child process
+    starts numba afresh); the other cases call ``main`` in this process
+    through the ``cli`` fixture, which is the same code without the start-up.
+    """
     proc = subprocess.run([sys.executable, "-m", "splatter", *map(str, args)], capture_output=True, text=True)
     return proc.returncode, proc.stdout, proc.stderr
+
+
+@pytest.fixture
+def cli(capsys):
+    """``main`` in this process: ``cli(*args)`` returns (code, stdout, stderr)."""
+    def call(*args):
+        code = main([str(a) for a in args])
+        out, err = capsys.readouterr()
+        return code, out, err
+    return call
 
 
 BAD_LOOKS = [
@@ -32,14 +47,14 @@ BAD_LOOKS = [
 
 @pytest.mark.parametrize("what, text, key", BAD_LOOKS, ids=[b[0] for b in BAD_LOOKS])
 @pytest.mark.parametrize("command", ["render", "check", "simulate"])
-def test_bad_look_exits_2_names_file_and_key_and_writes_nothing(tmp_path, what, text, key, command):
+def test_bad_look_exits_2_names_file_and_key_and_writes_nothing(cli, tmp_path, what, text, key, command):
     look = tmp_path / "bad.toml"
     look.write_text(text)
     out = tmp_path / "out"
     args = [command, look, "--out", out / "x.npz" if command == "simulate" else out]
     if command == "check":
         args = [command, look]
-    code, stdout, stderr = run(*args)
+    code, stdout, stderr = cli(*args)
     assert code == 2, stderr
     assert str(look) in stderr and key in stderr
     assert "expected" in stderr and "got" in stderr
@@ -58,10 +73,10 @@ def test_bad_look_exits_2_names_file_and_key_and_writes_nothing(tmp_path, what, 
         (["--seed", "-1"], "--seed"),
     ],
 )
-def test_bad_command_line_values_exit_2(tmp_path, args, fragment):
+def test_bad_command_line_values_exit_2(cli, tmp_path, args, fragment):
     look = write_look(tmp_path, LONE_PUFF)
     out = tmp_path / "out"
-    code, _, stderr = run("render", look, "--out", out, *args)
+    code, _, stderr = cli("render", look, "--out", out, *args)
     assert code == 2 and fragment in stderr and "Traceback" not in stderr
     assert not out.exists()
 
@@ -117,33 +132,33 @@ def test_pack_builds_a_sheet_from_rendered_frames(tmp_path):
     assert main(["pack", str(tmp_path / "empty-nowhere")]) == 2
 
 
-def test_smoke_cut_by_the_frame_border_is_warned_about(tmp_path):
+def test_smoke_cut_by_the_frame_border_is_warned_about(cli, tmp_path):
     # A puff twice as wide as a tight view: the sprite is visibly cut off.
     look = write_look(tmp_path, LONE_PUFF)
-    code, stdout, stderr = run("render", look, "--out", tmp_path / "o", "--set", "camera.view_width=0.8")
+    code, stdout, stderr = cli("render", look, "--out", tmp_path / "o", "--set", "camera.view_width=0.8")
     assert code == 0
     assert "frame border" in stderr and "camera.fit" in stderr
-    code, stdout, _ = run("check", look, "--set", "camera.view_width=0.8")
+    code, stdout, _ = cli("check", look, "--set", "camera.view_width=0.8")
     assert code == 0 and "cross the frame border" in stdout
     # Framed with room to spare, neither says a word about it.
-    code, stdout, stderr = run("render", look, "--out", tmp_path / "p")
+    code, stdout, stderr = cli("render", look, "--out", tmp_path / "p")
     assert code == 0 and "frame border" not in stderr
 
 
-def test_unwritable_output_folder_is_a_clear_failure(tmp_path):
+def test_unwritable_output_folder_is_a_clear_failure(cli, tmp_path):
     # Not bad input (exit 2) but a failure to write (exit 1), named, without a traceback.
     look = write_look(tmp_path, LONE_PUFF)
     blocker = tmp_path / "a_file"
     blocker.write_text("")
-    code, _, stderr = run("render", look, "--out", blocker / "frames", "--quiet")
+    code, _, stderr = cli("render", look, "--out", blocker / "frames", "--quiet")
     assert code == 1
     assert str(blocker / "frames") in stderr and "Traceback" not in stderr
 
 
-def test_a_loop_that_cannot_close_is_named_even_when_quiet(tmp_path):
+def test_a_loop_that_cannot_close_is_named_even_when_quiet(cli, tmp_path):
     text = LONE_PUFF.replace("[clip]", '[clip]\nloop = "exact"')
     look = write_look(tmp_path, text)
-    code, stdout, _ = run("check", look)
+    code, stdout, _ = cli("check", look)
     assert code == 0 and "source[0].bursts" in stdout and "seam" in stdout
-    code, _, stderr = run("render", look, "--out", tmp_path / "o", "--quiet")
+    code, _, stderr = cli("render", look, "--out", tmp_path / "o", "--quiet")
     assert code == 0 and "source[0].bursts" in stderr and "seam" in stderr

@@ -5,9 +5,10 @@ from __future__ import annotations
 
 import math
 
-import numba
 import numpy as np
 import pytest
+
+from lookfiles import on_each_thread_count
 
 from splatter.raster.compositor import composite, composite_features
 
@@ -97,13 +98,17 @@ def test_matches_float64_reference(blend, k):
     assert np.abs(got - want).max() <= 1e-5
 
 
-def test_composite_is_features_with_colour():
+@pytest.mark.parametrize("blend", ["over", "add", "absorb"])
+def test_composite_colour_entry_matches_float64_reference(blend):
+    # The public colour entry (what the renderer's colour layer goes through)
+    # against the float64 reference of the definitions, not against the
+    # function it wraps.
     rng = np.random.default_rng(3)
     means, covs, feats, opac = random_splats(rng, 50, 40, 30)
-    a = composite(means, covs, feats, opac, shape=(40, 30))
-    b = composite_features(means, covs, feats, opac, shape=(40, 30))
-    assert a.shape == (40, 30, 4)
-    np.testing.assert_array_equal(a, b)
+    got = composite(means, covs, feats, opac, shape=(40, 30), blend=blend)
+    want = reference(means, covs, feats, opac, (40, 30), blend)
+    assert got.shape == (40, 30, 4) and got.dtype == np.float32
+    assert np.abs(got - want).max() <= 1e-5
 
 
 @pytest.mark.parametrize("blend", ["over", "add", "absorb"])
@@ -111,15 +116,9 @@ def test_thread_count_does_not_change_pixels(blend):
     # The product promise: identical pixels for any thread count.
     rng = np.random.default_rng(11)
     means, covs, feats, opac = random_splats(rng, 2000, 300, 260)
-    old = numba.get_num_threads()
-    try:
-        numba.set_num_threads(1)
-        one = composite(means, covs, feats, opac, shape=(300, 260), blend=blend)
-        numba.set_num_threads(numba.config.NUMBA_NUM_THREADS)
-        many = composite(means, covs, feats, opac, shape=(300, 260), blend=blend)
-    finally:
-        numba.set_num_threads(old)
-    np.testing.assert_array_equal(one, many)
+    one, *more = on_each_thread_count(lambda: composite(means, covs, feats, opac, shape=(300, 260), blend=blend))
+    for many in more:
+        np.testing.assert_array_equal(one, many)
 
 
 def point_splats(colors_alphas, h=1, w=1):
@@ -201,10 +200,8 @@ def test_alpha_integral_and_exact_cutoff():
 
     cov = np.array([[4.0, 1.0], [1.0, 2.0]])
     peak = 0.8
-    full = 2 * math.pi * peak * math.sqrt(np.linalg.det(cov))
-    assert abs(full - 13.298997) < 1e-6
-    mass3 = chi2.cdf(9, 2)
-    assert abs(mass3 - (1 - math.exp(-4.5))) < 1e-12
+    full = 13.298997  # the published integral, not recomputed here
+    mass3 = chi2.cdf(9, 2)  # scipy's oracle for 0.988891
     mean = np.array([[20.3, 18.7]])
     img = composite(mean, cov[None], np.ones((1, 3)), np.array([peak]), shape=(40, 40),
                     blend="add")
@@ -385,14 +382,6 @@ def test_thread_count_does_not_change_pixels_of_many_tiny_splats():
     covs = random_covs(rng, n, (0.7, 3.0), (0.25, 1.0)).astype(np.float32)
     feats = rng.uniform(0, 1, (n, 3)).astype(np.float32)
     opac = rng.uniform(0.05, 0.5, n).astype(np.float32)
-    if numba.config.NUMBA_NUM_THREADS < 2:
-        pytest.skip("needs at least two numba threads")
-    old = numba.get_num_threads()
-    try:
-        numba.set_num_threads(1)
-        one = composite(means, covs, feats, opac, shape=(h, w))
-        numba.set_num_threads(2)
-        many = composite(means, covs, feats, opac, shape=(h, w))
-    finally:
-        numba.set_num_threads(old)
-    np.testing.assert_array_equal(one, many)
+    one, *more = on_each_thread_count(lambda: composite(means, covs, feats, opac, shape=(h, w)))
+    for many in more:
+        np.testing.assert_array_equal(one, many)

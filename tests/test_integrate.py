@@ -1,8 +1,8 @@
 """Integrators through the production step kernel."""
 
-import numba
 import numpy as np
 import pytest
+from lookfiles import on_each_thread_count
 
 from splatter.look.records import (
     DragSpec,
@@ -87,20 +87,17 @@ def test_results_do_not_depend_on_thread_count(integrator):
     vel0 = rng.normal(size=(1000, 3))
     age = rng.uniform(0, 2, 1000)
     obstacles = pack_obstacles((PlaneSpec(point=(0, -0.5, 0)),))
-    out = []
-    before = numba.get_num_threads()
-    try:
-        for threads in (1, before):
-            numba.set_num_threads(threads)
-            pos, vel = pos0.copy(), vel0.copy()
-            for s in range(5):
-                step_puffs(pos, vel, age, dt=0.01, time=0.01 * s, forces=_busy_forces(), obstacles=obstacles,
-                           integrator=integrator)
-            out.append((pos, vel))
-    finally:
-        numba.set_num_threads(before)
-    np.testing.assert_array_equal(out[0][0], out[1][0])
-    np.testing.assert_array_equal(out[0][1], out[1][1])
+    def run():
+        pos, vel = pos0.copy(), vel0.copy()
+        for s in range(5):
+            step_puffs(pos, vel, age, dt=0.01, time=0.01 * s, forces=_busy_forces(), obstacles=obstacles,
+                       integrator=integrator)
+        return pos, vel
+
+    out = on_each_thread_count(run)
+    for pos, vel in out[1:]:
+        np.testing.assert_array_equal(out[0][0], pos)
+        np.testing.assert_array_equal(out[0][1], vel)
 
 
 def test_bad_input_names_the_parameter():

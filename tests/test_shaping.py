@@ -200,8 +200,9 @@ def test_exact_loop_closes_with_shapes_on(tmp_path):
 
 def test_thread_count_and_frame_range_change_no_byte_with_shapes_on(tmp_path):
     look = load_look(write_look(tmp_path, SHAPED_PLUME))
-    one, many = thread_digests(look, tmp_path)
-    assert one == many
+    one, *more = thread_digests(look, tmp_path)
+    assert all(many == one for many in more)
+    many = more[-1]
     part = digests(quiet_render(look, tmp_path / "part", frames=range(5, 8)).out_dir)
     assert part == {k: many[k] for k in part}
 

@@ -144,7 +144,8 @@ def test_pow2_resamples_into_cells():
     sheet = assemble_sheet(frames, lay)
     c = lay.cells[4]
     assert (c.w, c.h) == (168, 62)
-    # an interpolating filter keeps a constant image constant (Lanczos weights sum to 1)
+    # an interpolating filter keeps a constant image constant (resampling
+    # filters normalise their Lanczos weights to sum to 1: common practice, from memory)
     np.testing.assert_allclose(sheet[c.y : c.y + c.h, c.x : c.x + c.w], 0.5, atol=1e-5)
 
 
