@@ -76,7 +76,7 @@ def test_half_exr_frame_is_the_float_frame_rounded_to_binary16(lit):
         assert full[c][1] == OpenEXR.FLOAT
         np.testing.assert_array_equal(pixels, full[c][0].astype(np.float16))
     assert full["A"][0].max() > 0.5
-    assert half["lightdirs.right"][1] == OpenEXR.HALF
+    assert half["lightdirs_pos.x"][1] == OpenEXR.HALF
 
 
 def test_16_bit_premultiplied_png_frame_with_exposure(lit):
@@ -111,15 +111,15 @@ def test_16_bit_premultiplied_colour_and_light_sheets(lit):
     in_cell = sheet[cell["y"]:cell["y"] + 48, cell["x"]:cell["x"] + 72]
     covered = frame[..., 3] > 0
     np.testing.assert_array_equal(in_cell[covered], frame[covered])
-    # Light-direction sheets: 16-bit linear values (right, left, top in the
-    # first), equal to the EXR layers within half precision (2^-11) plus one code.
+    # Light-direction sheets: 16-bit linear values (+x, +y, +z: right, up and
+    # toward the viewer in the first), equal to the EXR layers within half precision (2^-11) plus one code.
     layers = {n: v.astype(np.float64) for n, (v, _) in exr_channels(half_dir / "lit_ball.0000.exr").items()}
     codes, bits = png16(half_dir / meta["maps"]["lightdirs"]["files"][0])
     assert bits == 16
     sub = codes[cell["y"]:cell["y"] + 48, cell["x"]:cell["x"] + 72]
     solid = layers["A"] > 0.1
-    for i, side in enumerate(("right", "left", "top")):
-        want = np.clip(layers[f"lightdirs.{side}"][solid], 0, 1)
+    for i, axis in enumerate("xyz"):
+        want = np.clip(layers[f"lightdirs_pos.{axis}"][solid], 0, 1)
         got = sub[..., i][solid] / 65535
         assert np.abs(got - want).max() <= 2.0 ** -11 * want.max() + 1 / 65535
 
