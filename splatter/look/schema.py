@@ -25,6 +25,7 @@ import re
 from dataclasses import fields
 from typing import Any, Callable, Dict, Optional
 
+from splatter.core.sheet_grid import sheet_layout
 from splatter.look import records as L
 from splatter.look.checks import Ctx, choice, describe, key_text
 from splatter.look.records import MAX_LIVE_PUFFS, MAX_SHEET
@@ -179,15 +180,19 @@ def _cross_checks(spec: L.LookSpec, ctx: Ctx) -> None:
         octx = ctx.child("output").child("sheet")
         if sheet.columns and sheet.rows and sheet.columns * sheet.rows < n:
             octx.child("rows").fail(f"columns x rows >= clip.frames ({n})", f"{sheet.columns} x {sheet.rows}", raw=True)
-        cols = sheet.columns or (math.ceil(n / sheet.rows) if sheet.rows else math.ceil(math.sqrt(n)))
-        rows = sheet.rows or math.ceil(n / cols)
-        cw = sheet.cell or spec.image.width + 2 * sheet.padding
-        ch = max(1, round(sheet.cell * spec.image.height / spec.image.width)) if sheet.cell else (
-            spec.image.height + 2 * sheet.padding)
-        w, h = cols * cw, rows * ch
         if sheet.cell and sheet.cell <= 2 * sheet.padding:
             octx.child("cell").fail(f"a cell wider than twice the padding ({2 * sheet.padding} px)", sheet.cell)
-        if max(w, h) > MAX_SHEET:
-            octx.fail(f"a sheet at most {MAX_SHEET} px on a side", f"{w} x {h} px", raw=True)
+        for flag in ("columns", "rows"):
+            v = getattr(sheet, flag)
+            if sheet.pow2 and v is not None and v & (v - 1):
+                octx.child(flag).fail("a power of two (1, 2, 4, 8 ...) with pow2 = true, so cells are whole pixels",
+                                      v)
+        try:
+            lay = sheet_layout(n, spec.image.width, spec.image.height, columns=sheet.columns, rows=sheet.rows,
+                               padding=sheet.padding, pow2=sheet.pow2, cell=sheet.cell)
+        except ValueError as err:
+            octx.fail("a sheet layout that holds every frame", str(err), raw=True)
+        if max(lay.width, lay.height) > MAX_SHEET:
+            octx.fail(f"a sheet at most {MAX_SHEET} px on a side", f"{lay.width} x {lay.height} px", raw=True)
     if not spec.output.frames and spec.output.sheet is None and not spec.output.preview:
         ctx.child("output").child("frames").fail("something to write: frames, a sheet or a preview", [], raw=False)
