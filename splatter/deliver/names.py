@@ -25,7 +25,7 @@ from typing import Iterable, List
 from splatter.look.records import LookSpec
 
 __all__ = [
-    "FRAME_FILE", "frame_file", "sheet_file", "sheet_meta_file", "map_sheet_file", "LIGHTDIR_SHEETS",
+    "FRAME_FILE", "file_stem", "frame_file", "sheet_file", "sheet_meta_file", "map_sheet_file", "LIGHTDIR_SHEETS",
     "preview_file", "planned_files",
 ]
 
@@ -34,6 +34,20 @@ FRAME_FILE = re.compile(r"^(?P<name>[^.]+)\.(?P<frame>\d{4,})\.(?P<ext>png|exr)$
 
 LIGHTDIR_SHEETS = ("lightdirs_rlt", "lightdirs_bfb")
 """The two light-direction map sheets, each holding three directions."""
+
+
+def file_stem(look: LookSpec) -> str:
+    """The look's ``output.stem`` with ``{name}`` and ``{seed}`` filled in: the start of every file name.
+
+    Examples
+    --------
+    >>> from splatter.look.records import LookSpec, OutputSpec
+    >>> file_stem(LookSpec(name="quay_dust", seed=7))
+    'quay_dust'
+    >>> file_stem(LookSpec(name="quay_dust", seed=7, output=OutputSpec(stem="{name}_s{seed}")))
+    'quay_dust_s7'
+    """
+    return look.output.stem.format(name=look.name, seed=look.seed)
 
 
 def frame_file(name: str, frame: int, ext: str) -> str:
@@ -76,7 +90,7 @@ def planned_files(look: LookSpec, out_dir: str, frames: Iterable[int]) -> List[s
     -------
     list of str
     """
-    name, out = look.name, look.output
+    name, out = file_stem(look), look.output
     frames = list(frames)
     files = [frame_file(name, f, ext) for ext in out.frames for f in frames]
     if out.sheet is not None and frames:

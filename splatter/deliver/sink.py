@@ -26,7 +26,7 @@ from splatter.deliver.map_sheets import (
     write_motion_sheet,
     write_normal_sheet,
 )
-from splatter.deliver.names import frame_file, preview_file
+from splatter.deliver.names import file_stem, frame_file, preview_file
 from splatter.deliver.png import write_png
 from splatter.deliver.preview import (
     over_checker,
@@ -140,7 +140,7 @@ class OutputSink:
             self.write_seconds += time.perf_counter() - start
 
     def _write_frame(self, frame: int, rgba: np.ndarray, layers: Dict[str, np.ndarray]) -> None:
-        out, name = self.look.output, self.look.name
+        out, name = self.look.output, file_stem(self.look)
         written = []
         for ext in out.frames:
             path = os.path.join(self.out_dir, frame_file(name, frame, ext))
@@ -185,7 +185,7 @@ class OutputSink:
         alpha = self._sheet_alpha
         common = dict(format=spec.format, png_bits=look.output.png_bits, exr_type=look.output.exr_type)
         maps = {}
-        d, name = self.out_dir, look.name
+        d, name = self.out_dir, file_stem(look)
         if "motion.x" in layers:
             maps["motion"] = write_motion_sheet(d, name, layout, layers, alpha, w, h, common)
         if "depth.z" in layers:
@@ -200,17 +200,17 @@ class OutputSink:
                 self.files.append(os.path.join(self.out_dir, f))
         sheet, self._sheet = self._sheet, None
         if spec.format == "png":
-            self.files += write_sheet_codes(self.out_dir, look.name, sheet, layout, alpha=look.output.png_alpha,
+            self.files += write_sheet_codes(self.out_dir, name, sheet, layout, alpha=look.output.png_alpha,
                                             fps=look.clip.fps, loop=look.clip.loop, maps=maps)
             return
         self.files += write_sheet_image(
-            self.out_dir, look.name, sheet, layout, format=spec.format, alpha=look.output.png_alpha,
+            self.out_dir, name, sheet, layout, format=spec.format, alpha=look.output.png_alpha,
             png_bits=look.output.png_bits, exr_type=look.output.exr_type, fps=look.clip.fps, loop=look.clip.loop,
             maps=maps, exposure=look.shading.exposure,
         )
 
     def _write_previews(self) -> None:
-        look, d, name = self.look, self.out_dir, self.look.name
+        look, d, name = self.look, self.out_dir, file_stem(self.look)
         for kind in look.output.preview:
             path = os.path.join(d, preview_file(name, kind))
             if kind == "gif":
