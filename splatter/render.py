@@ -302,7 +302,7 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
                              timings=timings)) if tail_frames else None
 
     os.makedirs(folder, exist_ok=True)
-    sink = OutputSink(look, folder, len(wanted))
+    sink = OutputSink(look, folder, len(wanted), frames=wanted)
     result = RenderResult(name=look.name, out_dir=folder, frames=wanted)
     bar = None
     if progress:

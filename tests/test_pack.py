@@ -60,6 +60,7 @@ def test_exr_round_trip(tmp_path):
         write_exr(tmp_path / f"vent.{k + 10:04d}.exr", rgba_channels(f), pixel_type="float")
     written = pack_folder(tmp_path, padding=2)
     assert written[0].endswith("vent.sheet.exr")
+    assert [c["frame"] for c in json.loads(open(written[1]).read())["cells"]] == [10, 11, 12, 13, 14]
     back = read_exr(written[0])
     sheet = np.stack([back[c] for c in "RGBA"], -1)
     lay = sheet_layout(5, 16, 12, padding=2)

@@ -13,7 +13,7 @@ from typing import NamedTuple
 
 from splatter.core.args import check_int
 
-__all__ = ["Cell", "SheetLayout", "sheet_layout"]
+__all__ = ["Cell", "SheetLayout", "sheet_layout", "partial_grid"]
 
 
 class Cell(NamedTuple):
@@ -142,7 +142,8 @@ def _pow2_grid(n, columns, rows, cw, ch):
     return best[1], best[2]
 
 
-def sheet_layout(n_frames, frame_w, frame_h, *, columns=None, rows=None, padding=0, pow2=False, cell=None):
+def sheet_layout(n_frames, frame_w, frame_h, *, columns=None, rows=None, padding=0, pow2=False, cell=None,
+                 numbers=None):
     """Compute the grid, sheet size and cell rectangles for a flipbook.
 
     Parameters
@@ -167,6 +168,9 @@ def sheet_layout(n_frames, frame_w, frame_h, *, columns=None, rows=None, padding
         Cell width in pixels, padding included; the cell height follows the
         frame's aspect. Frames are resampled to fit (for example 512 px
         frames in 256 px cells). Default: the frame plus its padding.
+    numbers : sequence of int, optional
+        The frame number each cell shows, in order (``Cell.frame``); default
+        ``0 .. n_frames - 1``. A render of frames 4 to 7 numbers its cells 4 to 7.
 
     Returns
     -------
@@ -208,5 +212,50 @@ def sheet_layout(n_frames, frame_w, frame_h, *, columns=None, rows=None, padding
     iw, ih = cw - 2 * pad, ch - 2 * pad
     if iw < 1 or ih < 1:
         raise ValueError(f"padding: {pad} px on each side leaves no room in a {cw} x {ch} cell")
-    cells = tuple(Cell(k, (k % cols) * cw + pad, (k // cols) * ch + pad, iw, ih) for k in range(n))
+    numbers = list(range(n)) if numbers is None else [int(f) for f in numbers]
+    if len(numbers) != n:
+        raise ValueError(f"numbers: expected {n} frame numbers, got {len(numbers)}")
+    cells = tuple(Cell(f, (k % cols) * cw + pad, (k // cols) * ch + pad, iw, ih) for k, f in enumerate(numbers))
     return SheetLayout(n, fw, fh, cols, rws, pad, bool(pow2), width, height, cw, ch, cells)
+
+
+def partial_grid(n_frames, columns, rows, pow2=False):
+    """The grid a sheet of only ``n_frames`` of a clip asks for: the look's, shrunk to the frames rendered.
+
+    A look's ``columns`` and ``rows`` are chosen for the whole clip; a render
+    of a few of its frames keeps the column count (at most the frames
+    rendered) and lets the rows follow, so no rows of empty cells are
+    written. With only ``rows`` given, the same the other way round.
+
+    Parameters
+    ----------
+    n_frames : int
+        Frames rendered, >= 1.
+    columns, rows : int or None
+        The look's grid.
+    pow2 : bool
+        Keep the counts powers of two.
+
+    Returns
+    -------
+    (columns, rows) : tuple of int or None
+        To pass to :func:`sheet_layout`.
+
+    Examples
+    --------
+    An 8 x 8 look rendered from frame 60 of 64 (4 frames): 4 x 1, not 8 x 8.
+
+    >>> partial_grid(4, 8, 8)
+    (4, None)
+    >>> partial_grid(20, 8, 8)
+    (8, None)
+    >>> partial_grid(3, 8, None, pow2=True)
+    (4, None)
+    """
+    n = check_int(n_frames, "n_frames")
+    cap = _next_pow2(n) if pow2 else n
+    if columns is not None:
+        return min(columns, cap), None
+    if rows is not None:
+        return None, min(rows, cap)
+    return None, None

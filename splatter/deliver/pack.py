@@ -160,7 +160,9 @@ def pack_folder(folder, *, name=None, columns=None, rows=None, padding=0, pow2=F
     png_bits = 8
     if ext == "png" and out_format == "png":
         png_bits = 16 if any(read_png_depth(p) == 16 for p in paths) else 8
-    layout = sheet_layout(len(paths), fw, fh, columns=columns, rows=rows, padding=padding, pow2=pow2)
+    numbers = [int(FRAME_FILE.match(os.path.basename(p))["frame"]) for p in paths]
+    layout = sheet_layout(len(paths), fw, fh, columns=columns, rows=rows, padding=padding, pow2=pow2,
+                          numbers=numbers)
     frames = (_read(p, ext) for p in paths)  # one at a time: memory O(sheet)
     return write_sheet(os.fspath(folder), name, frames, layout, format=out_format, png_bits=png_bits, fps=fps,
                        loop=loop)

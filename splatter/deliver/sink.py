@@ -15,10 +15,11 @@ import os
 import threading
 import time
 from concurrent.futures import Future, ThreadPoolExecutor
-from typing import Dict, List
+from typing import Dict, List, Optional, Sequence
 
 import numpy as np
 
+from splatter.core.sheet_grid import partial_grid
 from splatter.deliver.exr import rgba_channels, write_exr
 from splatter.deliver.map_sheets import (
     write_depth_sheet,
@@ -62,6 +63,11 @@ class OutputSink:
         Existing output folder.
     n_frames : int
         How many frames will be added (the sheet's grid is laid out for them).
+    frames : sequence of int, optional
+        The frame numbers that will be added, in order (default ``0 ..
+        n_frames - 1``). The sheet's cells carry them, and a sheet that does
+        not hold the whole clip ``0 .. clip.frames - 1`` is laid out for the
+        frames it holds and says ``loop: "none"`` (it does not loop).
 
     Notes
     -----
@@ -72,10 +78,12 @@ class OutputSink:
     frames' alpha until the end, since their encodings use clip-wide ranges.
     """
 
-    def __init__(self, look: LookSpec, out_dir: str, n_frames: int):
+    def __init__(self, look: LookSpec, out_dir: str, n_frames: int, frames: Optional[Sequence[int]] = None):
         self.look = look
         self.out_dir = out_dir
         self.n_frames = n_frames
+        self.numbers = list(range(n_frames)) if frames is None else [int(f) for f in frames]
+        self.whole_clip = self.numbers == list(range(look.clip.frames))
         self.files: List[str] = []
         self.write_seconds = 0.0
         self._lock = threading.Lock()
@@ -100,8 +108,11 @@ class OutputSink:
             if self._layout is None:
                 spec = out.sheet
                 h, w = rgba.shape[:2]
-                self._layout = sheet_layout(max(self.n_frames, 1), w, h, columns=spec.columns, rows=spec.rows,
-                                            padding=spec.padding, pow2=spec.pow2, cell=spec.cell)
+                n = max(self.n_frames, 1)
+                cols, rows = (spec.columns, spec.rows) if self.whole_clip else partial_grid(
+                    n, spec.columns, spec.rows, spec.pow2)
+                self._layout = sheet_layout(n, w, h, columns=cols, rows=rows, padding=spec.padding, pow2=spec.pow2,
+                                            cell=spec.cell, numbers=self.numbers[:n])
                 if spec.format == "png":  # encoded cell by cell as frames arrive: memory one 8/16-bit sheet
                     self._sheet = empty_codes(self._layout, out.png_bits)
                 else:
@@ -178,8 +189,9 @@ class OutputSink:
 
     def _write_sheets(self) -> None:
         look, spec, layout = self.look, self.look.output.sheet, self._layout
-        if len(self._frame_numbers) != layout.frames:
-            raise RuntimeError(f"the sheet was laid out for {layout.frames} frames, {len(self._frame_numbers)} came")
+        if [c.frame for c in layout.cells] != self._frame_numbers:
+            raise RuntimeError(f"the sheet was laid out for frames {[c.frame for c in layout.cells]}, "
+                               f"frames {self._frame_numbers} came")
         w, h = layout.frame_width, layout.frame_height
         layers = self._sheet_layers
         alpha = self._sheet_alpha
@@ -199,13 +211,14 @@ class OutputSink:
             for f in entry.get("files", [entry.get("file")]):
                 self.files.append(os.path.join(self.out_dir, f))
         sheet, self._sheet = self._sheet, None
+        loop = look.clip.loop if self.whole_clip else "none"  # a part of a loop does not loop
         if spec.format == "png":
             self.files += write_sheet_codes(self.out_dir, name, sheet, layout, alpha=look.output.png_alpha,
-                                            fps=look.clip.fps, loop=look.clip.loop, maps=maps)
+                                            fps=look.clip.fps, loop=loop, maps=maps)
             return
         self.files += write_sheet_image(
             self.out_dir, name, sheet, layout, format=spec.format, alpha=look.output.png_alpha,
-            png_bits=look.output.png_bits, exr_type=look.output.exr_type, fps=look.clip.fps, loop=look.clip.loop,
+            png_bits=look.output.png_bits, exr_type=look.output.exr_type, fps=look.clip.fps, loop=loop,
             maps=maps, exposure=look.shading.exposure,
         )
 
