@@ -26,7 +26,7 @@ from splatter.look.records import LookSpec
 
 __all__ = [
     "FRAME_FILE", "file_stem", "frame_file", "sheet_file", "sheet_meta_file", "map_sheet_file", "LIGHTDIR_SHEETS",
-    "preview_file", "planned_files",
+    "preview_file", "manifest_file", "planned_files",
 ]
 
 FRAME_FILE = re.compile(r"^(?P<name>[^.]+)\.(?P<frame>\d{4,})\.(?P<ext>png|exr)$")
@@ -75,6 +75,11 @@ def preview_file(name: str, kind: str) -> str:
     return f"{name}.contact.png" if kind == "contact" else f"{name}.preview.{kind}"
 
 
+def manifest_file(name: str) -> str:
+    """``{name}.render.json``: the render's manifest (see :mod:`splatter.deliver.folder`)."""
+    return f"{name}.render.json"
+
+
 def planned_files(look: LookSpec, out_dir: str, frames: Iterable[int]) -> List[str]:
     """The paths a render of ``frames`` writes, in the order ``check`` lists them.
 
@@ -103,4 +108,5 @@ def planned_files(look: LookSpec, out_dir: str, frames: Iterable[int]) -> List[s
                 files.append(map_sheet_file(name, m, fmt))
     if frames:
         files += [preview_file(name, p) for p in out.preview]
+    files.append(manifest_file(name))
     return [os.path.join(out_dir, f) for f in files]

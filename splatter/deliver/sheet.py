@@ -307,6 +307,19 @@ def put_cell_codes(codes, layout, k, frame, *, alpha="straight", png_bits=8, exp
     png_bits : {8, 16}
     exposure : float
     """
+    put_tile(codes, layout, k, encode_cell(layout, k, frame, alpha=alpha, png_bits=png_bits, exposure=exposure))
+
+
+def encode_cell(layout, k, frame, *, alpha="straight", png_bits=8, exposure=0.0):
+    """The PNG codes of frame ``k``'s tile (its cell, gutter included), as :func:`put_cell_codes` places them.
+
+    The tile does not depend on where the cell lies, so a render can keep it
+    and place it later (``render --resume``).
+
+    Returns
+    -------
+    (cell.h + 2 padding, cell.w + 2 padding, 4) uint8 or uint16 ndarray
+    """
     f = np.asarray(frame)
     if f.ndim != 3 or f.shape[:2] != (layout.frame_height, layout.frame_width) or f.shape[2] != 4:
         raise ValueError(f"frames[{k}]: expected shape ({layout.frame_height}, {layout.frame_width}, 4), "
@@ -314,8 +327,13 @@ def put_cell_codes(codes, layout, k, frame, *, alpha="straight", png_bits=8, exp
     cell, pad = layout.cells[k], layout.padding
     tile = np.zeros((cell.h + 2 * pad, cell.w + 2 * pad, 4), dtype=np.float32)
     tile[pad : pad + cell.h, pad : pad + cell.w] = _cell_content(f, cell)
-    codes[cell.y - pad : cell.y + cell.h + pad, cell.x - pad : cell.x + cell.w + pad] = _encode_tile(
-        tile, alpha, png_bits, exposure)
+    return _encode_tile(tile, alpha, png_bits, exposure)
+
+
+def put_tile(codes, layout, k, tile):
+    """Place a tile from :func:`encode_cell` into cell ``k`` of a code sheet."""
+    cell, pad = layout.cells[k], layout.padding
+    codes[cell.y - pad : cell.y + cell.h + pad, cell.x - pad : cell.x + cell.w + pad] = tile
 
 
 def _encode_tile(tile, alpha, png_bits, exposure):

@@ -15,7 +15,7 @@ import os
 import threading
 import time
 from concurrent.futures import Future, ThreadPoolExecutor
-from typing import Dict, List, Optional, Sequence
+from typing import Callable, Dict, List, Optional, Sequence
 
 import numpy as np
 
@@ -38,8 +38,9 @@ from splatter.deliver.preview import (
 from splatter.deliver.sheet import (
     empty_codes,
     empty_sheet,
+    encode_cell,
     place_frame,
-    put_cell_codes,
+    put_tile,
     sheet_layout,
     write_sheet_codes,
     write_sheet_image,
@@ -76,6 +77,12 @@ class OutputSink:
     sheet cell (PNG sheets are encoded cell by cell, so memory is one 8/16-bit
     sheet, not every frame), and the preview frames over the checker. Map sheets keep their layers and the
     frames' alpha until the end, since their encodings use clip-wide ranges.
+
+    :attr:`on_frame`, when set, is called on the writer thread once a
+    frame's files are in place, with the frame number, the paths written
+    and the frame's share of the sheets and previews (a dict of arrays that
+    :meth:`add_kept` takes back): a render keeps it so ``--resume`` can skip
+    the frame.
     """
 
     def __init__(self, look: LookSpec, out_dir: str, n_frames: int, frames: Optional[Sequence[int]] = None):
@@ -96,47 +103,74 @@ class OutputSink:
         self._anim: List[np.ndarray] = []
         self._thumbs: List[np.ndarray] = []
         self._frame_numbers: List[int] = []
+        self.on_frame: Optional[Callable[[int, List[str], Dict[str, np.ndarray]], None]] = None
 
     # ------------------------------------------------------------ per frame
 
     def add(self, frame: int, rgba: np.ndarray, layers: Dict[str, np.ndarray]) -> None:
         """Queue one frame: premultiplied linear ``rgba (H, W, 4) float32`` and straight map ``layers``."""
-        out = self.look.output
-        index = len(self._frame_numbers)
-        self._frame_numbers.append(frame)
-        if out.sheet is not None:
-            if self._layout is None:
-                spec = out.sheet
-                h, w = rgba.shape[:2]
-                n = max(self.n_frames, 1)
-                cols, rows = (spec.columns, spec.rows) if self.whole_clip else partial_grid(
-                    n, spec.columns, spec.rows, spec.pow2)
-                self._layout = sheet_layout(n, w, h, columns=cols, rows=rows, padding=spec.padding, pow2=spec.pow2,
-                                            cell=spec.cell, numbers=self.numbers[:n])
-                if spec.format == "png":  # encoded cell by cell as frames arrive: memory one 8/16-bit sheet
-                    self._sheet = empty_codes(self._layout, out.png_bits)
-                else:
-                    self._sheet = empty_sheet(self._layout, 4)
+        index = self._start(frame, rgba.shape[:2])
+        if self._layout is not None:
             if layers:
                 self._sheet_alpha.append(rgba[..., 3])
             for k, v in layers.items():
                 self._sheet_layers.setdefault(k, []).append(v)
+        self._submit(self._take_frame, index, frame, rgba, layers)
+
+    def add_kept(self, frame: int, kept: Dict[str, np.ndarray]) -> None:
+        """Queue one frame an earlier run of the same render finished (``render --resume``).
+
+        ``kept`` is what :attr:`on_frame` was given for it: its frame files
+        exist, so only its share of the sheets and previews is merged, which
+        gives the same bytes as rendering it again.
+        """
+        index = self._start(frame, tuple(kept["shape"]))
+        if self._layout is not None:
+            names = [k[len("layer:"):] for k in kept if k.startswith("layer:")]
+            if names:
+                self._sheet_alpha.append(kept["alpha"])
+            for k in names:
+                self._sheet_layers.setdefault(k, []).append(kept["layer:" + k])
+        self._submit(self._merge, index, kept)
+
+    def _start(self, frame: int, shape) -> int:
+        """Record ``frame``; lay the sheet out on the first one. Returns its index (its cell)."""
+        out = self.look.output
+        index = len(self._frame_numbers)
+        self._frame_numbers.append(frame)
+        if out.sheet is not None and self._layout is None:
+            spec = out.sheet
+            h, w = int(shape[0]), int(shape[1])
+            n = max(self.n_frames, 1)
+            cols, rows = (spec.columns, spec.rows) if self.whole_clip else partial_grid(
+                n, spec.columns, spec.rows, spec.pow2)
+            self._layout = sheet_layout(n, w, h, columns=cols, rows=rows, padding=spec.padding, pow2=spec.pow2,
+                                        cell=spec.cell, numbers=self.numbers[:n])
+            if spec.format == "png":  # encoded cell by cell as frames arrive: memory one 8/16-bit sheet
+                self._sheet = empty_codes(self._layout, out.png_bits)
+            else:
+                self._sheet = empty_sheet(self._layout, 4)
+        return index
+
+    def _submit(self, fn, *args) -> None:
         while len(self._pending) >= _MAX_PENDING:
             self._pending.pop(0).result()
-        self._pending.append(self._pool.submit(self._take_frame, index, frame, rgba, layers))
+        self._pending.append(self._pool.submit(fn, *args))
 
     def _take_frame(self, index: int, frame: int, rgba: np.ndarray, layers: Dict[str, np.ndarray]) -> None:
         """On the writer thread: everything one frame alone decides."""
         start = time.perf_counter()
         out = self.look.output
-        if out.frames:
-            self._write_frame(frame, rgba, layers)
+        written = self._write_frame(frame, rgba, layers) if out.frames else []
+        part = {"shape": np.array(rgba.shape[:2])}
         if self._sheet is not None:
             if out.sheet.format == "png":
-                put_cell_codes(self._sheet, self._layout, index, rgba, alpha=out.png_alpha, png_bits=out.png_bits,
-                               exposure=self.look.shading.exposure)
+                part["tile"] = encode_cell(self._layout, index, rgba, alpha=out.png_alpha, png_bits=out.png_bits,
+                                           exposure=self.look.shading.exposure)
             else:
                 place_frame(self._sheet, self._layout, index, rgba)
+                c = self._layout.cells[index]
+                part["tile"] = self._sheet[c.y : c.y + c.h, c.x : c.x + c.w].copy()
         if out.preview:
             exp = self.look.shading.exposure
             if set(out.preview) - {"contact"}:
@@ -144,13 +178,32 @@ class OutputSink:
                 if "mp4" in out.preview and (anim.shape[0] % 2 or anim.shape[1] % 2):
                     # yuv420p needs even sizes: extend with transparent texels (the checker shows).
                     anim = np.pad(anim, ((0, anim.shape[0] % 2), (0, anim.shape[1] % 2), (0, 0)))
-                self._anim.append(over_checker(anim, exposure=exp))
+                part["anim"] = over_checker(anim, exposure=exp)
             if "contact" in out.preview:
-                self._thumbs.append(over_checker(_shrink(rgba, _CONTACT_MAX), exposure=exp))
+                part["thumb"] = over_checker(_shrink(rgba, _CONTACT_MAX), exposure=exp)
+        self._merge(index, part)
+        if self.on_frame is not None:
+            if layers and self._sheet is not None:
+                part["alpha"] = rgba[..., 3]
+                part.update(("layer:" + k, v) for k, v in layers.items())
+            self.on_frame(frame, written, part)
         with self._lock:
             self.write_seconds += time.perf_counter() - start
 
-    def _write_frame(self, frame: int, rgba: np.ndarray, layers: Dict[str, np.ndarray]) -> None:
+    def _merge(self, index: int, part: Dict[str, np.ndarray]) -> None:
+        """On the writer thread: put one frame's share into the sheet and previews (frames arrive in order)."""
+        if self._sheet is not None:
+            if self.look.output.sheet.format == "png":
+                put_tile(self._sheet, self._layout, index, part["tile"])
+            else:
+                c = self._layout.cells[index]
+                self._sheet[c.y : c.y + c.h, c.x : c.x + c.w] = part["tile"]
+        if "anim" in part:
+            self._anim.append(part["anim"])
+        if "thumb" in part:
+            self._thumbs.append(part["thumb"])
+
+    def _write_frame(self, frame: int, rgba: np.ndarray, layers: Dict[str, np.ndarray]) -> List[str]:
         out, name = self.look.output, file_stem(self.look)
         written = []
         for ext in out.frames:
@@ -164,6 +217,7 @@ class OutputSink:
             written.append(path)
         with self._lock:
             self.files.extend(written)
+        return written
 
     # ------------------------------------------------------------ the end
 
