@@ -52,7 +52,7 @@ from splatter.deliver.fileio import atomic_path, atomic_write_text
 from splatter.deliver.names import FRAME_FILE, file_stem, frame_file, manifest_file, planned_files
 from splatter.look.records import LookSpec
 
-__all__ = ["MANIFEST_VERSION", "look_digest", "read_manifest", "check_folder", "RenderFolder"]
+__all__ = ["MANIFEST_VERSION", "look_digest", "read_manifest", "note_files", "check_folder", "RenderFolder"]
 
 MANIFEST_VERSION = 1
 
@@ -86,6 +86,16 @@ def read_manifest(folder, stem: str) -> Optional[dict]:
     if not isinstance(data, dict) or data.get("version") != MANIFEST_VERSION or not isinstance(data.get("files"), list):
         return None
     return data
+
+
+def note_files(folder, stem: str, *, added: Iterable[str] = (), removed: Iterable[str] = ()) -> None:
+    """Add and remove file names in the manifest of ``stem``, when there is one (``pack`` rewrites sheets)."""
+    data = read_manifest(folder, stem)
+    if data is None:
+        return
+    names = (set(data["files"]) | {os.path.basename(p) for p in added}) - {os.path.basename(p) for p in removed}
+    data["files"] = sorted(names)
+    atomic_write_text(os.path.join(os.fspath(folder), manifest_file(stem)), json.dumps(data, indent=1) + "\n")
 
 
 def check_folder(folder: str, given: str, source: str, paths: Iterable[str]) -> None:
