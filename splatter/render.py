@@ -78,6 +78,8 @@ class RenderResult:
     def summary(self) -> str:
         """One line for the end of ``splatter render``."""
         total = self.seconds.get("total", 0.0)
+        if not self.files:
+            return f"splatter: nothing to resume: the render of {self.name} in {self.out_dir} is complete"
         return (
             f"splatter: rendered {len(self.frames)} frames of {self.name} in {total:.1f} s; "
             f"wrote {len(self.files)} files to {self.out_dir}"
@@ -303,6 +305,9 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
 
     record = RenderFolder(look, folder, wanted, resume=resume)
     todo = record.prepare()  # clears what an earlier render left; with resume, the frames still to render
+    if record.complete_already:
+        timings["total"] = time.perf_counter() - t_start
+        return RenderResult(name=look.name, out_dir=folder, frames=wanted, seconds=timings)
     n = look.clip.frames
     fade = _crossfade_frames(look)
     tail_frames = [n + f for f in todo if f < fade] if fade else []

@@ -83,6 +83,9 @@ def test_interrupted_then_resumed_render_has_the_bytes_of_an_uninterrupted_one(t
     assert rendered == list(range(len(done), 12))
     assert digests(folder, manifest=True) == whole  # every file, sheets, map sheets, previews and the manifest included
     assert not (folder / ".small_plume.resume").exists()
+    # Resuming a render that completed does nothing and changes nothing.
+    assert quiet_render(look, folder, resume=True).files == []
+    assert digests(folder, manifest=True) == whole
 
 
 def test_another_seed_interrupted_leaves_nothing_of_the_old_render(tmp_path, monkeypatch):

@@ -27,7 +27,8 @@ the stem that no manifest lists are never deleted; they are listed under
 ``stale`` and a warning names them.
 
 ``render --resume`` keeps the frames of the same take that the manifest
-lists as complete and redoes the rest. To write the sheets and previews
+lists as complete and redoes the rest; when the same render already
+completed and every file it lists is there, it does nothing. To write the sheets and previews
 again bit for bit without rendering the kept frames, a render that writes
 sheets or previews keeps each frame's share of them (its sheet cell, its
 preview frames, its map layers) in the hidden folder ``.{stem}.resume/``
@@ -147,6 +148,7 @@ class RenderFolder:
         self.keeps_parts = bool(out.sheet is not None or out.preview)  # whole-clip outputs need every frame
         self.parts_dir = os.path.join(folder, f".{self.stem}.resume")
         self.kept: Dict[int, Dict[str, np.ndarray]] = {}
+        self.complete_already = False
         self._frames_done: set = set()
         self._files: set = set()
         self._stale: List[str] = []
@@ -158,6 +160,10 @@ class RenderFolder:
         old = read_manifest(self.folder, self.stem)
         planned = {os.path.basename(p) for p in planned_files(self.look, self.folder, self.frames)}
         same_take = old is not None and old.get("look_digest") == self.digest
+        if (self.resume and same_take and old.get("state") == "complete" and old.get("rendered") == self.frames
+                and all(os.path.isfile(os.path.join(self.folder, n)) for n in old["files"])):
+            self.complete_already = True  # nothing was interrupted: every file is there
+            return []
         keep_frames = set()
         if same_take:
             exts = self.look.output.frames
