@@ -7,6 +7,7 @@ was expected and what arrived), 1 internal failure, 130 interrupted.
 from __future__ import annotations
 
 import argparse
+import errno
 import os
 import sys
 import warnings
@@ -16,6 +17,8 @@ from typing import Optional, Sequence
 from splatter.core.errors import LookError, LookWarning
 
 EXIT_OK, EXIT_INTERNAL, EXIT_BAD_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
+_PATH_ERRNOS = {errno.EACCES, errno.EPERM, errno.EROFS, errno.ENOTDIR, errno.EISDIR, errno.EEXIST, errno.ENOENT,
+                errno.ENAMETOOLONG}
 
 _EPILOG = """\
 examples:
@@ -23,6 +26,7 @@ examples:
   splatter render looks/harbour_chimney.toml
   splatter render looks/quay_vent.toml --seed 7 --set clip.frames=32 --out renders/vent-{seed}
   splatter render looks/quay_dust.toml --frames 0:8 --threads 1
+  splatter render looks/quay_dust.toml --resume
   splatter simulate looks/quay_vent.toml --out vent.npz
   splatter pack renders/harbour_chimney --columns 8
 
@@ -74,6 +78,9 @@ def _parser() -> argparse.ArgumentParser:
         help="render frames A to B-1 only (A:B, A: or a single frame A); may run past the clip's end",
     )
     r.add_argument("--threads", type=int, metavar="N", help="number of compute threads (default: all cores)")
+    r.add_argument("--resume", action="store_true",
+                   help="keep the frames an interrupted render of the same look and seed finished in the folder "
+                   "(its manifest NAME.render.json lists them) and render the rest, sheets and previews included")
     r.add_argument("--quiet", action="store_true",
                    help="no progress bar and no summary line (notes and warnings are still shown)")
 
@@ -107,8 +114,14 @@ def _parser() -> argparse.ArgumentParser:
     k.add_argument("--padding", type=int, default=2, metavar="PX", help="gutter around each cell (default 2)")
     k.add_argument("--pow2", action="store_true", help="power-of-two sheet size (frames resampled into cells)")
     k.add_argument("--format", choices=("png", "exr"), help="sheet format (default: that of the frames)")
-    k.add_argument("--fps", type=float, default=30.0, help="frames per second stored in the metadata")
-    k.add_argument("--loop", choices=("none", "exact", "crossfade"), default="none", help="stored in the metadata")
+    k.add_argument("--fps", type=float,
+                   help="frames per second stored in the metadata (default: the folder's sheet metadata or render "
+                   "manifest, else 30)")
+    k.add_argument("--loop", choices=("none", "exact", "crossfade"),
+                   help="stored in the metadata (default: the render's loop when the frames are its whole clip, "
+                   "else none)")
+    k.add_argument("--force", action="store_true",
+                   help="replace a sheet whose map sheets have another layout (the map sheets are removed)")
     return p
 
 
@@ -165,7 +178,8 @@ def _cmd_render(args) -> int:
     plan, camera = plan_and_camera(look)
     for note in plan.notes:
         print(f"splatter: note: {note}", file=sys.stderr)
-    result = render(look, out_dir=args.out, frames=frames, progress=not args.quiet, plan=plan, camera=camera)
+    result = render(look, out_dir=args.out, frames=frames, progress=not args.quiet, plan=plan, camera=camera,
+                    resume=args.resume)
     if not args.quiet:
         print(result.summary(), file=sys.stderr)
     return EXIT_OK
@@ -208,7 +222,7 @@ def _cmd_pack(args) -> int:
             raise _UsageError(f"--{flag}: expected a number from 1 to 1024, got {v}")
     if not 0 <= args.padding <= 256:
         raise _UsageError(f"--padding: expected a number from 0 to 256, got {args.padding}")
-    if not args.fps > 0:
+    if args.fps is not None and not args.fps > 0:
         raise _UsageError(f"--fps: expected a number > 0, got {args.fps}")
     try:
         written = pack_folder(
@@ -221,6 +235,7 @@ def _cmd_pack(args) -> int:
             format=args.format,
             fps=args.fps,
             loop=args.loop,
+            force=args.force,
         )
     except ValueError as err:
         raise _UsageError(f"pack: {err}") from None
@@ -261,7 +276,8 @@ def main(argv: Optional[Sequence[str]] = None) -> int:
     except OSError as err:  # the disk or the folder, not the look: say which file, no traceback
         where = f" {err.filename}" if getattr(err, "filename", None) else ""
         print(f"splatter: error: cannot write{where}: {err.strerror or err}", file=sys.stderr)
-        return EXIT_INTERNAL
+        # A path the user gave that cannot be used is bad input; a full or failing disk is not.
+        return EXIT_BAD_INPUT if err.errno in _PATH_ERRNOS else EXIT_INTERNAL
     except Exception:  # an internal failure: show everything so it can be reported
         import traceback
 

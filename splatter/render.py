@@ -7,7 +7,6 @@ Memory stays at one frame's puffs and image (plus what the sheet needs).
 
 from __future__ import annotations
 
-import os
 import sys
 import time
 import warnings
@@ -18,6 +17,8 @@ import numpy as np
 
 from splatter.core.errors import LookError, LookWarning
 from splatter.core.thresholds import VISIBLE_ALPHA
+from splatter.deliver.folder import RenderFolder, check_folder
+from splatter.deliver.names import planned_files
 from splatter.deliver.sink import OutputSink
 from splatter.look.records import LookSpec
 from splatter.raster.compositor import composite_features, kernels_cached
@@ -77,6 +78,8 @@ class RenderResult:
     def summary(self) -> str:
         """One line for the end of ``splatter render``."""
         total = self.seconds.get("total", 0.0)
+        if not self.files:
+            return f"splatter: nothing to resume: the render of {self.name} in {self.out_dir} is complete"
         return (
             f"splatter: rendered {len(self.frames)} frames of {self.name} in {total:.1f} s; "
             f"wrote {len(self.files)} files to {self.out_dir}"
@@ -243,7 +246,8 @@ def announce_compile() -> None:
 
 
 def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[Iterable[int]] = None,
-           progress: bool = True, plan: Optional[SimPlan] = None, camera: Optional[Camera] = None) -> RenderResult:
+           progress: bool = True, plan: Optional[SimPlan] = None, camera: Optional[Camera] = None,
+           resume: bool = False) -> RenderResult:
     """Render a look and write the files its ``[output]`` table asks for.
 
     Parameters
@@ -261,6 +265,11 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
         :func:`plan_and_camera` when a swirl's octaves are "auto").
     camera : Camera, optional
         The look's camera from :func:`plan_and_camera` or :func:`make_camera`, with ``plan``.
+    resume : bool
+        Keep the frames an earlier, interrupted render of the same look and
+        seed finished in this folder (its manifest lists them) and render
+        only the rest; sheets and previews are written again and come out
+        with the same bytes (see :mod:`splatter.deliver.folder`).
 
     Returns
     -------
@@ -277,12 +286,14 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
     >>> result = render(load_look(folder / "lamp_haze.toml"), out_dir=str(folder / "out"), progress=False)
     >>> sorted(pathlib.Path(f).name for f in result.files)  # doctest: +NORMALIZE_WHITESPACE
     ['lamp_haze.0000.png', 'lamp_haze.0001.png', 'lamp_haze.0002.png', 'lamp_haze.0003.png',
-     'lamp_haze.sheet.json', 'lamp_haze.sheet.png']
+     'lamp_haze.render.json', 'lamp_haze.sheet.json', 'lamp_haze.sheet.png']
     """
     t_start = time.perf_counter()
     timings: Dict[str, float] = {}
     wanted = list(frames) if frames is not None else list(range(look.clip.frames))
     folder = output_dir(look, out_dir)
+    # A folder that cannot be used fails now, before any work, naming the folder as given.
+    check_folder(folder, folder, "--out" if out_dir is not None else look.path, planned_files(look, folder, wanted))
     if progress:
         announce_compile()
     t0 = time.perf_counter()
@@ -292,17 +303,28 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
         camera = make_camera(look, plan)
     timings["fit"] = time.perf_counter() - t0
 
+    record = RenderFolder(look, folder, wanted, resume=resume)
+    todo = record.prepare()  # clears what an earlier render left; with resume, the frames still to render
+    if record.complete_already:
+        timings["total"] = time.perf_counter() - t_start
+        return RenderResult(name=look.name, out_dir=folder, frames=wanted, seconds=timings)
     n = look.clip.frames
     fade = _crossfade_frames(look)
-    tail_frames = [n + f for f in wanted if f < fade] if fade else []
+    tail_frames = [n + f for f in todo if f < fade] if fade else []
     maps = look.output.maps
-    main = frame_images(look, camera, _timed(simulate(look, plan, frames=wanted), timings, "simulate"),
-                        timings=timings)
+    main = iter(frame_images(look, camera, _timed(simulate(look, plan, frames=todo), timings, "simulate"),
+                             timings=timings))
     tail = iter(frame_images(look, camera, _timed(simulate(look, plan, frames=tail_frames), timings, "simulate"),
                              timings=timings)) if tail_frames else None
 
-    os.makedirs(folder, exist_ok=True)
-    sink = OutputSink(look, folder, len(wanted))
+    sink = OutputSink(look, folder, len(wanted), frames=wanted)
+    borders: Dict[int, tuple] = {}
+
+    def frame_done(frame, written, part):
+        part["border"] = np.array(borders.pop(frame), dtype=np.float64)
+        record.frame_done(frame, written, part)
+
+    sink.on_frame = frame_done
     result = RenderResult(name=look.name, out_dir=folder, frames=wanted)
     bar = None
     if progress:
@@ -311,7 +333,17 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
         bar = tqdm(total=len(wanted), desc=look.name, unit="frame", leave=False, dynamic_ncols=True)
     worst = (0.0, None)
     try:
-        for frame, image, channels, sigma in main:
+        for want in wanted:
+            if want in record.kept:  # finished by an earlier run of this render (--resume)
+                kept = record.kept.pop(want)
+                border, share = (float(v) for v in kept.pop("border"))
+                if border > worst[0]:
+                    worst = (border, want, share)
+                sink.add_kept(want, kept)
+                if bar is not None:
+                    bar.update(1)
+                continue
+            frame, image, channels, sigma = next(main)
             if tail is not None and frame < fade:
                 _, late, _, _ = next(tail)
                 # Frame f shows frame N+f fading into frame f, so frame N-1 runs on into frame 0.
@@ -320,15 +352,17 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
             rgba, layers = split_layers(image, channels)
             if "normal" in maps:
                 layers.update(normal_map(rgba[..., 3], sigma, y_down=look.output.normal_y == "down"))
-            border = max_border_alpha(rgba[..., 3])
+            border, share = max_border_alpha(rgba[..., 3]), border_alpha_share(rgba[..., 3])
+            borders[frame] = (border, share)
             if border > worst[0]:
-                worst = (border, frame, border_alpha_share(rgba[..., 3]))
+                worst = (border, frame, share)
             t_w = time.perf_counter()
             sink.add(frame, rgba, layers)
             timings["queue"] = timings.get("queue", 0.0) + time.perf_counter() - t_w
             if bar is not None:
                 bar.update(1)
-        result.files = sink.finish()
+        files = sink.finish()
+        result.files = sorted(files + [record.finish(files)])
     except BaseException:
         sink.abort()
         raise

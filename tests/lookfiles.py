@@ -115,12 +115,17 @@ def write_look(folder, text, name="look.toml", extra=""):
     return path
 
 
-def digests(folder):
-    """sha256 of every file in ``folder``, by name."""
+def digests(folder, manifest=False):
+    """sha256 of every file in ``folder``, by name; the render manifest only when ``manifest`` is true.
+
+    The manifest lists the frames rendered, so a partial render's differs
+    from a full one's by design; the images do not.
+    """
     import hashlib
     from pathlib import Path
 
-    return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in sorted(Path(folder).iterdir())}
+    return {p.name: hashlib.sha256(p.read_bytes()).hexdigest() for p in sorted(Path(folder).iterdir())
+            if manifest or not p.name.endswith(".render.json")}
 
 
 def quiet_render(look, out, **kw):

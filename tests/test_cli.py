@@ -1,6 +1,7 @@
 """The command line: exit codes, messages that name file and key, nothing half-written."""
 
 import json
+import os
 import subprocess
 import sys
 
@@ -145,14 +146,29 @@ def test_smoke_cut_by_the_frame_border_is_warned_about(cli, tmp_path):
     assert code == 0 and "frame border" not in stderr
 
 
-def test_unwritable_output_folder_is_a_clear_failure(cli, tmp_path):
-    # Not bad input (exit 2) but a failure to write (exit 1), named, without a traceback.
+def test_unusable_output_paths_exit_2_naming_the_path_given(tmp_path, capsys, monkeypatch):
+    # Bad input, not an internal failure: exit 2, the path as given, no traceback,
+    # no hidden temporary name, nothing written.
     look = write_look(tmp_path, LONE_PUFF)
     blocker = tmp_path / "a_file"
     blocker.write_text("")
-    code, _, stderr = cli("render", look, "--out", blocker / "frames", "--quiet")
-    assert code == 1
-    assert str(blocker / "frames") in stderr and "Traceback" not in stderr
+    cases = [(blocker, "which is a file"), (blocker / "frames", "a folder splatter can make")]
+    taken = tmp_path / "taken"
+    (taken / "lone_puff.0000.exr").mkdir(parents=True)  # a frame's path is a folder
+    cases.append((taken, "lone_puff.0000.exr"))
+    for out, fragment in cases:
+        assert main(["render", str(look), "--out", str(out), "--quiet"]) == 2
+        err = capsys.readouterr().err
+        assert str(out) in err and fragment in err and "Traceback" not in err and ".tmp" not in err
+    assert sorted(p.name for p in taken.iterdir()) == ["lone_puff.0000.exr"]
+    # An unwritable folder (the tests may run as root, who may write anywhere, so access is denied here).
+    locked = tmp_path / "locked"
+    locked.mkdir()
+    real = os.access
+    monkeypatch.setattr(os, "access", lambda p, mode, **kw: False if str(p) == str(locked) else real(p, mode, **kw))
+    assert main(["render", str(look), "--out", str(locked), "--quiet"]) == 2
+    err = capsys.readouterr().err
+    assert str(locked) in err and "not writable" in err and not any(locked.iterdir())
 
 
 def test_a_loop_that_cannot_close_is_named_even_when_quiet(cli, tmp_path):

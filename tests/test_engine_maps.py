@@ -325,7 +325,7 @@ def test_sheet_metadata_doc_states_what_the_files_hold(tmp_path):
         entry = json.loads(info["splatter.map"])
         assert entry["map"] == part and json.dumps(entry["channels"]) in doc
         assert mode == ("L" if part == "depth" else "RGB")
-    assert "`{dir}/{name}.{motion,depth,normal,lightdirs_pos,lightdirs_neg}.{frame:04d}.png`" in ref
+    assert "`{dir}/{stem}.{motion,depth,normal,lightdirs_pos,lightdirs_neg}.{frame:04d}.png`" in ref
     assert "`lightdirs_pos.x/y/z` and `lightdirs_neg.x/y/z`" in ref and "`splatter.normal_convention`" in ref
 
 

@@ -4,7 +4,7 @@ import os
 
 import pytest
 
-from splatter.deliver.fileio import atomic_path, atomic_write, atomic_write_text
+from splatter.deliver.fileio import atomic_path, atomic_write, atomic_write_bytes, atomic_write_text
 
 
 def test_success_replaces_target_and_leaves_no_temp(tmp_path):
@@ -44,3 +44,13 @@ def test_failed_write_keeps_previous_file(tmp_path):
 def test_missing_folder_is_an_error(tmp_path):
     with pytest.raises(FileNotFoundError, match="path"):
         atomic_write_text(tmp_path / "nope" / "x.txt", "x")
+
+
+def test_a_target_that_is_a_folder_is_named_not_the_temporary_file(tmp_path):
+    # The error names the file the caller asked for; the hidden temporary name means nothing to a user.
+    target = tmp_path / "quay.0000.png"
+    target.mkdir()
+    with pytest.raises(IsADirectoryError) as info:
+        atomic_write_bytes(target, b"x")
+    assert info.value.filename == str(target)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["quay.0000.png"]

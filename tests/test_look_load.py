@@ -1,10 +1,11 @@
 """Look loading: defaults, inheritance, overrides and every class of bad input."""
 
 import textwrap
+import warnings
 
 import pytest
 
-from splatter.core.errors import LookError
+from splatter.core.errors import LookError, LookWarning
 from splatter.look.load import load_look, parse_override
 from splatter.look.records import LookSpec, SourceSpec, SwirlSpec, WindSpec
 
@@ -137,6 +138,10 @@ BAD = [
     ("seed = -1\n" + MINIMAL, [], "seed", "integer"),
     ('[output]\ndir = "renders/{nmae}"\n' + MINIMAL, [], "output.dir", "{name}"),
     ("[output]\nsheet = { columns = 2, rows = 2 }\n" + MINIMAL, [], "output.sheet.rows", "columns x rows"),
+    ("[output]\nsheet = { columns = 6, pow2 = true }\n" + MINIMAL, [], "output.sheet.columns", "power of two"),
+    ('[output]\nstem = "{name}.take"\n' + MINIMAL, [], "output.stem", "no dots"),
+    ('[output]\nstem = "takes/{name}"\n' + MINIMAL, [], "output.stem", "{seed}"),
+    ('[output]\nstem = "{name}_{frame}"\n' + MINIMAL, [], "output.stem", "{name}"),
     ("[camera]\neye = [0, 0, 0]\n" + MINIMAL, [], "camera.target", "different"),
     ('[output]\nmap_frames = "yes"\n' + MINIMAL, [], "output.map_frames", "true or false"),
     (MINIMAL, ["output.dilate=1"], "output.dilate", "true or false"),
@@ -230,3 +235,20 @@ def test_false_switches_off_an_inherited_sheet_or_light(tmp_path):
     assert load_look(base, overrides=["output.sheet=false"]).output.sheet is None
     with pytest.raises(LookError, match=r"output\.sheet: expected a table, or false to switch it off, got boolean true"):
         load_look(base, overrides=["output.sheet=true"])
+
+
+def test_a_grid_pieced_together_from_several_files_that_leaves_cells_empty_is_warned_about(tmp_path):
+    # Tables merge key by key, so a derived `sheet = { columns = 4 }` keeps the base's rows = 8.
+    base = write(tmp_path, "base.toml", MINIMAL + "[clip]\nframes = 64\n[output]\nsheet = { columns = 8, rows = 8 }\n")
+    child = write(tmp_path, "child.toml", 'base = "base.toml"\n[clip]\nframes = 8\n[output]\nsheet = { columns = 4 }\n')
+    with pytest.warns(LookWarning, match=r"4 x 8 cells for 8 frames leaves 24 cells empty") as seen:
+        load_look(child)
+    assert "child.toml" in str(seen[0].message) and "base.toml" in str(seen[0].message)
+    with pytest.warns(LookWarning, match=r"8 x 8 cells for 60 frames"):
+        load_look(base, overrides=["clip.frames=60"])
+    one = write(tmp_path, "one.toml", MINIMAL + "[clip]\nframes = 60\n[output]\nsheet = { columns = 8, rows = 8 }\n")
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        load_look(base)  # one file's grid, full
+        load_look(one)  # one file asks for 4 empty cells: it means it
+        load_look(child, overrides=["output.sheet.rows=2"])  # 4 x 2 holds 8 frames exactly

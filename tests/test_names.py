@@ -26,3 +26,22 @@ def test_frame_pattern_recognises_written_frames_only():
     assert FRAME_FILE.match("quay_dust.0012.png")["frame"] == "0012"
     for name in ("quay_dust.sheet.png", "quay_dust.motion.sheet.exr", "quay_dust.12.png", "quay.dust.0001.png"):
         assert FRAME_FILE.match(name) is None, name
+
+
+@pytest.mark.filterwarnings("ignore::UserWarning")  # 24 px frames cut the smoke; only names matter here
+def test_output_stem_names_every_file_and_check_lists_them(tmp_path):
+    # Twenty takes of one look in one folder need twenty sets of names: {seed} in output.stem.
+    path = LOOKS[0]
+    names = set()
+    for seed in (3, 11):
+        look = load_look(path, seed=seed, overrides=["clip.frames=2", "image.width=24", "image.height=24",
+                                                     'output.stem="{name}_s{seed}"', "output.preview=['gif']",
+                                                     "output.sheet={columns=2}"])
+        result = render(look, out_dir=str(tmp_path), progress=False)
+        assert sorted(result.files) == sorted(planned_files(look, str(tmp_path), range(2)))
+        assert all(Path(f).name.startswith(f"{look.name}_s{seed}.") for f in result.files)
+        names |= {Path(f).name for f in result.files}
+    # nothing of the first take was overwritten by the second
+    assert {p.name for p in tmp_path.iterdir()} >= names and len(names) == 2 * len(result.files)
+    meta = (tmp_path / f"{look.name}_s11.sheet.json").read_text()
+    assert f'"image": "{look.name}_s11.sheet.png"' in meta

@@ -60,6 +60,7 @@ def test_exr_round_trip(tmp_path):
         write_exr(tmp_path / f"vent.{k + 10:04d}.exr", rgba_channels(f), pixel_type="float")
     written = pack_folder(tmp_path, padding=2)
     assert written[0].endswith("vent.sheet.exr")
+    assert [c["frame"] for c in json.loads(open(written[1]).read())["cells"]] == [10, 11, 12, 13, 14]
     back = read_exr(written[0])
     sheet = np.stack([back[c] for c in "RGBA"], -1)
     lay = sheet_layout(5, 16, 12, padding=2)
@@ -96,3 +97,28 @@ def test_errors(tmp_path):
         pack_folder(tmp_path, name="harbour")
     with pytest.raises(ValueError, match="format"):
         pack_folder(tmp_path, name="quay", format="tiff")
+
+
+def test_packed_sheet_gutters_keep_a_real_mip_chain_clean(tmp_path):
+    # Common practice (flipbook texture conventions): a gutter of 2^k px keeps
+    # mip level k from mixing two cells when each cell is dilated on its own.
+    # pack goes through the render's cell encoder. The mip chain is Pillow's
+    # 2 x 2 box reduction of the sheet read back from disk, level by level, of
+    # each channel on its own: texture hardware averages straight-alpha texels
+    # as stored (Pillow's RGBA reduce would weight colour by alpha).
+    from PIL import Image
+
+    frames = np.zeros((2, 16, 16, 4), np.float32)
+    frames[0, 7:9, 1:3] = (0.8, 0.0, 0.0, 0.8)  # a red dot at frame 0's left edge
+    frames[1, 3:5, 0:2] = (0.0, 0.0, 0.6, 0.6)  # a blue dot at frame 1's left edge
+    for k in range(2):
+        write_png(tmp_path / f"dots.{k:04d}.png", frames[k])
+    written = pack_folder(tmp_path, columns=2, padding=4)
+    level = Image.open(written[0]).convert("RGBA").split()[:3]
+    assert level[0].size == (48, 24)  # exactly 2 cells of 16 + 2 x 4
+    for k in range(3):  # levels 0, 1, 2: texels 1, 2 and 4 px of the sheet
+        rgb = np.stack([np.asarray(c, dtype=np.int32) for c in level], axis=-1)
+        half = rgb.shape[1] // 2
+        assert (rgb[:, :half, 0] > 0).all() and (rgb[:, :half, 2] == 0).all(), k  # cell 0: red only
+        assert (rgb[:, half:, 2] > 0).all() and (rgb[:, half:, 0] == 0).all(), k  # cell 1: blue only
+        level = [c.reduce(2) for c in level]

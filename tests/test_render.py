@@ -1,5 +1,6 @@
 """End to end: determinism, frame ranges, exact loops, crossfades, framing of the demos."""
 
+import json
 from pathlib import Path
 
 import numpy as np
@@ -43,6 +44,7 @@ def test_frame_range_matches_full_render_and_may_run_past_the_end(tmp_path):
     look = load_look(write_look(tmp_path, SMALL_PLUME))
     full = digests(quiet_render(look, tmp_path / "full").out_dir)
     part = digests(quiet_render(look, tmp_path / "part", frames=range(4, 7)).out_dir)
+    assert json.loads((tmp_path / "part" / "small_plume.render.json").read_text())["frames"] == [4, 5, 6]
     assert part == {k: full[k] for k in part}
     assert sorted(part) == [f"small_plume.{f:04d}.{e}" for f in (4, 5, 6) for e in ("exr", "png")]
     # Past the clip's end the simulation simply continues.

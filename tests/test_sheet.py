@@ -56,21 +56,55 @@ def test_columns_or_rows_given():
         sheet_layout(10, 8, 8, columns=3, rows=3)
 
 
-@pytest.mark.parametrize("fw, fh, pad, n", [(100, 60, 0, 7), (37, 53, 3, 12), (256, 256, 2, 64), (9, 8, 1, 3)])
-def test_sizes_multiple_of_4_and_pow2(fw, fh, pad, n):
-    # Block compression wants multiples of 4; pow2 wants powers of two (common practice).
-    lay = sheet_layout(n, fw, fh, padding=pad)
-    assert lay.width % 4 == 0 and lay.height % 4 == 0
-    assert lay.width >= lay.columns * (fw + 2 * pad) and lay.width - lay.columns * (fw + 2 * pad) < 4
-    assert all(c.w == fw and c.h == fh for c in lay.cells)
-    # padding on every side: content starts pad px into its cell
-    assert lay.cells[0].x == pad and lay.cells[0].y == pad
-    p2 = sheet_layout(n, fw, fh, padding=pad, pow2=True)
-    for s, grid in ((p2.width, p2.columns * fw), (p2.height, p2.rows * fh)):
-        assert s & (s - 1) == 0 and s >= grid and s // 2 < grid
-    for c in p2.cells:  # content fits inside the sheet, cells do not overlap
-        assert c.x + c.w + pad <= p2.width and c.y + c.h + pad <= p2.height
-        assert c.w == p2.width // p2.columns - 2 * pad
+@pytest.mark.parametrize("fw, fh, pad, n", [(100, 60, 0, 7), (37, 53, 3, 12), (256, 256, 2, 64), (9, 8, 1, 3),
+                                             (256, 256, 1, 6)])
+def test_sheet_is_exactly_columns_by_cells(fw, fh, pad, n):
+    # Common practice: an engine plays cell k at (uv + (k mod C, k // C)) / (C, R),
+    # so the sheet must be exactly C cells by R cells (padding inside each cell),
+    # with no extra rows or columns of texels at the right or bottom.
+    lay = sheet_layout(n, fw, fh, padding=pad, columns=3 if n == 6 else None)
+    assert (lay.cell_width, lay.cell_height) == (fw + 2 * pad, fh + 2 * pad)
+    assert (lay.width, lay.height) == (lay.columns * lay.cell_width, lay.rows * lay.cell_height)
+    for k, c in enumerate(lay.cells):
+        # the content's cell, as the engine computes it from uv alone
+        u0 = (k % lay.columns) / lay.columns * lay.width
+        v0 = (k // lay.columns) / lay.rows * lay.height
+        assert (c.x - pad, c.y - pad) == (u0, v0) and (c.w, c.h) == (fw, fh)
+    if n == 6:  # pack --columns 3 --padding 1 of 256 px frames: 3 x 258, not 776
+        assert (lay.width, lay.height) == (774, 516)
+
+
+@pytest.mark.parametrize("n", [1, 2, 3, 5, 7, 16, 31, 32, 33, 48, 64, 100])
+@pytest.mark.parametrize("fw, fh, pad", [(256, 256, 0), (256, 128, 0), (128, 128, 2), (100, 60, 1), (252, 252, 2)])
+def test_pow2_sheets_have_whole_cells_and_keep_frames_unscaled_when_they_can(n, fw, fh, pad):
+    # A power-of-two sheet (common practice for block-compressed, mipmapped
+    # textures) whose width divides into whole cells: C and R are powers of two.
+    lay = sheet_layout(n, fw, fh, padding=pad, pow2=True)
+    for size, count, cell in ((lay.width, lay.columns, lay.cell_width), (lay.height, lay.rows, lay.cell_height)):
+        assert size & (size - 1) == 0 and count & (count - 1) == 0 and size == count * cell
+    assert lay.columns * lay.rows == 1 << (n - 1).bit_length()  # the fewest cells: the next power of two >= n
+    pow2_cell = all(((s + 2 * pad) & (s + 2 * pad - 1)) == 0 for s in (fw, fh))
+    assert lay.resampled == (not pow2_cell)
+    if pow2_cell:
+        assert all((c.w, c.h) == (fw, fh) for c in lay.cells)
+    for c in lay.cells:
+        assert c.x - pad == (c.frame % lay.columns) * lay.cell_width
+
+
+def test_pow2_cases_from_the_issue():
+    # 32 frames of 256 px: an unscaled 8 x 4 grid in 2048 x 1024 (was 6 x 6 with frames upscaled to 337)
+    lay = sheet_layout(32, 256, 256, pow2=True)
+    assert (lay.columns, lay.rows, lay.width, lay.height, lay.resampled) == (8, 4, 2048, 1024, False)
+    # 48 frames: 8 x 8 whole 256 px cells (was 7 x 7 cells of 292.57 px, frames upscaled to 288)
+    lay = sheet_layout(48, 256, 256, pow2=True)
+    assert (lay.columns, lay.rows, lay.width, lay.cell_width, lay.resampled) == (8, 8, 2048, 256, False)
+    # With a 2 px gutter, 260 px cells cannot tile a power of two: the nearest
+    # power of two, 256, is taken and frames shrink to 252 px (1.6 %), not grow to 508.
+    lay = sheet_layout(32, 256, 256, pow2=True, padding=2)
+    assert (lay.width, lay.height, lay.cell_width, lay.cells[0].w, lay.resampled) == (2048, 1024, 256, 252, True)
+    with pytest.raises(ValueError, match="columns: a power-of-two sheet needs a power of two"):
+        sheet_layout(32, 256, 256, pow2=True, columns=6)
+    assert (sheet_layout(48, 256, 256, pow2=True, columns=16).rows) == 4
 
 
 def test_cells_equal_frames():
@@ -136,14 +170,15 @@ def test_dilation_prevents_black_fringe_in_mips(tmp_path, dilated):
 
 
 def test_pow2_resamples_into_cells():
-    # 5 frames of 100 x 60 -> grid 3 x 2 = 300 x 120 -> 512 x 128, cells 170 x 64.
+    # 5 frames of 100 x 60 with a 1 px gutter want 102 x 62 cells: the nearest
+    # powers of two are 128 x 64; 8 cells, the squarest sheet is 2 x 4 = 256 x 256.
     frames = [np.full((60, 100, 4), 0.5, np.float32) for _ in range(5)]
     lay = sheet_layout(5, 100, 60, pow2=True, padding=1)
-    assert (lay.width, lay.height, lay.cell_width, lay.cell_height) == (512, 128, 170, 64)
+    assert (lay.width, lay.height, lay.cell_width, lay.cell_height, lay.columns) == (256, 256, 128, 64, 2)
     assert lay.resampled
     sheet = assemble_sheet(frames, lay)
     c = lay.cells[4]
-    assert (c.w, c.h) == (168, 62)
+    assert (c.w, c.h) == (126, 62)
     # an interpolating filter keeps a constant image constant (resampling
     # filters normalise their Lanczos weights to sum to 1: common practice, from memory)
     np.testing.assert_allclose(sheet[c.y : c.y + c.h, c.x : c.x + c.w], 0.5, atol=1e-5)
@@ -162,14 +197,14 @@ def test_metadata_json(tmp_path):
                         maps={"motion": motion, "normal": normal, "lightdirs": light})
     meta = json.loads(open(paths[1]).read())
     assert meta["version"] == 1 and meta["image"] == "chimney.sheet.png"
-    assert (meta["width"], meta["height"], meta["columns"], meta["rows"], meta["frames"]) == (56, 36, 3, 2, 6)
+    assert (meta["width"], meta["height"], meta["columns"], meta["rows"], meta["frames"]) == (54, 36, 3, 2, 6)
     assert meta["alpha"] == "straight" and meta["color"] == "srgb" and meta["fps"] == 25 and meta["loop"] == "crossfade"
     assert meta["cells"][4] == {"frame": 4, "x": 19, "y": 19, "w": 16, "h": 16}
     assert meta["maps"]["motion"]["file"] == "chimney.motion.sheet.png" and meta["maps"]["motion"]["scale"] == 0.05
     assert meta["maps"]["normal"]["convention"] == "+y up"
     for entry in (meta["maps"]["motion"], meta["maps"]["normal"]):
         codes, info = read_png(tmp_path / entry["file"])
-        assert info["srgb"] is None and codes.shape[:2] == (36, 56)  # data, not colour
+        assert info["srgb"] is None and codes.shape[:2] == (36, 54)  # data, not colour
     assert [read_png(tmp_path / f)[0].shape[2] for f in light["files"]] == [3, 3]
 
 
@@ -197,7 +232,7 @@ def test_errors(tmp_path):
     with pytest.raises(ValueError, match=r"frames\[1\]"):
         assemble_sheet([np.zeros((8, 8, 4)), np.zeros((8, 9, 4))], lay)
     with pytest.raises(ValueError, match="padding"):
-        sheet_layout(4, 8, 8, padding=4, pow2=True)
+        sheet_layout(4, 8, 8, padding=4, cell=8)
     with pytest.raises(ValueError, match="n_frames"):
         sheet_layout(0, 8, 8)
     with pytest.raises(ValueError, match="loop"):

@@ -65,9 +65,12 @@ def atomic_path(path, *, suffix: str | None = None):
     try:
         yield tmp
         os.replace(tmp, path)
-    except BaseException:
+    except BaseException as err:
         with contextlib.suppress(OSError):
             os.remove(tmp)
+        if isinstance(err, OSError) and tmp in (err.filename, err.filename2):
+            # Name the file the caller asked for, not the hidden temporary one.
+            raise type(err)(err.errno, err.strerror, path) from None
         raise
 
 

@@ -27,9 +27,8 @@ from typing import Iterable, List
 from splatter.look.records import LookSpec
 
 __all__ = [
-    "FRAME_FILE", "frame_file", "sheet_file", "sheet_meta_file", "map_sheet_file", "map_frame_file", "map_files",
-    "LIGHTDIR_SHEETS",
-    "preview_file", "planned_files",
+    "FRAME_FILE", "file_stem", "frame_file", "sheet_file", "sheet_meta_file", "map_sheet_file", "map_frame_file",
+    "map_files", "LIGHTDIR_SHEETS", "preview_file", "manifest_file", "planned_files",
 ]
 
 FRAME_FILE = re.compile(r"^(?P<name>[^.]+)\.(?P<frame>\d{4,})\.(?P<ext>png|exr)$")
@@ -37,6 +36,20 @@ FRAME_FILE = re.compile(r"^(?P<name>[^.]+)\.(?P<frame>\d{4,})\.(?P<ext>png|exr)$
 
 LIGHTDIR_SHEETS = ("lightdirs_pos", "lightdirs_neg")
 """The two light-direction maps: light from the camera's +x, +y, +z sides, and from -x, -y, -z."""
+
+
+def file_stem(look: LookSpec) -> str:
+    """The look's ``output.stem`` with ``{name}`` and ``{seed}`` filled in: the start of every file name.
+
+    Examples
+    --------
+    >>> from splatter.look.records import LookSpec, OutputSpec
+    >>> file_stem(LookSpec(name="quay_dust", seed=7))
+    'quay_dust'
+    >>> file_stem(LookSpec(name="quay_dust", seed=7, output=OutputSpec(stem="{name}_s{seed}")))
+    'quay_dust_s7'
+    """
+    return look.output.stem.format(name=look.name, seed=look.seed)
 
 
 def frame_file(name: str, frame: int, ext: str) -> str:
@@ -74,6 +87,11 @@ def preview_file(name: str, kind: str) -> str:
     return f"{name}.contact.png" if kind == "contact" else f"{name}.preview.{kind}"
 
 
+def manifest_file(name: str) -> str:
+    """``{name}.render.json``: the render's manifest (see :mod:`splatter.deliver.folder`)."""
+    return f"{name}.render.json"
+
+
 def planned_files(look: LookSpec, out_dir: str, frames: Iterable[int]) -> List[str]:
     """The paths a render of ``frames`` writes, in the order ``check`` lists them.
 
@@ -89,7 +107,7 @@ def planned_files(look: LookSpec, out_dir: str, frames: Iterable[int]) -> List[s
     -------
     list of str
     """
-    name, out = look.name, look.output
+    name, out = file_stem(look), look.output
     frames = list(frames)
     files = [frame_file(name, f, ext) for ext in out.frames for f in frames]
     if out.sheet is not None and frames:
@@ -101,4 +119,5 @@ def planned_files(look: LookSpec, out_dir: str, frames: Iterable[int]) -> List[s
         files += [map_frame_file(name, part, f) for m in out.maps for part in map_files(m) for f in frames]
     if frames:
         files += [preview_file(name, p) for p in out.preview]
+    files.append(manifest_file(name))
     return [os.path.join(out_dir, f) for f in files]

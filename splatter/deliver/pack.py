@@ -9,6 +9,8 @@ The sheet is written by :func:`splatter.deliver.sheet.write_sheet`.
 
 from __future__ import annotations
 
+import contextlib
+import json
 import os
 
 import numpy as np
@@ -16,9 +18,10 @@ import OpenEXR
 from PIL import Image
 
 from splatter.core.args import check_choice
-from splatter.core.choices import FRAME_FORMATS
+from splatter.core.choices import FRAME_FORMATS, LOOP_MODES
 from splatter.deliver.exr import read_exr
-from splatter.deliver.names import FRAME_FILE
+from splatter.deliver.folder import note_files, read_manifest
+from splatter.deliver.names import FRAME_FILE, manifest_file, sheet_meta_file
 from splatter.deliver.png import read_png_linear
 from splatter.deliver.sheet import sheet_layout, write_sheet
 
@@ -27,7 +30,11 @@ __all__ = ["find_frames", "pack_folder"]
 
 
 def find_frames(folder, *, name=None, ext=None):
-    """Find the numbered frames in a folder.
+    """Find the numbered frames in a folder; where a render manifest lists them, only those.
+
+    Frame files that the manifest ``{name}.render.json`` of their name does
+    not list as complete (left by another take, or by an interrupted write)
+    are ignored.
 
     Parameters
     ----------
@@ -75,6 +82,13 @@ def find_frames(folder, *, name=None, ext=None):
     elif ext not in kinds:
         raise ValueError(f"format: no {ext.upper()} frames of {name!r} in {folder!r} (found {', '.join(kinds)})")
     frames = found[(name, ext)]
+    manifest = read_manifest(folder, name)
+    if manifest is not None:
+        listed = set(manifest.get("frames", []))
+        frames = {k: v for k, v in frames.items() if k in listed}
+        if not frames:
+            raise ValueError(f"folder: no {ext.upper()} frames of {name!r} that {manifest_file(name)} lists as "
+                             f"complete in {folder!r}")
     first, last = min(frames), max(frames)
     missing = [k for k in range(first, last + 1) if k not in frames]
     if missing:
@@ -110,8 +124,8 @@ def _read(path, ext):
     return out
 
 
-def pack_folder(folder, *, name=None, columns=None, rows=None, padding=0, pow2=False, format=None, fps=30,
-                loop="none"):
+def pack_folder(folder, *, name=None, columns=None, rows=None, padding=0, pow2=False, format=None, fps=None,
+                loop=None, force=False):
     """Build ``{name}.sheet.{png|exr}`` and ``{name}.sheet.json`` from numbered frames.
 
     Parameters
@@ -126,10 +140,18 @@ def pack_folder(folder, *, name=None, columns=None, rows=None, padding=0, pow2=F
         Sheet format. Default: that of the frames; when both PNG and EXR
         frames exist the EXR frames are read and a PNG sheet is written.
         PNG sheets from 16-bit PNG frames are 16-bit.
-    fps : float
-        Stored in the metadata.
-    loop : {"none", "exact", "crossfade"}
-        Stored in the metadata.
+    fps : float, optional
+        Stored in the metadata. Default: that of the sheet metadata already
+        in the folder, else the render manifest's, else 30.
+    loop : {"none", "exact", "crossfade"}, optional
+        Stored in the metadata. Default: the render manifest's clip loop when
+        the frames packed are the whole clip, else that of the sheet metadata
+        already in the folder when it holds the same frames, else "none".
+    force : bool
+        Overwrite a sheet whose metadata lists map sheets when the new layout
+        differs from theirs: the map sheets are removed (they would no longer
+        match). Without it that is refused; with the same layout the map
+        entries are kept.
 
     Returns
     -------
@@ -140,10 +162,14 @@ def pack_folder(folder, *, name=None, columns=None, rows=None, padding=0, pow2=F
     ------
     ValueError
         Empty folder, several names, gaps in the numbering, frames of
-        different sizes, bad layout options.
+        different sizes, bad layout options, map sheets a new layout would
+        leave wrong (without ``force``).
     """
     if format is not None:
         check_choice(format, "format", FRAME_FORMATS)
+    if loop is not None:
+        check_choice(loop, "loop", LOOP_MODES)
+    folder = os.fspath(folder)
     name, ext, paths = find_frames(folder, name=name)
     kinds = {e for e in FRAME_FORMATS if os.path.exists(paths[0][: -len(ext)] + e)}
     out_format = format or (ext if len(kinds) == 1 else "png")
@@ -160,10 +186,54 @@ def pack_folder(folder, *, name=None, columns=None, rows=None, padding=0, pow2=F
     png_bits = 8
     if ext == "png" and out_format == "png":
         png_bits = 16 if any(read_png_depth(p) == 16 for p in paths) else 8
-    layout = sheet_layout(len(paths), fw, fh, columns=columns, rows=rows, padding=padding, pow2=pow2)
+    numbers = [int(FRAME_FILE.match(os.path.basename(p))["frame"]) for p in paths]
+    layout = sheet_layout(len(paths), fw, fh, columns=columns, rows=rows, padding=padding, pow2=pow2,
+                          numbers=numbers)
+    fps, loop, maps, drop = _kept_metadata(folder, name, layout, numbers, fps, loop, force)
     frames = (_read(p, ext) for p in paths)  # one at a time: memory O(sheet)
-    return write_sheet(os.fspath(folder), name, frames, layout, format=out_format, png_bits=png_bits, fps=fps,
-                       loop=loop)
+    written = write_sheet(folder, name, frames, layout, format=out_format, png_bits=png_bits, fps=fps, loop=loop,
+                          maps=maps)
+    for f in drop:
+        with contextlib.suppress(FileNotFoundError):
+            os.remove(os.path.join(folder, f))
+    note_files(folder, name, added=written, removed=drop)
+    return written
+
+
+def _kept_metadata(folder, name, layout, numbers, fps, loop, force):
+    """fps, loop and map entries for the new sheet, from what the folder already says; map files to remove."""
+    old = None
+    with contextlib.suppress(OSError, ValueError):
+        with open(os.path.join(folder, sheet_meta_file(name)), encoding="utf-8") as f:
+            old = json.load(f)
+    if not isinstance(old, dict):
+        old = None
+    manifest = read_manifest(folder, name)
+    if fps is None:
+        fps = (old or {}).get("fps") or (manifest or {}).get("fps") or 30.0
+    if loop is None:
+        loop = "none"
+        if manifest is not None and numbers == list(range(manifest.get("clip_frames", -1))):
+            loop = manifest.get("loop", "none")
+        elif old is not None and [c.get("frame") for c in old.get("cells", [])] == numbers:
+            loop = old.get("loop", "none")
+    maps = dict((old or {}).get("maps") or {})
+    drop = []
+    if maps:
+        new = layout.to_json()
+        if all(old.get(k) == v for k, v in new.items() if k != "resampled"):
+            return fps, loop, maps, drop
+        if not force:
+            raise ValueError(
+                f"{sheet_meta_file(name)} lists map sheets ({', '.join(sorted(maps))}) laid out as "
+                f"{old.get('columns')} x {old.get('rows')} cells of {old.get('cell_width')} x {old.get('cell_height')} "
+                f"px; the new layout ({layout.columns} x {layout.rows} cells of {layout.cell_width} x "
+                f"{layout.cell_height} px) would leave them wrong. Pack with the same layout to keep them, or pass "
+                "--force to write the sheet without them (the map sheets are removed)")
+        for entry in maps.values():
+            drop += [f for f in entry.get("files", [entry.get("file")]) if isinstance(f, str) and "/" not in f]
+        maps = {}
+    return fps, loop, maps, drop
 
 
 def read_png_depth(path):

@@ -6,15 +6,23 @@ Frames fill the sheet row by row from the top-left: frame ``k`` sits in column
 ``k mod C`` and row ``k // C``. By default the grid is the smallest near-square
 one that holds every frame (``C = ceil(sqrt(n))``, ``R = ceil(n / C)``).
 
-* Without ``pow2`` each cell is the frame plus ``padding`` pixels on every
-  side; the sheet is ``C x R`` cells, rounded up to a multiple of 4 pixels
-  (for block compression; the extra space is at the right and bottom).
-* With ``pow2`` the sheet's width and height are the smallest powers of two
-  at least the unpadded grid size (``C * frame_w`` by ``R * frame_h``); each
-  cell is ``sheet // C`` by ``sheet // R`` and a frame whose size differs from
-  the cell's inner area (cell minus padding) is resampled into it with a
+* Each cell is the frame plus ``padding`` pixels on every side (or ``cell``
+  pixels wide when given, padding included), and the sheet is exactly
+  ``C x cell_width`` by ``R x cell_height``: an engine that plays cell ``k``
+  at ``(uv + (k mod C, k // C)) / (C, R)`` (common practice) lands on cell
+  boundaries. Block compression wants a cell size that is a multiple of 4
+  (``256 + 2 x 2 = 260`` is; ``256 + 2 x 1 = 258`` is not).
+* With ``pow2`` the grid and cells are chosen so that the sheet's width and
+  height are powers of two and every cell is a whole number of pixels, which
+  makes ``C`` and ``R`` powers of two. When the cell wanted (frame plus
+  padding) is a power of two on an axis, frames keep their size on it
+  (32 frames of 256 px, no padding: 8 x 4 cells in 2048 x 1024). Otherwise
+  the cell on that axis is the power of two nearest to it (on a log scale,
+  ties go up) and frames are resampled into the cell's content area with a
   Lanczos filter (Pillow, ``a = 3``), per channel on premultiplied linear
-  float values.
+  float values; the metadata says ``"resampled": true``. Of the grids with
+  the fewest cells, the one whose sheet is closest to square is taken (then
+  the wider one).
 
 Padding texels belong to their cell. In straight-alpha PNG sheets every
 transparent texel (padding included) takes the colour of the nearest covered
@@ -60,16 +68,13 @@ and ``lightdirs_neg`` (-x, -y, -z) with their relighting formula.
 
 from __future__ import annotations
 
-import dataclasses
 import json
-import math
 import os
-from typing import NamedTuple
 
 import numpy as np
 from PIL import Image
 
-from splatter.core.args import check_choice, check_int, check_positive
+from splatter.core.args import check_choice, check_positive
 from splatter.core.choices import (
     EXR_TYPES,
     FRAME_FORMATS,
@@ -77,6 +82,7 @@ from splatter.core.choices import (
     PNG_ALPHAS,
     PNG_BITS,
 )
+from splatter.core.sheet_grid import Cell, SheetLayout, sheet_layout
 from splatter.deliver.dilate import dilate_colour
 from splatter.deliver.display import quantize, to_display
 from splatter.deliver.exr import rgba_channels, write_exr
@@ -90,167 +96,10 @@ __all__ = [
     "sheet_layout",
     "assemble_sheet",
     "write_sheet",
-    "write_map_sheet",
-    "write_lightdirs_sheets",
     "SCHEMA_VERSION",
 ]
 
 SCHEMA_VERSION = 1
-
-
-class Cell(NamedTuple):
-    """Content rectangle of one frame in the sheet, pixels from the top-left."""
-
-    frame: int
-    x: int
-    y: int
-    w: int
-    h: int
-
-
-@dataclasses.dataclass(frozen=True)
-class SheetLayout:
-    """Where every frame goes in a sprite sheet (see the module docstring).
-
-    Attributes
-    ----------
-    frames : int
-        Number of frames.
-    frame_width, frame_height : int
-        Size of the source frames.
-    columns, rows : int
-        Grid size.
-    padding : int
-        Gutter on each side of a cell's content.
-    pow2 : bool
-        Sheet sized to powers of two.
-    width, height : int
-        Sheet size in pixels.
-    cell_width, cell_height : int
-        Cell size (content plus padding).
-    cells : tuple of Cell
-        Content rectangle of each frame, in frame order.
-    """
-
-    frames: int
-    frame_width: int
-    frame_height: int
-    columns: int
-    rows: int
-    padding: int
-    pow2: bool
-    width: int
-    height: int
-    cell_width: int
-    cell_height: int
-    cells: tuple
-
-    @property
-    def resampled(self) -> bool:
-        """True when frames are resampled to fit the cells' content area."""
-        c = self.cells[0]
-        return (c.w, c.h) != (self.frame_width, self.frame_height)
-
-    def to_json(self) -> dict:
-        """The layout part of the metadata (plain JSON types)."""
-        return {
-            "width": self.width,
-            "height": self.height,
-            "columns": self.columns,
-            "rows": self.rows,
-            "frames": self.frames,
-            "frame_width": self.frame_width,
-            "frame_height": self.frame_height,
-            "cell_width": self.cell_width,
-            "cell_height": self.cell_height,
-            "padding": self.padding,
-            "pow2": self.pow2,
-            "resampled": self.resampled,
-            "cells": [c._asdict() for c in self.cells],
-        }
-
-
-def _round_up(n, m):
-    return -(-n // m) * m
-
-
-def _next_pow2(n):
-    return 1 << max(0, (int(n) - 1).bit_length())
-
-
-def sheet_layout(n_frames, frame_w, frame_h, *, columns=None, rows=None, padding=0, pow2=False, cell=None):
-    """Compute the grid, sheet size and cell rectangles for a flipbook.
-
-    Parameters
-    ----------
-    n_frames : int
-        Number of frames, >= 1.
-    frame_w, frame_h : int
-        Frame size in pixels.
-    columns, rows : int, optional
-        Grid size; a missing one is derived from the other, both missing give
-        the near-square default ``columns = ceil(sqrt(n))``,
-        ``rows = ceil(n / columns)``. ``columns * rows`` must hold every frame.
-    padding : int
-        Gutter in pixels on each side of every cell's content, >= 0.
-    pow2 : bool
-        Power-of-two sheet; frames are resampled into the cells when needed.
-    cell : int, optional
-        Cell width in pixels, padding included; the cell height follows the
-        frame's aspect. Frames are resampled to fit (for example 512 px
-        frames in 256 px cells). Default: the frame plus its padding.
-
-    Returns
-    -------
-    SheetLayout
-
-    Examples
-    --------
-    64 frames of 256 px with a 2 px gutter fill an 8 x 8 grid row by row from
-    the top-left, so frame 10 sits in column 2 of row 1:
-
-    >>> layout = sheet_layout(64, 256, 256, columns=8, padding=2)
-    >>> layout.columns, layout.rows, layout.width, layout.height
-    (8, 8, 2080, 2080)
-    >>> layout.cells[10]
-    Cell(frame=10, x=522, y=262, w=256, h=256)
-    """
-    n = check_int(n_frames, "n_frames")
-    fw = check_int(frame_w, "frame_w")
-    fh = check_int(frame_h, "frame_h")
-    pad = check_int(padding, "padding", minimum=0)
-    if columns is None and rows is None:
-        cols = math.isqrt(n - 1) + 1 if n > 1 else 1  # ceil(sqrt(n)), exact in integers
-        rws = -(-n // cols)
-    elif rows is None:
-        cols = check_int(columns, "columns")
-        rws = -(-n // cols)
-    elif columns is None:
-        rws = check_int(rows, "rows")
-        cols = -(-n // rws)
-    else:
-        cols = check_int(columns, "columns")
-        rws = check_int(rows, "rows")
-        if cols * rws < n:
-            raise ValueError(f"columns, rows: a {cols} x {rws} grid holds {cols * rws} frames, need {n}")
-    if cell is not None:
-        cw = check_int(cell, "cell")
-        ch = max(1, round(cw * fh / fw))
-        sw, sh = cols * cw, rws * ch
-    else:
-        cw, ch = fw + 2 * pad, fh + 2 * pad
-        sw, sh = cols * fw, rws * fh
-    if pow2:
-        width = max(4, _next_pow2(sw))
-        height = max(4, _next_pow2(sh))
-        cw, ch = width // cols, height // rws
-    else:
-        width, height = _round_up(cols * cw, 4), _round_up(rws * ch, 4)
-    iw, ih = cw - 2 * pad, ch - 2 * pad
-    if iw < 1 or ih < 1:
-        raise ValueError(f"padding: {pad} px on each side leaves no room in a {cw} x {ch} cell")
-    cells = tuple(Cell(k, (k % cols) * cw + pad, (k // cols) * ch + pad, iw, ih) for k in range(n))
-    return SheetLayout(n, fw, fh, cols, rws, pad, bool(pow2), width, height, cw, ch, cells)
 
 
 def _resample(frame, w, h):
@@ -387,7 +236,7 @@ def write_sheet(
     loop : {"none", "exact", "crossfade"}
         Stored in the metadata.
     maps : dict of str to dict, optional
-        Map entries returned by :func:`write_map_sheet` (or
+        Map entries returned by :mod:`splatter.deliver.map_sheets` (or
         :func:`write_lightdirs_sheets`), stored under ``"maps"``.
     exposure : float
         Stops applied before display encoding (PNG only; EXR stays scene-linear).
@@ -447,6 +296,19 @@ def put_cell_codes(codes, layout, k, frame, *, alpha="straight", png_bits=8, exp
     png_bits : {8, 16}
     exposure : float
     """
+    put_tile(codes, layout, k, encode_cell(layout, k, frame, alpha=alpha, png_bits=png_bits, exposure=exposure))
+
+
+def encode_cell(layout, k, frame, *, alpha="straight", png_bits=8, exposure=0.0):
+    """The PNG codes of frame ``k``'s tile (its cell, gutter included), as :func:`put_cell_codes` places them.
+
+    The tile does not depend on where the cell lies, so a render can keep it
+    and place it later (``render --resume``).
+
+    Returns
+    -------
+    (cell.h + 2 padding, cell.w + 2 padding, 4) uint8 or uint16 ndarray
+    """
     f = np.asarray(frame)
     if f.ndim != 3 or f.shape[:2] != (layout.frame_height, layout.frame_width) or f.shape[2] != 4:
         raise ValueError(f"frames[{k}]: expected shape ({layout.frame_height}, {layout.frame_width}, 4), "
@@ -454,8 +316,13 @@ def put_cell_codes(codes, layout, k, frame, *, alpha="straight", png_bits=8, exp
     cell, pad = layout.cells[k], layout.padding
     tile = np.zeros((cell.h + 2 * pad, cell.w + 2 * pad, 4), dtype=np.float32)
     tile[pad : pad + cell.h, pad : pad + cell.w] = _cell_content(f, cell)
-    codes[cell.y - pad : cell.y + cell.h + pad, cell.x - pad : cell.x + cell.w + pad] = _encode_tile(
-        tile, alpha, png_bits, exposure)
+    return _encode_tile(tile, alpha, png_bits, exposure)
+
+
+def put_tile(codes, layout, k, tile):
+    """Place a tile from :func:`encode_cell` into cell ``k`` of a code sheet."""
+    cell, pad = layout.cells[k], layout.padding
+    codes[cell.y - pad : cell.y + cell.h + pad, cell.x - pad : cell.x + cell.w + pad] = tile
 
 
 def _encode_tile(tile, alpha, png_bits, exposure):

@@ -15,10 +15,11 @@ import os
 import threading
 import time
 from concurrent.futures import Future, ThreadPoolExecutor
-from typing import Dict, List
+from typing import Callable, Dict, List, Optional, Sequence
 
 import numpy as np
 
+from splatter.core.sheet_grid import partial_grid
 from splatter.deliver.exr import rgba_channels, write_exr
 from splatter.deliver.map_frames import is_ranged, write_map_frame, write_ranged_map_frames
 from splatter.deliver.map_sheets import (
@@ -27,7 +28,7 @@ from splatter.deliver.map_sheets import (
     write_motion_sheet,
     write_normal_sheet,
 )
-from splatter.deliver.names import frame_file, preview_file
+from splatter.deliver.names import file_stem, frame_file, preview_file
 from splatter.deliver.png import write_png
 from splatter.deliver.preview import (
     over_checker,
@@ -38,8 +39,9 @@ from splatter.deliver.preview import (
 from splatter.deliver.sheet import (
     empty_codes,
     empty_sheet,
+    encode_cell,
     place_frame,
-    put_cell_codes,
+    put_tile,
     sheet_layout,
     write_sheet_codes,
     write_sheet_image,
@@ -70,6 +72,11 @@ class OutputSink:
         Existing output folder.
     n_frames : int
         How many frames will be added (the sheet's grid is laid out for them).
+    frames : sequence of int, optional
+        The frame numbers that will be added, in order (default ``0 ..
+        n_frames - 1``). The sheet's cells carry them, and a sheet that does
+        not hold the whole clip ``0 .. clip.frames - 1`` is laid out for the
+        frames it holds and says ``loop: "none"`` (it does not loop).
 
     Notes
     -----
@@ -81,12 +88,20 @@ class OutputSink:
     and depth map PNGs, keep their layers and the frames' alpha until the end,
     since their encodings use clip-wide ranges (without a sheet only motion and
     depth layers are kept).
+
+    :attr:`on_frame`, when set, is called on the writer thread once a
+    frame's files are in place, with the frame number, the paths written
+    and the frame's share of the sheets, previews and clip-wide map files (a
+    dict of arrays that :meth:`add_kept` takes back): a render keeps it so
+    ``--resume`` can skip the frame.
     """
 
-    def __init__(self, look: LookSpec, out_dir: str, n_frames: int):
+    def __init__(self, look: LookSpec, out_dir: str, n_frames: int, frames: Optional[Sequence[int]] = None):
         self.look = look
         self.out_dir = out_dir
         self.n_frames = n_frames
+        self.numbers = list(range(n_frames)) if frames is None else [int(f) for f in frames]
+        self.whole_clip = self.numbers == list(range(look.clip.frames))
         self.files: List[str] = []
         self.write_seconds = 0.0
         self._lock = threading.Lock()
@@ -99,52 +114,85 @@ class OutputSink:
         self._anim: List[np.ndarray] = []
         self._thumbs: List[np.ndarray] = []
         self._frame_numbers: List[int] = []
+        self.on_frame: Optional[Callable[[int, List[str], Dict[str, np.ndarray]], None]] = None
 
     # ------------------------------------------------------------ per frame
 
     def add(self, frame: int, rgba: np.ndarray, layers: Dict[str, np.ndarray]) -> None:
         """Queue one frame: premultiplied linear ``rgba (H, W, 4) float32`` and straight map ``layers``."""
-        out = self.look.output
-        index = len(self._frame_numbers)
-        self._frame_numbers.append(frame)
-        if out.sheet is not None:
-            if self._layout is None:
-                spec = out.sheet
-                h, w = rgba.shape[:2]
-                self._layout = sheet_layout(max(self.n_frames, 1), w, h, columns=spec.columns, rows=spec.rows,
-                                            padding=spec.padding, pow2=spec.pow2, cell=spec.cell)
-                if spec.format == "png":  # encoded cell by cell as frames arrive: memory one 8/16-bit sheet
-                    self._sheet = empty_codes(self._layout, out.png_bits)
-                else:
-                    self._sheet = empty_sheet(self._layout, 4)
-        # Map sheets, and the motion and depth map frames, are encoded with clip-wide
-        # ranges at the end; without a sheet only those layers are kept.
-        keep = {k: v for k, v in layers.items() if out.sheet is not None or (out.map_frames and is_ranged(k))}
+        index = self._start(frame, rgba.shape[:2])
+        keep = self._kept_layers(layers)
         if keep:
             self._sheet_alpha.append(rgba[..., 3])
             for k, v in keep.items():
                 self._sheet_layers.setdefault(k, []).append(v)
+        self._submit(self._take_frame, index, frame, rgba, layers)
+
+    def add_kept(self, frame: int, kept: Dict[str, np.ndarray]) -> None:
+        """Queue one frame an earlier run of the same render finished (``render --resume``).
+
+        ``kept`` is what :attr:`on_frame` was given for it: its frame files
+        exist, so only its share of the sheets and previews is merged, which
+        gives the same bytes as rendering it again.
+        """
+        index = self._start(frame, tuple(kept["shape"]))
+        names = [k[len("layer:"):] for k in kept if k.startswith("layer:")]
+        if names:
+            self._sheet_alpha.append(kept["alpha"])
+        for k in names:
+            self._sheet_layers.setdefault(k, []).append(kept["layer:" + k])
+        self._submit(self._merge, index, kept)
+
+    def _kept_layers(self, layers: Dict[str, np.ndarray]) -> Dict[str, np.ndarray]:
+        """The map layers kept to the end: all for map sheets; without a sheet the motion
+        and depth layers of ``map_frames``, whose encodings use clip-wide ranges."""
+        out = self.look.output
+        return {k: v for k, v in layers.items() if out.sheet is not None or (out.map_frames and is_ranged(k))}
+
+    def _start(self, frame: int, shape) -> int:
+        """Record ``frame``; lay the sheet out on the first one. Returns its index (its cell)."""
+        out = self.look.output
+        index = len(self._frame_numbers)
+        self._frame_numbers.append(frame)
+        if out.sheet is not None and self._layout is None:
+            spec = out.sheet
+            h, w = int(shape[0]), int(shape[1])
+            n = max(self.n_frames, 1)
+            cols, rows = (spec.columns, spec.rows) if self.whole_clip else partial_grid(
+                n, spec.columns, spec.rows, spec.pow2)
+            self._layout = sheet_layout(n, w, h, columns=cols, rows=rows, padding=spec.padding, pow2=spec.pow2,
+                                        cell=spec.cell, numbers=self.numbers[:n])
+            if spec.format == "png":  # encoded cell by cell as frames arrive: memory one 8/16-bit sheet
+                self._sheet = empty_codes(self._layout, out.png_bits)
+            else:
+                self._sheet = empty_sheet(self._layout, 4)
+        return index
+
+    def _submit(self, fn, *args) -> None:
         while len(self._pending) >= _MAX_PENDING:
             self._pending.pop(0).result()
-        self._pending.append(self._pool.submit(self._take_frame, index, frame, rgba, layers))
+        self._pending.append(self._pool.submit(fn, *args))
 
     def _take_frame(self, index: int, frame: int, rgba: np.ndarray, layers: Dict[str, np.ndarray]) -> None:
         """On the writer thread: everything one frame alone decides."""
         start = time.perf_counter()
         out = self.look.output
-        if out.frames:
-            self._write_frame(frame, rgba, layers)
+        written = self._write_frame(frame, rgba, layers) if out.frames else []
         if out.map_frames and layers:
-            files = write_map_frame(self.out_dir, self.look.name, frame, layers, rgba[..., 3], png_bits=out.png_bits,
-                                    y_down=out.normal_y == "down")
+            files = write_map_frame(self.out_dir, file_stem(self.look), frame, layers, rgba[..., 3],
+                                    png_bits=out.png_bits, y_down=out.normal_y == "down")
             with self._lock:
                 self.files.extend(files)
+            written += files
+        part = {"shape": np.array(rgba.shape[:2])}
         if self._sheet is not None:
             if out.sheet.format == "png":
-                put_cell_codes(self._sheet, self._layout, index, rgba, alpha=out.png_alpha, png_bits=out.png_bits,
-                               exposure=self.look.shading.exposure)
+                part["tile"] = encode_cell(self._layout, index, rgba, alpha=out.png_alpha, png_bits=out.png_bits,
+                                           exposure=self.look.shading.exposure)
             else:
                 place_frame(self._sheet, self._layout, index, rgba)
+                c = self._layout.cells[index]
+                part["tile"] = self._sheet[c.y : c.y + c.h, c.x : c.x + c.w].copy()
         if out.preview:
             exp = self.look.shading.exposure
             if set(out.preview) - {"contact"}:
@@ -152,14 +200,34 @@ class OutputSink:
                 if "mp4" in out.preview and (anim.shape[0] % 2 or anim.shape[1] % 2):
                     # yuv420p needs even sizes: extend with transparent texels (the checker shows).
                     anim = np.pad(anim, ((0, anim.shape[0] % 2), (0, anim.shape[1] % 2), (0, 0)))
-                self._anim.append(over_checker(anim, exposure=exp))
+                part["anim"] = over_checker(anim, exposure=exp)
             if "contact" in out.preview:
-                self._thumbs.append(over_checker(_shrink(rgba, _CONTACT_MAX), exposure=exp))
+                part["thumb"] = over_checker(_shrink(rgba, _CONTACT_MAX), exposure=exp)
+        self._merge(index, part)
+        if self.on_frame is not None:
+            keep = self._kept_layers(layers)
+            if keep:
+                part["alpha"] = rgba[..., 3]
+                part.update(("layer:" + k, v) for k, v in keep.items())
+            self.on_frame(frame, written, part)
         with self._lock:
             self.write_seconds += time.perf_counter() - start
 
-    def _write_frame(self, frame: int, rgba: np.ndarray, layers: Dict[str, np.ndarray]) -> None:
-        out, name = self.look.output, self.look.name
+    def _merge(self, index: int, part: Dict[str, np.ndarray]) -> None:
+        """On the writer thread: put one frame's share into the sheet and previews (frames arrive in order)."""
+        if self._sheet is not None:
+            if self.look.output.sheet.format == "png":
+                put_tile(self._sheet, self._layout, index, part["tile"])
+            else:
+                c = self._layout.cells[index]
+                self._sheet[c.y : c.y + c.h, c.x : c.x + c.w] = part["tile"]
+        if "anim" in part:
+            self._anim.append(part["anim"])
+        if "thumb" in part:
+            self._thumbs.append(part["thumb"])
+
+    def _write_frame(self, frame: int, rgba: np.ndarray, layers: Dict[str, np.ndarray]) -> List[str]:
+        out, name = self.look.output, file_stem(self.look)
         written = []
         for ext in out.frames:
             path = os.path.join(self.out_dir, frame_file(name, frame, ext))
@@ -174,6 +242,7 @@ class OutputSink:
             written.append(path)
         with self._lock:
             self.files.extend(written)
+        return written
 
     # ------------------------------------------------------------ the end
 
@@ -187,7 +256,7 @@ class OutputSink:
         if self._sheet is not None:
             self._write_sheets()
         if self.look.output.map_frames and self._sheet_layers:
-            self.files += write_ranged_map_frames(self.out_dir, self.look.name, self._frame_numbers,
+            self.files += write_ranged_map_frames(self.out_dir, file_stem(self.look), self._frame_numbers,
                                                   self._sheet_layers, self._sheet_alpha,
                                                   png_bits=self.look.output.png_bits)
         if self._frame_numbers and self.look.output.preview:
@@ -203,14 +272,15 @@ class OutputSink:
 
     def _write_sheets(self) -> None:
         look, spec, layout = self.look, self.look.output.sheet, self._layout
-        if len(self._frame_numbers) != layout.frames:
-            raise RuntimeError(f"the sheet was laid out for {layout.frames} frames, {len(self._frame_numbers)} came")
+        if [c.frame for c in layout.cells] != self._frame_numbers:
+            raise RuntimeError(f"the sheet was laid out for frames {[c.frame for c in layout.cells]}, "
+                               f"frames {self._frame_numbers} came")
         w, h = layout.frame_width, layout.frame_height
         layers = self._sheet_layers
         alpha = self._sheet_alpha
         common = dict(format=spec.format, png_bits=look.output.png_bits, exr_type=look.output.exr_type)
         maps = {}
-        d, name = self.out_dir, look.name
+        d, name = self.out_dir, file_stem(look)
         if "motion.x" in layers:
             maps["motion"] = write_motion_sheet(d, name, layout, layers, alpha, w, h, common)
         if "depth.z" in layers:
@@ -224,18 +294,19 @@ class OutputSink:
             for f in entry.get("files", [entry.get("file")]):
                 self.files.append(os.path.join(self.out_dir, f))
         sheet, self._sheet = self._sheet, None
+        loop = look.clip.loop if self.whole_clip else "none"  # a part of a loop does not loop
         if spec.format == "png":
-            self.files += write_sheet_codes(self.out_dir, look.name, sheet, layout, alpha=look.output.png_alpha,
-                                            fps=look.clip.fps, loop=look.clip.loop, maps=maps)
+            self.files += write_sheet_codes(self.out_dir, name, sheet, layout, alpha=look.output.png_alpha,
+                                            fps=look.clip.fps, loop=loop, maps=maps)
             return
         self.files += write_sheet_image(
-            self.out_dir, look.name, sheet, layout, format=spec.format, alpha=look.output.png_alpha,
-            png_bits=look.output.png_bits, exr_type=look.output.exr_type, fps=look.clip.fps, loop=look.clip.loop,
+            self.out_dir, name, sheet, layout, format=spec.format, alpha=look.output.png_alpha,
+            png_bits=look.output.png_bits, exr_type=look.output.exr_type, fps=look.clip.fps, loop=loop,
             maps=maps, exposure=look.shading.exposure,
         )
 
     def _write_previews(self) -> None:
-        look, d, name = self.look, self.out_dir, self.look.name
+        look, d, name = self.look, self.out_dir, file_stem(self.look)
         for kind in look.output.preview:
             path = os.path.join(d, preview_file(name, kind))
             if kind == "gif":

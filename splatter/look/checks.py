@@ -257,6 +257,18 @@ def dir_text(v, ctx):
     return v
 
 
+def stem_text(v, ctx):
+    """A file-name stem: letters, digits, ``_``, ``-`` and the placeholders ``{name}``, ``{seed}``.
+
+    No dots (frame files are ``{stem}.0000.png``, so a dot would make them
+    ambiguous) and no folder separators (the folder is ``output.dir``).
+    """
+    if not isinstance(v, str) or not re.fullmatch(r"(?:[A-Za-z0-9_-]|\{name\}|\{seed\})+", v):
+        ctx.fail("a file-name stem of letters, digits, _ and - with the placeholders {name} and {seed}, "
+                 'no dots or folders (for example "{name}_{seed}")', v)
+    return v
+
+
 def png_bits(v, ctx):
     if isinstance(v, bool) or v not in (8, 16):
         ctx.fail("8 or 16", v)

@@ -56,6 +56,7 @@ from splatter.look.checks import (
     number,
     png_bits,
     ramp,
+    stem_text,
     text_or_number,
     value_range,
     vec3,
@@ -306,6 +307,7 @@ class OutputSpec:
     """What files a render writes (``[output]``)."""
 
     dir: str = key("renders/{name}", dir_text)
+    stem: str = key("{name}", stem_text)  # file-name stem of every file written; {name}, {seed} filled in
     frames: Tuple[str, ...] = key(("png",), list_of(*FRAME_FORMATS))
     png_bits: int = key(8, png_bits)
     png_alpha: str = key("straight", choice(*PNG_ALPHAS))

@@ -22,9 +22,12 @@ from __future__ import annotations
 import difflib
 import math
 import re
+import warnings
 from dataclasses import fields
 from typing import Any, Callable, Dict, Optional
 
+from splatter.core.errors import LookWarning
+from splatter.core.sheet_grid import sheet_layout
 from splatter.look import records as L
 from splatter.look.checks import Ctx, choice, describe, key_text
 from splatter.look.records import MAX_LIVE_PUFFS, MAX_SHEET
@@ -146,6 +149,29 @@ def build_spec(data: Dict[str, Any], origin: Callable, *, default_name: str, pat
     return spec
 
 
+def _warn_inherited_grid(spec: L.LookSpec, ctx: Ctx, lay) -> None:
+    """Warn when a sheet grid pieced together from several files (or ``--set``) leaves cells empty.
+
+    A derived look's ``sheet = { columns = 4 }`` keeps the base's ``rows = 8``
+    (tables merge key by key), and a ``clip.frames`` set elsewhere may no
+    longer fill the grid; one file that asks for empty cells means it.
+    """
+    empty = lay.columns * lay.rows - lay.frames
+    sheet = spec.output.sheet
+    if empty <= 0 or sheet.columns is None or sheet.rows is None:
+        return
+    keys = {"output.sheet.columns": ("output", "sheet", "columns"), "output.sheet.rows": ("output", "sheet", "rows"),
+            "clip.frames": ("clip", "frames")}
+    where = {name: ctx.origin(k) for name, k in keys.items()}
+    if len(set(where.values())) == 1:
+        return
+    said = ", ".join(f"{name} = {value} from {where[name]}" for name, value in (
+        ("output.sheet.columns", sheet.columns), ("output.sheet.rows", sheet.rows), ("clip.frames", spec.clip.frames)))
+    warnings.warn(f"output.sheet: the grid is pieced together ({said}): {lay.columns} x {lay.rows} cells for "
+                  f"{lay.frames} frames leaves {empty} cells empty. Set both columns and rows where clip.frames "
+                  "is set, or only columns (rows then follow the frames).", LookWarning, stacklevel=2)
+
+
 def _cross_checks(spec: L.LookSpec, ctx: Ctx) -> None:
     """Checks that need more than one key."""
     if not spec.sources:
@@ -179,15 +205,20 @@ def _cross_checks(spec: L.LookSpec, ctx: Ctx) -> None:
         octx = ctx.child("output").child("sheet")
         if sheet.columns and sheet.rows and sheet.columns * sheet.rows < n:
             octx.child("rows").fail(f"columns x rows >= clip.frames ({n})", f"{sheet.columns} x {sheet.rows}", raw=True)
-        cols = sheet.columns or (math.ceil(n / sheet.rows) if sheet.rows else math.ceil(math.sqrt(n)))
-        rows = sheet.rows or math.ceil(n / cols)
-        cw = sheet.cell or spec.image.width + 2 * sheet.padding
-        ch = max(1, round(sheet.cell * spec.image.height / spec.image.width)) if sheet.cell else (
-            spec.image.height + 2 * sheet.padding)
-        w, h = cols * cw, rows * ch
         if sheet.cell and sheet.cell <= 2 * sheet.padding:
             octx.child("cell").fail(f"a cell wider than twice the padding ({2 * sheet.padding} px)", sheet.cell)
-        if max(w, h) > MAX_SHEET:
-            octx.fail(f"a sheet at most {MAX_SHEET} px on a side", f"{w} x {h} px", raw=True)
+        for flag in ("columns", "rows"):
+            v = getattr(sheet, flag)
+            if sheet.pow2 and v is not None and v & (v - 1):
+                octx.child(flag).fail("a power of two (1, 2, 4, 8 ...) with pow2 = true, so cells are whole pixels",
+                                      v)
+        try:
+            lay = sheet_layout(n, spec.image.width, spec.image.height, columns=sheet.columns, rows=sheet.rows,
+                               padding=sheet.padding, pow2=sheet.pow2, cell=sheet.cell)
+        except ValueError as err:
+            octx.fail("a sheet layout that holds every frame", str(err), raw=True)
+        if max(lay.width, lay.height) > MAX_SHEET:
+            octx.fail(f"a sheet at most {MAX_SHEET} px on a side", f"{lay.width} x {lay.height} px", raw=True)
+        _warn_inherited_grid(spec, ctx, lay)
     if not spec.output.frames and spec.output.sheet is None and not spec.output.preview:
         ctx.child("output").child("frames").fail("something to write: frames, a sheet or a preview", [], raw=False)

@@ -1,0 +1,168 @@
+"""Honest output folders: partial renders, the render manifest, stale files, --resume, pack, file-system errors."""
+
+import json
+
+import pytest
+from lookfiles import SMALL_PLUME, digests, quiet_render, write_look
+
+from splatter.look.load import load_look
+
+SHEET = "[output]\nframes = ['png']\nsheet = { columns = 4, rows = 3, padding = 1 }\n"
+
+
+def _plume(tmp_path, extra="", **kw):
+    text = SMALL_PLUME.replace('[output]\nframes = ["png", "exr"]\nexr_type = "float"\n', "")
+    return load_look(write_look(tmp_path, text, extra=SHEET + extra), **kw)
+
+
+def _render(look, folder, **kw):
+    quiet_render(look, folder, **kw)
+    return folder
+
+
+def _meta(folder, stem="small_plume"):
+    return json.loads((folder / f"{stem}.sheet.json").read_text())
+
+
+def test_partial_renders_number_cells_by_frame_size_the_grid_and_do_not_claim_a_loop(tmp_path):
+    # A sheet is what an engine plays: cell k is frame cells[k].frame; a part of
+    # a loop played on repeat jumps at the seam, so only the whole clip is "exact".
+    look = _plume(tmp_path)
+    whole = _meta(_render(look, tmp_path / "whole"))
+    assert (whole["columns"], whole["rows"], whole["loop"]) == (4, 3, "exact")
+    assert [c["frame"] for c in whole["cells"]] == list(range(12))
+    part = _meta(_render(look, tmp_path / "part", frames=range(4, 8)))
+    assert [c["frame"] for c in part["cells"]] == [4, 5, 6, 7]
+    assert (part["columns"], part["rows"], part["frames"], part["loop"]) == (4, 1, 4, "none")
+    assert (part["width"], part["height"]) == (4 * 50, 50)  # 48 px frames, 1 px gutter: 50 px cells
+    tail = _meta(_render(look, tmp_path / "tail", frames=range(10, 12)))
+    assert (tail["columns"], tail["rows"], [c["frame"] for c in tail["cells"]]) == (2, 1, [10, 11])
+    one = _meta(_render(look, tmp_path / "one", frames=[0]))
+    assert (one["columns"], one["rows"], one["width"], one["cells"][0]["frame"]) == (1, 1, 50, 0)
+
+
+FULL = ("[output]\nframes = ['png', 'exr']\nexr_type = 'float'\nmaps = ['motion', 'depth']\n"
+        "preview = ['gif', 'contact']\nsheet = { columns = 4, padding = 1 }\n")
+
+
+def _interrupt_after(monkeypatch, n):
+    """Make the sink raise KeyboardInterrupt (Ctrl-C) when frame number ``n`` arrives."""
+    from splatter.deliver import sink
+
+    real = sink.OutputSink.add
+
+    def add(self, frame, rgba, layers):
+        if frame == n:
+            raise KeyboardInterrupt
+        return real(self, frame, rgba, layers)
+
+    monkeypatch.setattr(sink.OutputSink, "add", add)
+
+
+def test_interrupted_then_resumed_render_has_the_bytes_of_an_uninterrupted_one(tmp_path, monkeypatch):
+    text = SMALL_PLUME.replace('[output]\nframes = ["png", "exr"]\nexr_type = "float"\n', "")
+    look = load_look(write_look(tmp_path, text, extra=FULL))
+    whole = digests(_render(look, tmp_path / "whole"), manifest=True)
+    assert {"small_plume.render.json", "small_plume.sheet.png", "small_plume.motion.sheet.png"} <= whole.keys()
+    folder = tmp_path / "resumed"
+    with monkeypatch.context() as m:
+        _interrupt_after(m, 5)
+        with pytest.raises(KeyboardInterrupt):
+            quiet_render(look, folder)
+    manifest = json.loads((folder / "small_plume.render.json").read_text())
+    done = manifest["frames"]  # frames still queued for the writer when Ctrl-C came are dropped
+    assert manifest["state"] == "rendering" and 2 <= len(done) <= 5 and done == list(range(len(done)))
+    assert not (folder / "small_plume.sheet.png").exists() and not (folder / "small_plume.preview.gif").exists()
+    with monkeypatch.context() as m:  # resuming renders only the frames not done
+        rendered = []
+        from splatter.deliver import sink
+
+        real = sink.OutputSink.add
+        m.setattr(sink.OutputSink, "add", lambda self, f, *a: rendered.append(f) or real(self, f, *a))
+        quiet_render(look, folder, resume=True)
+    assert rendered == list(range(len(done), 12))
+    assert digests(folder, manifest=True) == whole  # every file, sheets, map sheets, previews and the manifest included
+    assert not (folder / ".small_plume.resume").exists()
+    # Resuming a render that completed does nothing and changes nothing.
+    assert quiet_render(look, folder, resume=True).files == []
+    assert digests(folder, manifest=True) == whole
+
+
+def test_another_seed_interrupted_leaves_nothing_of_the_old_render(tmp_path, monkeypatch):
+    text = SMALL_PLUME.replace('[output]\nframes = ["png", "exr"]\nexr_type = "float"\n', "")
+    path = write_look(tmp_path, text, extra=FULL)
+    folder = tmp_path / "out"
+    _render(load_look(path), folder)
+    old = {p.name: p.read_bytes() for p in folder.iterdir()}
+    with monkeypatch.context() as m:
+        _interrupt_after(m, 3)
+        with pytest.raises(KeyboardInterrupt):
+            quiet_render(load_look(path, seed=9, overrides=["clip.frames=8"]), folder)
+    manifest = json.loads((folder / "small_plume.render.json").read_text())
+    assert manifest["seed"] == 9 and manifest["state"] == "rendering"
+    left = {p.name: p.read_bytes() for p in folder.iterdir() if p.is_file()}  # the hidden .resume folder stays
+    # no sheet, map sheet or preview of either render, and no frame of the old one
+    assert not [n for n in left if ".sheet." in n or ".preview." in n or ".contact." in n]
+    assert set(left) == set(manifest["files"])
+    assert all(left[n] != old[n] for n in left if n in old and n != "small_plume.render.json")
+    # the finished render lists exactly what is in the folder: frames 8 to 11 of the longer clip are gone
+    quiet_render(load_look(path, seed=9, overrides=["clip.frames=8"]), folder)
+    manifest = json.loads((folder / "small_plume.render.json").read_text())
+    assert sorted(p.name for p in folder.iterdir()) == manifest["files"]
+    assert manifest["frames"] == list(range(8)) and manifest["state"] == "complete"
+    assert not (folder / "small_plume.0011.png").exists()
+
+
+def test_chunks_of_one_take_add_up_and_strays_are_listed_not_deleted(tmp_path):
+    look = _plume(tmp_path)
+    folder = tmp_path / "out"
+    quiet_render(look, folder, frames=range(0, 6))
+    (folder / "small_plume.0040.png").write_bytes(b"not ours")  # named like ours, listed by no manifest
+    with pytest.warns(UserWarning, match="small_plume.0040.png"):
+        quiet_render(look, folder, frames=range(6, 12))
+    manifest = json.loads((folder / "small_plume.render.json").read_text())
+    assert manifest["frames"] == list(range(12)) and manifest["rendered"] == list(range(6, 12))
+    assert manifest["stale"] == ["small_plume.0040.png"] and (folder / "small_plume.0040.png").exists()
+    assert [c["frame"] for c in _meta(folder)["cells"]] == list(range(6, 12))  # the sheet holds this render
+
+
+def test_pack_keeps_the_renders_metadata_or_refuses_without_force(tmp_path, capsys):
+    from splatter.cli import main
+    from splatter.deliver.pack import pack_folder
+
+    text = SMALL_PLUME.replace('[output]\nframes = ["png", "exr"]\nexr_type = "float"\n', "")
+    look = load_look(write_look(tmp_path, text, extra=FULL.replace("['png', 'exr']", "['png']")))
+    folder = _render(look, tmp_path / "out")
+    before = _meta(folder)
+    assert (before["fps"], before["loop"], sorted(before["maps"])) == (12.0, "exact", ["depth", "motion"])
+    # The same layout: fps, loop and the map entries stay.
+    pack_folder(folder, columns=4, padding=1)
+    after = _meta(folder)
+    assert {k: after[k] for k in ("fps", "loop", "maps", "cells")} == {k: before[k] for k in ("fps", "loop", "maps",
+                                                                                          "cells")}
+    # Another layout would leave the map sheets wrong: refused (exit 2), nothing changed.
+    sheet = (folder / "small_plume.sheet.json").read_bytes()
+    assert main(["pack", str(folder), "--columns", "8"]) == 2
+    assert "--force" in capsys.readouterr().err and (folder / "small_plume.sheet.json").read_bytes() == sheet
+    # With --force the sheet is rewritten without them and the map sheets go; fps and loop stay.
+    assert main(["pack", str(folder), "--columns", "8", "--force"]) == 0
+    forced = _meta(folder)
+    assert (forced["columns"], forced["fps"], forced["loop"], forced["maps"]) == (8, 12.0, "exact", {})
+    assert not (folder / "small_plume.motion.sheet.png").exists()
+    manifest = json.loads((folder / "small_plume.render.json").read_text())
+    assert sorted(p.name for p in folder.iterdir()) == manifest["files"]
+
+
+def test_pack_ignores_frames_the_manifest_does_not_list(tmp_path):
+    from splatter.deliver.pack import pack_folder
+
+    look = _plume(tmp_path)
+    folder = _render(look, tmp_path / "out", frames=range(0, 4))
+    # a frame of another take, copied in by hand: named like ours, listed by no manifest
+    (folder / "small_plume.0004.png").write_bytes((folder / "small_plume.0000.png").read_bytes())
+    written = pack_folder(folder)
+    meta = json.loads(open(written[1]).read())
+    assert [c["frame"] for c in meta["cells"]] == [0, 1, 2, 3] and meta["loop"] == "none"
+    # the whole clip, rendered: pack calls it the exact loop it is
+    quiet_render(look, folder)
+    assert json.loads(open(pack_folder(folder, columns=6)[1]).read())["loop"] == "exact"
