@@ -23,14 +23,14 @@ from splatter.look.records import LookSpec
 from splatter.raster.compositor import composite_features, kernels_cached
 from splatter.raster.maps import normal_map
 from splatter.sim.driver import SimPlan, plan_simulation, simulate
-from splatter.sim.plan import has_auto_octaves, with_octaves
+from splatter.sim.plan import crossfade_frames, has_auto_octaves, with_octaves
 from splatter.view.camera import Camera
 from splatter.view.framing import border_alpha_share, fit_camera, max_border_alpha
-from splatter.view.light import light_puffs
+from splatter.view.light import build_density_grid, light_puffs, transmittance
 from splatter.view.splats import feature_layout, make_splats, seen_opacity, split_layers
 
 __all__ = ["render", "RenderResult", "make_camera", "plan_and_camera", "look_plan", "pixel_size", "output_dir",
-           "frame_images"]
+           "frame_images", "prepare_kernels"]
 
 FIT_OCTAVES = 2
 """Octaves an "auto" swirl is simulated with to fit the camera, before its count is known.
@@ -118,7 +118,7 @@ def make_camera(look: LookSpec, plan: Optional[SimPlan] = None, frames: Optional
     blend = look.shading.blend
     sample = max(1, int(plan.steady_state_puffs // FIT_PUFFS))
     # The fit keeps the view direction, so the camera's axes (which thinning uses) are already final.
-    return fit_camera(cam, simulate(look, plan, frames=frames, sample=sample), margin=c.margin,
+    return fit_camera(cam, simulate(look, plan, frames=frames, sample=sample), margin=c.margin, alpha=c.fit_alpha,
                       opacity_of=lambda state: seen_opacity(state, blend, cam))
 
 
@@ -169,9 +169,7 @@ def look_plan(look: LookSpec) -> SimPlan:
 
 
 def _crossfade_frames(look: LookSpec) -> int:
-    if look.clip.loop != "crossfade":
-        return 0
-    return max(1, int(round(look.clip.crossfade * look.clip.frames)))
+    return crossfade_frames(look.clip)
 
 
 def frame_images(look: LookSpec, camera: Camera, states, *, maps=None, timings=None):
@@ -242,6 +240,55 @@ def announce_compile() -> None:
               file=sys.stderr)
 
 
+COMPILE_NOTICE = 1.0
+"""Seconds :func:`prepare_kernels` may take before it says it is compiling (loading from the cache takes milliseconds)."""
+
+
+def prepare_kernels(look: LookSpec, *, say: bool = True) -> float:
+    """Compile, or load from numba's cache, the kernels this look's frames use, before the first frame.
+
+    The compositor kernel of the look's blend mode and channel count (maps
+    add channels) and the lighting kernels are compiled on first use, 10-20
+    s each on a cold cache; doing it here, on a one-puff frame, lets the
+    command line say so when it happens instead of stalling on frame 0.
+
+    Parameters
+    ----------
+    look : LookSpec
+    say : bool
+        Print a note on stderr once this has taken :data:`COMPILE_NOTICE` seconds.
+
+    Returns
+    -------
+    float
+        Seconds taken.
+    """
+    import threading
+
+    def note():
+        print("splatter: compiling kernels for this look's blend mode, maps or lighting (first use only; later runs "
+              "load them from the cache)", file=sys.stderr, flush=True)
+
+    timer = threading.Timer(COMPILE_NOTICE, note) if say else None
+    t0 = time.perf_counter()
+    if timer is not None:
+        timer.daemon = True
+        timer.start()
+    try:
+        maps = look.output.maps
+        k = len(feature_layout(motion="motion" in maps, depth="depth" in maps, lightdirs="lightdirs" in maps))
+        one = np.ones(1, dtype=np.float32)
+        composite_features(np.full((1, 2), 4.0, np.float32), np.eye(2, dtype=np.float32)[None],
+                           np.zeros((1, k), np.float32), 0.5 * one, shape=(8, 8), blend=look.shading.blend)
+        if look.shading.light is not None:
+            pos = np.zeros((1, 3))
+            transmittance(build_density_grid(pos, np.ones(1), np.ones(1)), pos, np.eye(3))
+    finally:
+        if timer is not None:
+            timer.cancel()
+    return time.perf_counter() - t0
+
+
 def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[Iterable[int]] = None,
            progress: bool = True, plan: Optional[SimPlan] = None, camera: Optional[Camera] = None) -> RenderResult:
     """Render a look and write the files its ``[output]`` table asks for.
@@ -302,7 +349,7 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
                              timings=timings)) if tail_frames else None
 
     os.makedirs(folder, exist_ok=True)
-    sink = OutputSink(look, folder, len(wanted))
+    sink = OutputSink(look, folder, len(wanted), loop=plan.effective_loop)
     result = RenderResult(name=look.name, out_dir=folder, frames=wanted)
     bar = None
     if progress:

@@ -61,15 +61,29 @@ def test_plan_basics_and_rate_snap_note():
     assert any(n.startswith("force[3].evolve:") for n in plan.notes)
 
 
-def test_notes_name_what_cannot_loop():
+def test_what_breaks_an_exact_loop_is_a_warning_and_the_plan_says_what_the_loop_is():
     look = LookSpec(name="n", clip=ClipSpec(frames=30, fps=30, loop="exact", warmup=0.5),
                     sources=(SourceSpec(rate=10.0, bursts=(BurstSpec(0.2, 5),), stop=0.5, life=(2.0, 3.0)),))
-    notes = plan_simulation(look).notes
-    assert any(n.startswith("source[0].bursts: a burst cannot repeat") for n in notes)
-    assert any(n.startswith("source[0].stop:") for n in notes)
-    assert any(n.startswith("clip.warmup: 0.5 s raised to 3 s") for n in notes)
-    assert any(n.startswith("source[0].life:") for n in notes)
+    plan = plan_simulation(look)
+    assert any(n.startswith("source[0].bursts: a burst cannot repeat") for n in plan.warnings)
+    assert any(n.startswith("source[0].stop:") for n in plan.warnings)
+    assert not any("jump" in n or "closes" in n for n in plan.notes)  # no note may claim the loop closes
+    assert any(n.startswith("clip.warmup: 0.5 s raised to 3 s") for n in plan.notes)
+    assert any(n.startswith("source[0].life:") for n in plan.notes)
+    assert plan.loop_breaks == ("source[0].stop", "source[0].bursts") and plan.effective_loop == "none"
+    late = LookSpec(name="n", clip=ClipSpec(frames=30, fps=30, loop="exact"), sources=(SourceSpec(start=0.4),))
+    assert plan_simulation(late).loop_breaks == ("source[0].start",)
+    whole = plan_simulation(_busy_look("exact"))
+    assert whole.warnings == () and whole.effective_loop == "exact"
     assert plan_simulation(_busy_look("none")).notes == ()
+
+
+def test_a_crossfade_that_rounds_far_from_what_was_asked_is_a_warning():
+    # 0.1 of 4 frames is 0.4 frames: blended over 1 frame (a quarter of the clip), which must be said.
+    short = plan_simulation(LookSpec(name="c", clip=ClipSpec(frames=4, loop="crossfade", crossfade=0.1)))
+    assert any(w.startswith("clip.crossfade: 0.1 of 4 frames is 0.4 frames") for w in short.warnings)
+    fine = plan_simulation(LookSpec(name="c", clip=ClipSpec(frames=64, loop="crossfade", crossfade=0.25)))
+    assert fine.warnings == ()
 
 
 def test_frame_state_fields():

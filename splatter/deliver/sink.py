@@ -15,7 +15,7 @@ import os
 import threading
 import time
 from concurrent.futures import Future, ThreadPoolExecutor
-from typing import Dict, List
+from typing import Dict, List, Optional
 
 import numpy as np
 
@@ -43,13 +43,40 @@ from splatter.deliver.sheet import (
     write_sheet_codes,
     write_sheet_image,
 )
+from splatter.core.errors import LookError
 from splatter.look.records import LookSpec
 
-__all__ = ["OutputSink"]
+__all__ = ["OutputSink", "check_outputs"]
 
 _PREVIEW_MAX = 512  # GIF and MP4 frames fit this many pixels on a side
 _CONTACT_MAX = 256  # contact-sheet thumbnails fit this
 _MAX_PENDING = 3
+
+
+def check_outputs(look: LookSpec, n_frames: int):
+    """Lay out the sheet for ``n_frames`` frames as the render will, before any frame is rendered.
+
+    Returns
+    -------
+    SheetLayout or None
+        None when the look asks for no sheet.
+
+    Raises
+    ------
+    LookError
+        The sheet options cannot hold these frames (for example padding
+        that leaves no room in a power-of-two cell of 16 px frames).
+    """
+    spec = look.output.sheet
+    if spec is None:
+        return None
+    try:
+        return sheet_layout(max(1, n_frames), look.image.width, look.image.height, columns=spec.columns,
+                            rows=spec.rows, padding=spec.padding, pow2=spec.pow2, cell=spec.cell)
+    except ValueError as err:
+        raise LookError(look.path, "output.sheet",
+                        f"sheet options that fit {n_frames} frames of {look.image.width} x {look.image.height} px",
+                        str(err)) from None
 
 
 class OutputSink:
@@ -62,6 +89,10 @@ class OutputSink:
         Existing output folder.
     n_frames : int
         How many frames will be added (the sheet's grid is laid out for them).
+    loop : str, optional
+        What the clip really is, for the sheet metadata (the plan's
+        ``effective_loop``: ``"none"`` when an exact loop is broken);
+        default ``clip.loop``.
 
     Notes
     -----
@@ -72,8 +103,10 @@ class OutputSink:
     frames' alpha until the end, since their encodings use clip-wide ranges.
     """
 
-    def __init__(self, look: LookSpec, out_dir: str, n_frames: int):
+    def __init__(self, look: LookSpec, out_dir: str, n_frames: int, loop: Optional[str] = None):
         self.look = look
+        self.loop = look.clip.loop if loop is None else loop
+        check_outputs(look, n_frames)  # a bad sheet fails here, before the first frame is rendered
         self.out_dir = out_dir
         self.n_frames = n_frames
         self.files: List[str] = []
@@ -201,11 +234,11 @@ class OutputSink:
         sheet, self._sheet = self._sheet, None
         if spec.format == "png":
             self.files += write_sheet_codes(self.out_dir, look.name, sheet, layout, alpha=look.output.png_alpha,
-                                            fps=look.clip.fps, loop=look.clip.loop, maps=maps)
+                                            fps=look.clip.fps, loop=self.loop, maps=maps)
             return
         self.files += write_sheet_image(
             self.out_dir, look.name, sheet, layout, format=spec.format, alpha=look.output.png_alpha,
-            png_bits=look.output.png_bits, exr_type=look.output.exr_type, fps=look.clip.fps, loop=look.clip.loop,
+            png_bits=look.output.png_bits, exr_type=look.output.exr_type, fps=look.clip.fps, loop=self.loop,
             maps=maps, exposure=look.shading.exposure,
         )
 

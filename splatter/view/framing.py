@@ -4,9 +4,9 @@ One rule decides all three: smoke is visible where its alpha reaches
 :data:`~splatter.core.thresholds.VISIBLE_ALPHA` (one 8-bit step). A puff of
 peak opacity ``a`` shows alpha ``>= t`` out to ``sigma sqrt(2 ln(a / t))``,
 never past the footprint's cutoff (:data:`~splatter.core.thresholds.CUTOFF`
-sigmas). ``camera.fit`` frames out to a quarter of that step
-(:data:`~splatter.core.thresholds.FIT_ALPHA`) so faint rims that overlap near
-the edge still stay below one step there; ``check`` flags puffs whose cut-off
+sigmas). ``camera.fit`` frames each puff out to where it alone fades to
+``camera.fit_alpha`` (default one step, so the texture is spent on smoke that
+shows; the margin keeps the overlapping faint rims off the edge); ``check`` flags puffs whose cut-off
 rim is still visible; ``render`` measures the alpha on the image's outermost
 pixels.
 
@@ -27,7 +27,7 @@ from dataclasses import replace
 
 import numpy as np
 
-from splatter.core.thresholds import CUTOFF, FIT_ALPHA, VISIBLE_ALPHA
+from splatter.core.thresholds import CUTOFF, VISIBLE_ALPHA
 from splatter.sim.shaping import largest_stretch
 from splatter.view.camera import _check_array
 
@@ -147,7 +147,7 @@ def border_alpha_share(alpha):
     return float((total - inner) / total)
 
 
-def fit_camera(camera, states, *, opacity_of, margin):
+def fit_camera(camera, states, *, opacity_of, margin, alpha=VISIBLE_ALPHA):
     """``camera`` framed on what is visible of every puff in ``states``.
 
     Parameters
@@ -159,16 +159,21 @@ def fit_camera(camera, states, *, opacity_of, margin):
         ``opacity_of(state) -> (N,)`` each puff's peak opacity as composited.
     margin : float
         Fraction of the image kept clear at each edge.
+    alpha : float
+        Alpha at which a puff's smoke counts as visible (``camera.fit_alpha``):
+        each puff is framed out to where it alone fades to this alpha.
 
     Returns
     -------
     Camera
     """
+    if not 0.0 < alpha < 1.0:
+        raise ValueError(f"alpha: expected a number in (0, 1), got {alpha!r}")
     pts, rad = [], []
     for state in states:
         peak = opacity_of(state)
-        visible = peak * (1.0 / FIT_ALPHA) > 1.0
-        reach = visible_reach(peak[visible], FIT_ALPHA) / CUTOFF
+        visible = peak * (1.0 / alpha) > 1.0
+        reach = visible_reach(peak[visible], alpha) / CUTOFF
         # The long axis of a stretched puff: size times the flow's largest
         # stretch of it (exactly 1 for rigid puffs), or half the smear length.
         smear = np.linalg.norm(state.vel[visible], axis=1) * state.stretch[visible] * 0.5
