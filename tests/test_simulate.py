@@ -176,7 +176,29 @@ def test_save_states_round_trip(tmp_path):
         np.testing.assert_array_equal(z["time"], [0.0, 0.2, 0.4])
         for j, st in enumerate(states):
             for name in FIELDS:
-                np.testing.assert_array_equal(z[name][fs[j]:fs[j + 1]], getattr(st, name), err_msg=name)
+                want = getattr(st, name)
+                want = want.astype(np.float32) if want.dtype.kind == "f" else want  # floats stored as float32
+                assert z[name].dtype == want.dtype, name
+                np.testing.assert_array_equal(z[name][fs[j]:fs[j + 1]], want, err_msg=name)
+
+
+def test_saved_states_are_compressed_float32_with_the_umask_permissions(tmp_path):
+    # The file once came out mode 0600 and as raw float64 (35 MB for 64 frames).
+    import stat
+    import zipfile
+
+    states = list(simulate(_busy_look(), frames=range(12)))
+    old = os.umask(0o022)
+    try:
+        save_states(tmp_path / "sim.npz", states)
+    finally:
+        os.umask(old)
+    assert stat.S_IMODE(os.stat(tmp_path / "sim.npz").st_mode) == 0o644  # what open() gives under umask 022
+    with zipfile.ZipFile(tmp_path / "sim.npz") as z:
+        infos = {i.filename: i for i in z.infolist()}
+    assert infos["pos.npy"].compress_type == zipfile.ZIP_DEFLATED
+    raw64 = sum(getattr(st, name).astype(np.float64).nbytes for st in states for name in ("pos", "vel", "deform"))
+    assert sum(infos[f"{n}.npy"].compress_size for n in ("pos", "vel", "deform")) < 0.5 * raw64
 
 
 def test_save_states_empty(tmp_path):
