@@ -22,12 +22,13 @@ import numba
 import numpy as np
 
 from splatter.core.thresholds import VISIBLE_ALPHA
-from splatter.cost import estimate_cost, format_bytes, memory_limit
+from splatter.cost import births_per_step, estimate_cost, format_bytes, memory_limit
 from splatter.deliver.names import planned_files
 from splatter.look.records import LookSpec
 from splatter.render import (
     FIT_OCTAVES,
     _crossfade_frames,
+    first_plan,
     output_dir,
     pixel_size,
     plan_and_camera,
@@ -53,6 +54,9 @@ CHECK_FRAMES = 96
 
 CHECK_WARMUP_STEPS = 1500
 """The sample's warm-up is cut to this many steps (a long-lived look then starts thinner)."""
+
+CHECK_BIRTHS = 200_000
+"""Above this many puffs born in one step (a huge burst, a tiny fps) the simulation is not sampled."""
 
 FILL_ALPHA = 0.05
 """Alpha at which ``check`` counts smoke as filling the frame."""
@@ -140,19 +144,19 @@ FILL_WIDTH = 128
 def _coverage(s, vis, op, w, h, sample):
     """A coarse alpha image (:data:`FILL_WIDTH` across) of the visible puffs, thresholded at :data:`FILL_ALPHA`.
 
-    With one puff in ``sample`` simulated, each stands for ``sample`` puffs: its
-    optical depth is multiplied by ``sample`` (absorb blend, order free), which
-    keeps the expected optical depth of the whole smoke.
+    With one puff in ``sample`` simulated, each stands for ``sample`` puffs
+    in its place: its peak opacity ``a`` becomes ``1 - (1 - a)^sample``, and
+    the puffs are added (``A = 1 - prod(1 - a_i g_i)``, order free, a lone
+    puff's alpha exactly as drawn).
     """
     if not vis.any():
         return None
     scale = min(1.0, FILL_WIDTH / w)
     cw, ch = max(1, round(w * scale)), max(1, round(h * scale))
     means = np.asarray(s.means[vis], dtype=np.float64) * scale
-    covs = np.asarray(s.covs[vis], dtype=np.float64) * scale**2 + 0.25 * np.eye(2)  # at least half a pixel
-    tau = -np.log1p(-np.minimum(op[vis], 1.0 - 1e-6)) * sample
-    opac = -np.expm1(-tau)
-    alpha = composite_features(means, covs, np.zeros((means.shape[0], 1)), opac, shape=(ch, cw), blend="absorb")
+    covs = np.asarray(s.covs[vis], dtype=np.float64) * scale**2 + 0.1 * np.eye(2)  # drawable when shrunk
+    opac = -np.expm1(np.log1p(-np.minimum(op[vis], 1.0 - 1e-6)) * sample)
+    alpha = composite_features(means, covs, np.zeros((means.shape[0], 1)), opac, shape=(ch, cw), blend="add")
     return alpha[..., 1] >= FILL_ALPHA
 
 
@@ -177,13 +181,20 @@ def _load_step_kernels(plan) -> None:
 def _sampled(look: LookSpec, frames: Sequence[int], seconds: float):
     """A sampled simulation: the look's plan (fit octaves for "auto"), sampled states, and what was left out."""
     sim_look = with_octaves(look, FIT_OCTAVES) if has_auto_octaves(look) else look
+    # Stepped frame after frame from a warm-up (an exact loop's twins would
+    # step a whole period before its first frame): the same smoke in steady
+    # state, seam aside, and every frame within the time budget.
+    sim_look = replace(sim_look, clip=replace(sim_look.clip, loop="none"))
     plan = plan_simulation(sim_look)
     skipped = []
-    if plan.warmup_steps > CHECK_WARMUP_STEPS and plan.period_steps is None:
+    if plan.warmup_steps > CHECK_WARMUP_STEPS:
         cut = CHECK_WARMUP_STEPS * plan.dt
         skipped.append(f"warm-up cut from {plan.warmup:.3g} s to {cut:.3g} s")
         sim_look = replace(sim_look, clip=replace(sim_look.clip, warmup=cut))
         plan = plan_simulation(sim_look)
+    births = births_per_step(look, plan)
+    if births > CHECK_BIRTHS:
+        return [], [f"none: {births:,.0f} puffs born in one step is too many to sample"], 1
     sample = max(1, int(plan.steady_state_puffs // CHECK_PUFFS))
     frames = list(frames)
     stride = max(1, math.ceil(len(frames) / CHECK_FRAMES))
@@ -254,6 +265,9 @@ def check_report(look: LookSpec, *, frames: Optional[Sequence[int]] = None, out_
     base = Camera(projection=look.camera.projection, eye=look.camera.eye, target=look.camera.target,
                   up=look.camera.up, width=img.width, height=img.height, view_width=look.camera.view_width,
                   fov=look.camera.fov)
+    limit = memory_limit(max_memory)
+    if full and not estimate_cost(look, first_plan(look), pixel_size(base), len(wanted), limit=limit).fits:
+        full = False  # the whole simulation would not fit either: sample it, and say the render is refused
     if full:
         plan, camera = plan_and_camera(look)
         states, skipped, sample = simulate(look, plan, frames=wanted), [], 1
@@ -267,7 +281,7 @@ def check_report(look: LookSpec, *, frames: Optional[Sequence[int]] = None, out_
         plan = plan_simulation(look, pixel_size=pixel_size(camera) if has_auto_octaves(look) else None)
     stats = sample_stats(look, camera, states, sample)
     sampled = f" sampled ({', '.join(skipped)})" if skipped else ""
-    est = estimate_cost(look, plan, pixel_size(camera), len(wanted), limit=memory_limit(max_memory),
+    est = estimate_cost(look, plan, pixel_size(camera), len(wanted), limit=limit,
                         mean_sigma_px=stats.sigma_mean or None)
 
     lines = [

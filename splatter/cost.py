@@ -52,7 +52,7 @@ from splatter.raster.compositor import TABLE_BYTES
 from splatter.render import FIT_PUFFS, _crossfade_frames
 from splatter.sim.driver import TWIN_MEMORY, SimPlan
 
-__all__ = ["CostEstimate", "estimate_cost", "memory_limit", "parse_size", "format_bytes",
+__all__ = ["CostEstimate", "estimate_cost", "births_per_step", "memory_limit", "parse_size", "format_bytes",
            "refuse_if_too_big"]
 
 BYTES_PER_PUFF = 1200
@@ -193,6 +193,12 @@ def _max_grow(src) -> float:
     return max(v for _, v in src.grow)
 
 
+def births_per_step(look: LookSpec, plan: SimPlan) -> float:
+    """The most puffs born in one step: every source's rate times the step, plus its largest burst."""
+    return float(sum(rate * plan.dt + max((b.count for b in src.bursts), default=0)
+                     for src, rate in zip(look.sources, plan.rates)))
+
+
 def estimate_cost(look: LookSpec, plan: SimPlan, pixel_size: float, n_frames: int, *, limit: int,
                   sigma_px: Optional[float] = None, mean_sigma_px: Optional[float] = None) -> CostEstimate:
     """Estimate the peak memory and time of rendering ``n_frames`` frames of ``look``.
@@ -219,7 +225,7 @@ def estimate_cost(look: LookSpec, plan: SimPlan, pixel_size: float, n_frames: in
     img, out = look.image, look.output
     w, h = img.width, img.height
     px = w * h
-    n = max(float(plan.steady_state_puffs), 0.0)
+    n = max(float(plan.steady_state_puffs), births_per_step(look, plan), 0.0)
     if sigma_px is None:
         reach = max((s.size[1] * _max_grow(s) * (1.0 + s.stretch) for s in look.sources), default=0.0)
         sigma_px = reach / pixel_size

@@ -11,7 +11,7 @@ import os
 import sys
 import time
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Dict, Iterable, List, Optional
 
 import numpy as np
@@ -30,7 +30,7 @@ from splatter.view.light import build_density_grid, light_puffs, transmittance
 from splatter.view.splats import feature_layout, make_splats, seen_opacity, split_layers
 
 __all__ = ["render", "RenderResult", "make_camera", "plan_and_camera", "look_plan", "pixel_size", "output_dir",
-           "frame_images", "prepare_kernels"]
+           "frame_images", "prepare_kernels", "unfitted", "first_plan"]
 
 FIT_OCTAVES = 2
 """Octaves an "auto" swirl is simulated with to fit the camera, before its count is known.
@@ -120,6 +120,21 @@ def make_camera(look: LookSpec, plan: Optional[SimPlan] = None, frames: Optional
     # The fit keeps the view direction, so the camera's axes (which thinning uses) are already final.
     return fit_camera(cam, simulate(look, plan, frames=frames, sample=sample), margin=c.margin, alpha=c.fit_alpha,
                       opacity_of=lambda state: seen_opacity(state, blend, cam))
+
+
+def unfitted(look: LookSpec) -> LookSpec:
+    """``look`` with ``camera.fit`` off: the camera it starts from, known without simulating."""
+    return replace(look, camera=replace(look.camera, fit=False))
+
+
+def first_plan(look: LookSpec) -> SimPlan:
+    """A plan made without simulating: "auto" swirl octaves at :data:`FIT_OCTAVES`.
+
+    Its puff counts, steps and loop are those of the render's plan (only the
+    octave count may differ), so the cost of a look can be judged before
+    ``camera.fit`` simulates.
+    """
+    return plan_simulation(with_octaves(look, FIT_OCTAVES) if has_auto_octaves(look) else look)
 
 
 def pixel_size(camera: Camera) -> float:
