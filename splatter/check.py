@@ -149,12 +149,14 @@ def _coverage(s, vis, op, w, h, sample):
     the puffs are added (``A = 1 - prod(1 - a_i g_i)``, order free, a lone
     puff's alpha exactly as drawn).
     """
+    vis = vis & (op > 0)
     if not vis.any():
         return None
     scale = min(1.0, FILL_WIDTH / w)
     cw, ch = max(1, round(w * scale)), max(1, round(h * scale))
     means = np.asarray(s.means[vis], dtype=np.float64) * scale
-    covs = np.asarray(s.covs[vis], dtype=np.float64) * scale**2 + 0.1 * np.eye(2)  # drawable when shrunk
+    covs = np.asarray(s.covs[vis], dtype=np.float64) * scale**2
+    covs += (0.1 + 1e-6 * (covs[:, 0, 0] + covs[:, 1, 1]))[:, None, None] * np.eye(2)  # drawable when shrunk
     opac = -np.expm1(np.log1p(-np.minimum(op[vis], 1.0 - 1e-6)) * sample)
     alpha = composite_features(means, covs, np.zeros((means.shape[0], 1)), opac, shape=(ch, cw), blend="add")
     return alpha[..., 1] >= FILL_ALPHA

@@ -130,7 +130,9 @@ def gif_delays(n_frames, fps):
     centiseconds, so the delays sum to the clip's length (to half a
     centisecond) however the rate divides 100. Delays never go below 2
     centiseconds: browsers play shorter ones at 10 (common practice), so
-    above 50 fps the GIF plays at 50 fps.
+    above 50 fps the GIF plays at 50 fps; nor above 65535, the largest the
+    format's 16-bit field holds (GIF89a, section 23), so below 0.0015 fps a
+    frame shows for 655 s.
 
     Examples
     --------
@@ -142,7 +144,7 @@ def gif_delays(n_frames, fps):
     fps = check_positive(fps, "fps")
     ends = [round(100.0 * (i + 1) / fps) for i in range(int(n_frames))]
     starts = [0] + ends[:-1]
-    return [10 * max(2, b - a) for a, b in zip(starts, ends)]
+    return [10 * min(65535, max(2, b - a)) for a, b in zip(starts, ends)]
 
 
 def write_gif_codes(path, codes, fps):
@@ -150,8 +152,11 @@ def write_gif_codes(path, codes, fps):
     import imageio.v3 as iio
 
     codes = np.stack(codes)
+    delays = gif_delays(len(codes), fps)
     with atomic_path(path, suffix=".gif") as tmp:
-        iio.imwrite(tmp, codes, plugin="pillow", extension=".gif", duration=gif_delays(len(codes), fps), loop=0)
+        # Pillow takes a list of delays for an animation, a number for a single frame.
+        iio.imwrite(tmp, codes, plugin="pillow", extension=".gif", duration=delays if len(delays) > 1 else delays[0],
+                    loop=0)
     return os.fspath(path)
 
 
