@@ -285,9 +285,16 @@ def estimate_cost(look: LookSpec, plan: SimPlan, pixel_size: float, n_frames: in
     # Time: composite footprint pixels (the ellipse's share of its 6-sigma box, clipped to the frame),
     # and the puff steps of the warm-up and the frames.
     foot = min(math.pi * 9.0 * mean_sigma_px**2, float(px))
-    steps = plan.warmup_steps * (0 if plan.period_steps is not None else 1) + n_frames * plan.substeps
-    seconds = (n * foot * n_frames / PIXELS_PER_SECOND + n * steps / PUFF_STEPS_PER_SECOND
-               + steps * STEP_SECONDS)
+    frame_steps = n_frames * plan.substeps
+    if plan.period_steps is not None:
+        # The twin driver steps one period's puffs from birth to death (lives may span many periods).
+        life = max((s.life[1] for s in look.sources), default=0.0)
+        steps = life / plan.dt + frame_steps
+        puff_steps = n * (plan.period_steps + frame_steps)
+    else:
+        steps = plan.warmup_steps + frame_steps
+        puff_steps = n * steps
+    seconds = n * foot * n_frames / PIXELS_PER_SECOND + puff_steps / PUFF_STEPS_PER_SECOND + steps * STEP_SECONDS
     return CostEstimate(parts=parts, seconds=seconds, limit=int(limit), puffs=n, sigma_px=float(sigma_px),
                         hints=hints)
 
