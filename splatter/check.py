@@ -13,6 +13,7 @@ simulation as the render will.
 
 from __future__ import annotations
 
+import contextlib
 import math
 import time
 from dataclasses import dataclass, replace
@@ -204,22 +205,28 @@ def _sampled(look: LookSpec, frames: Sequence[int], seconds: float):
     states = []
     _load_step_kernels(plan)  # from numba's cache, once per process: not the sample's time
     deadline = time.process_time() + seconds  # CPU time: a busy machine slows the clock, not the work
-    # A few hundred puffs gain nothing from threads, and on a busy machine the
-    # parallel kernels' waiting costs ten times the work.
-    threads = numba.get_num_threads()
-    numba.set_num_threads(1)
-    try:
-        for state in simulate(sim_look, plan, frames=wanted, sample=sample):
-            states.append(state)
-            if time.process_time() > deadline:
-                break
-    finally:
-        numba.set_num_threads(threads)
+    for state in simulate(sim_look, plan, frames=wanted, sample=sample):
+        states.append(state)
+        if time.process_time() > deadline:
+            break
     if sample > 1:
         skipped.append(f"1 in {sample} puffs")
     if len(states) < len(frames):
         skipped.append(f"{len(states)} of {len(frames)} frames")
     return states, skipped, sample
+
+
+@contextlib.contextmanager
+def _one_thread(on: bool):
+    """Run numba kernels on one thread: a few hundred puffs gain nothing from more, and on a busy
+    machine each parallel call's waiting costs ten times its work (40 ms a call measured here)."""
+    threads = numba.get_num_threads()
+    if on:
+        numba.set_num_threads(1)
+    try:
+        yield
+    finally:
+        numba.set_num_threads(threads)
 
 
 def check_look(look: LookSpec, **options) -> str:
@@ -231,9 +238,19 @@ def check_look(look: LookSpec, **options) -> str:
     return check_report(look, **options)[0]
 
 
-def check_report(look: LookSpec, *, frames: Optional[Sequence[int]] = None, out_dir: Optional[str] = None,
-                 full: bool = False, max_memory: Optional[str] = None, seconds: float = CHECK_SECONDS):
+def check_report(look: LookSpec, *, full: bool = False, **options):
     """What ``splatter check`` prints, and the cost estimate the render would be judged by.
+
+    See :func:`_report` for the options; ``full`` runs the whole simulation
+    (on every thread), otherwise a sample runs on one.
+    """
+    with _one_thread(not full):
+        return _report(look, full=full, **options)
+
+
+def _report(look: LookSpec, *, frames: Optional[Sequence[int]] = None, out_dir: Optional[str] = None,
+            full: bool = False, max_memory: Optional[str] = None, seconds: float = CHECK_SECONDS):
+    """The text of ``splatter check`` and the render's cost estimate.
 
     Parameters
     ----------
