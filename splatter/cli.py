@@ -66,31 +66,41 @@ def _parser() -> argparse.ArgumentParser:
             "(dotted path, array index as a number, value in TOML syntax); repeatable",
         )
 
+    def render_options(sp):
+        look_options(sp, out_help="output folder, replacing output.dir ({name} and {seed} are filled in)")
+        sp.add_argument(
+            "--frames",
+            metavar="A:B",
+            help="render frames A to B-1 only (A:B, A: or a single frame A); may run past the clip's end",
+        )
+        sp.add_argument("--threads", type=int, metavar="N",
+                        help="number of compute threads (default: all cores; more than the cores is clamped)")
+        sp.add_argument("--quiet", action="store_true",
+                        help="no progress bar and no summary line (notes and warnings are still shown)")
+        sp.add_argument("--max-memory", metavar="SIZE",
+                        help="the most memory a render may plan to use, e.g. 24G or 512M (default: 80%% of what "
+                        "the machine has free); a render estimated above it is refused before it starts")
+
     r = sub.add_parser(
         "render",
         help="render frames, sheets, previews and maps",
         description="Render the look and write the files its [output] table asks for.",
     )
-    look_options(r, out_help="output folder, replacing output.dir ({name} and {seed} are filled in)")
-    r.add_argument(
-        "--frames",
-        metavar="A:B",
-        help="render frames A to B-1 only (A:B, A: or a single frame A); may run past the clip's end",
-    )
-    r.add_argument("--threads", type=int, metavar="N", help="number of compute threads (default: all cores)")
+    render_options(r)
     r.add_argument("--resume", action="store_true",
                    help="keep the frames an interrupted render of the same look and seed finished in the folder "
                    "(its manifest NAME.render.json lists them) and render the rest, sheets and previews included")
-    r.add_argument("--quiet", action="store_true",
-                   help="no progress bar and no summary line (notes and warnings are still shown)")
 
     c = sub.add_parser(
         "check",
-        help="validate a look and say what it would render",
-        description="Validate the look, print what would be rendered and warn about suspicious settings. "
-        "Renders and writes nothing.",
+        help="validate a look and say what it would render and cost",
+        description="Validate the look, list the files a render would write, estimate its memory and time and "
+        "warn about suspicious settings, from a sampled simulation (well under a second). Takes render's options, "
+        "so swapping the verb is a dry run; exits 2 where render would refuse. Renders and writes nothing.",
     )
-    look_options(c)
+    render_options(c)
+    c.add_argument("--full", action="store_true",
+                   help="simulate the whole clip as the render will, instead of a time-bounded sample")
 
     s = sub.add_parser(
         "simulate",
@@ -152,16 +162,41 @@ def _set_threads(n: Optional[int]) -> None:
     import numba
 
     top = numba.config.NUMBA_NUM_THREADS
-    if not 1 <= n <= top:
-        raise _UsageError(f"--threads: expected a number from 1 to {top}, got {n}")
+    if n < 1:
+        raise _UsageError(f"--threads: expected a number >= 1, got {n}")
+    if n > top:
+        print(f"splatter: note: --threads {n}: this machine runs at most {top}; using {top}", file=sys.stderr)
+        n = top
     numba.set_num_threads(n)
+
+
+def _limit(args) -> Optional[str]:
+    """``--max-memory`` checked (the text is kept for messages)."""
+    if args.max_memory is None:
+        return None
+    from splatter.cost import parse_size
+
+    try:
+        if parse_size(args.max_memory) <= 0:
+            raise ValueError
+    except ValueError:
+        raise _UsageError(f"--max-memory: expected a size such as 24G or 512M, got {args.max_memory!r}") from None
+    return args.max_memory
+
+
+def _say_plan(plan) -> None:
+    """What the simulation had to change (notes) and what breaks the look (warnings), said even with --quiet."""
+    for note in plan.notes:
+        print(f"splatter: note: {note}", file=sys.stderr)
+    for warn in plan.warnings:
+        print(f"splatter: warning: {warn}", file=sys.stderr)
 
 
 def _load(args):
     from splatter.look.load import load_look
 
-    if args.seed is not None and args.seed < 0:
-        raise _UsageError(f"--seed: expected an integer >= 0, got {args.seed}")
+    if args.seed is not None and not 0 <= args.seed <= 2**63 - 1:
+        raise _UsageError(f"--seed: expected an integer from 0 to {2**63 - 1}, got {args.seed}")
     return load_look(args.look, overrides=args.overrides, seed=args.seed)
 
 
@@ -169,16 +204,37 @@ def _cmd_render(args) -> int:
     # Validate everything before importing the (numba-heavy) pipeline, so bad input fails fast.
     look = _load(args)
     frames = parse_frames(args.frames, look.clip.frames)
+    limit = _limit(args)
     _set_threads(args.threads)
-    from splatter.render import announce_compile, plan_and_camera, render
+    from splatter.cost import estimate_cost, memory_limit, refuse_if_too_big
+    from splatter.render import (
+        announce_compile,
+        first_plan,
+        make_camera,
+        output_dir,
+        pixel_size,
+        plan_and_camera,
+        prepare_kernels,
+        render,
+        unfitted,
+    )
 
+    output_dir(look, args.out)  # a bad --out fails before the simulation
+    wanted = frames if frames is not None else range(look.clip.frames)
+    budget = memory_limit(limit)
+    # Refused before anything is simulated or written (the sheet options are laid out here too): first
+    # at the look's own camera, as framing simulates, then at the final framing.
+    refuse_if_too_big(look, estimate_cost(look, first_plan(look), pixel_size(make_camera(unfitted(look))),
+                                          len(wanted), limit=budget))
     if not args.quiet:
         announce_compile()  # before the plan: fitting the camera simulates, which compiles too
-    # What the simulation had to change (loop snapping, seams) is said even with --quiet.
     plan, camera = plan_and_camera(look)
-    for note in plan.notes:
-        print(f"splatter: note: {note}", file=sys.stderr)
-    result = render(look, out_dir=args.out, frames=frames, progress=not args.quiet, plan=plan, camera=camera,
+    _say_plan(plan)
+    refuse_if_too_big(look, estimate_cost(look, plan, pixel_size(camera), len(wanted), limit=budget))
+    prepare_kernels(look, say=not args.quiet)
+    # The bar only on a terminal: in a log or a pipe its redraws are noise.
+    progress = not args.quiet and sys.stderr.isatty()
+    result = render(look, out_dir=args.out, frames=frames, progress=progress, plan=plan, camera=camera,
                     resume=args.resume)
     if not args.quiet:
         print(result.summary(), file=sys.stderr)
@@ -187,9 +243,15 @@ def _cmd_render(args) -> int:
 
 def _cmd_check(args) -> int:
     look = _load(args)
-    from splatter.check import check_look
+    frames = parse_frames(args.frames, look.clip.frames)
+    limit = _limit(args)
+    _set_threads(args.threads)
+    from splatter.check import check_report
+    from splatter.cost import refuse_if_too_big
 
-    print(check_look(look))
+    text, estimate = check_report(look, frames=frames, out_dir=args.out, full=args.full, max_memory=limit)
+    print(text, flush=True)
+    refuse_if_too_big(look, estimate)  # exit 2 where render would refuse
     return EXIT_OK
 
 
@@ -205,8 +267,7 @@ def _cmd_simulate(args) -> int:
     from splatter.sim.driver import simulate
 
     plan = look_plan(look)  # "auto" swirl octaves resolved at the render's framing
-    for note in plan.notes:
-        print(f"splatter: note: {note}", file=sys.stderr)
+    _say_plan(plan)
     Path(args.out).parent.mkdir(parents=True, exist_ok=True)
     save_states(args.out, simulate(look, plan, frames=frames))
     print(f"wrote {args.out} ({len(frames)} frames)", file=sys.stderr)

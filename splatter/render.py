@@ -10,7 +10,7 @@ from __future__ import annotations
 import sys
 import time
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Dict, Iterable, List, Optional
 
 import numpy as np
@@ -24,14 +24,14 @@ from splatter.look.records import LookSpec
 from splatter.raster.compositor import composite_features, kernels_cached
 from splatter.raster.maps import normal_map
 from splatter.sim.driver import SimPlan, plan_simulation, simulate
-from splatter.sim.plan import has_auto_octaves, with_octaves
+from splatter.sim.plan import crossfade_frames, has_auto_octaves, with_octaves
 from splatter.view.camera import Camera
 from splatter.view.framing import border_alpha_share, fit_camera, max_border_alpha
-from splatter.view.light import light_puffs
+from splatter.view.light import build_density_grid, light_puffs, transmittance
 from splatter.view.splats import feature_layout, make_splats, seen_opacity, split_layers
 
 __all__ = ["render", "RenderResult", "make_camera", "plan_and_camera", "look_plan", "pixel_size", "output_dir",
-           "frame_images"]
+           "frame_images", "prepare_kernels", "unfitted", "first_plan"]
 
 FIT_OCTAVES = 2
 """Octaves an "auto" swirl is simulated with to fit the camera, before its count is known.
@@ -121,8 +121,23 @@ def make_camera(look: LookSpec, plan: Optional[SimPlan] = None, frames: Optional
     blend = look.shading.blend
     sample = max(1, int(plan.steady_state_puffs // FIT_PUFFS))
     # The fit keeps the view direction, so the camera's axes (which thinning uses) are already final.
-    return fit_camera(cam, simulate(look, plan, frames=frames, sample=sample), margin=c.margin,
+    return fit_camera(cam, simulate(look, plan, frames=frames, sample=sample), margin=c.margin, alpha=c.fit_alpha,
                       opacity_of=lambda state: seen_opacity(state, blend, cam))
+
+
+def unfitted(look: LookSpec) -> LookSpec:
+    """``look`` with ``camera.fit`` off: the camera it starts from, known without simulating."""
+    return replace(look, camera=replace(look.camera, fit=False))
+
+
+def first_plan(look: LookSpec) -> SimPlan:
+    """A plan made without simulating: "auto" swirl octaves at :data:`FIT_OCTAVES`.
+
+    Its puff counts, steps and loop are those of the render's plan (only the
+    octave count may differ), so the cost of a look can be judged before
+    ``camera.fit`` simulates.
+    """
+    return plan_simulation(with_octaves(look, FIT_OCTAVES) if has_auto_octaves(look) else look)
 
 
 def pixel_size(camera: Camera) -> float:
@@ -172,9 +187,7 @@ def look_plan(look: LookSpec) -> SimPlan:
 
 
 def _crossfade_frames(look: LookSpec) -> int:
-    if look.clip.loop != "crossfade":
-        return 0
-    return max(1, int(round(look.clip.crossfade * look.clip.frames)))
+    return crossfade_frames(look.clip)
 
 
 def frame_images(look: LookSpec, camera: Camera, states, *, maps=None, timings=None):
@@ -243,6 +256,55 @@ def announce_compile() -> None:
         _announced = True
         print("splatter: compiling kernels (first run only; later runs load them from the cache)", flush=True,
               file=sys.stderr)
+
+
+COMPILE_NOTICE = 1.0
+"""Seconds :func:`prepare_kernels` may take before it says it is compiling (loading from the cache takes milliseconds)."""
+
+
+def prepare_kernels(look: LookSpec, *, say: bool = True) -> float:
+    """Compile, or load from numba's cache, the kernels this look's frames use, before the first frame.
+
+    The compositor kernel of the look's blend mode and channel count (maps
+    add channels) and the lighting kernels are compiled on first use, 10-20
+    s each on a cold cache; doing it here, on a one-puff frame, lets the
+    command line say so when it happens instead of stalling on frame 0.
+
+    Parameters
+    ----------
+    look : LookSpec
+    say : bool
+        Print a note on stderr once this has taken :data:`COMPILE_NOTICE` seconds.
+
+    Returns
+    -------
+    float
+        Seconds taken.
+    """
+    import threading
+
+    def note():
+        print("splatter: compiling kernels for this look's blend mode, maps or lighting (first use only; later runs "
+              "load them from the cache)", file=sys.stderr, flush=True)
+
+    timer = threading.Timer(COMPILE_NOTICE, note) if say else None
+    t0 = time.perf_counter()
+    if timer is not None:
+        timer.daemon = True
+        timer.start()
+    try:
+        maps = look.output.maps
+        k = len(feature_layout(motion="motion" in maps, depth="depth" in maps, lightdirs="lightdirs" in maps))
+        one = np.ones(1, dtype=np.float32)
+        composite_features(np.full((1, 2), 4.0, np.float32), np.eye(2, dtype=np.float32)[None],
+                           np.zeros((1, k), np.float32), 0.5 * one, shape=(8, 8), blend=look.shading.blend)
+        if look.shading.light is not None:
+            pos = np.zeros((1, 3))
+            transmittance(build_density_grid(pos, np.ones(1), np.ones(1)), pos, np.eye(3))
+    finally:
+        if timer is not None:
+            timer.cancel()
+    return time.perf_counter() - t0
 
 
 def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[Iterable[int]] = None,
@@ -317,7 +379,7 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
     tail = iter(frame_images(look, camera, _timed(simulate(look, plan, frames=tail_frames), timings, "simulate"),
                              timings=timings)) if tail_frames else None
 
-    sink = OutputSink(look, folder, len(wanted), frames=wanted)
+    sink = OutputSink(look, folder, len(wanted), frames=wanted, loop=plan.effective_loop)
     borders: Dict[int, tuple] = {}
 
     def frame_done(frame, written, part):

@@ -385,3 +385,36 @@ def test_thread_count_does_not_change_pixels_of_many_tiny_splats():
     one, *more = on_each_thread_count(lambda: composite(means, covs, feats, opac, shape=(h, w)))
     for many in more:
         np.testing.assert_array_equal(one, many)
+
+
+@pytest.mark.parametrize("blend", ["over", "absorb"])
+def test_splats_past_the_table_budget_take_the_direct_path_with_the_same_pixels(blend, monkeypatch):
+    # With no table budget every splat is drawn by the direct path; the pixels
+    # must still match the float64 reference (the budget bounds memory, not the image).
+    from splatter.raster import compositor
+
+    monkeypatch.setattr(compositor, "TABLE_BYTES", 0)
+    rng = np.random.default_rng(5)
+    h, w = 150, 141
+    means, covs, feats, opac = random_splats(rng, 300, h, w)
+    got = composite_features(means, covs, feats, opac, shape=(h, w), blend=blend)
+    want = reference(means, covs, feats, opac, (h, w), blend)
+    assert np.abs(got - want).max() <= 1e-5
+
+
+def test_a_footprint_far_larger_than_the_image_allocates_by_the_image():
+    # A puff 1e7 px across (a camera zoomed in a million times) once asked for a
+    # 34 GiB table; its memory must now follow the image, not the footprint.
+    import tracemalloc
+
+    means = np.array([[40.0, 30.0], [1e6, 20.0]])
+    covs = np.array([[[1e14, 0.0], [0.0, 1e14]], [[1e13, 0.0], [0.0, 1e13]]])
+    feats = np.ones((2, 3))
+    opac = np.array([0.5, 0.5])
+    tracemalloc.start()
+    got = composite(means, covs, feats, opac, shape=(64, 80))
+    peak = tracemalloc.get_traced_memory()[1]
+    tracemalloc.stop()
+    assert peak < 80 * 2**20
+    want = reference(means, covs, feats, opac, (64, 80), "over")
+    assert np.abs(got - want).max() <= 1e-5

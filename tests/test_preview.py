@@ -7,6 +7,7 @@ import pytest
 from PIL import Image
 
 from splatter.deliver.preview import (
+    write_gif_codes,
     over_checker,
     write_contact_sheet,
     write_gif,
@@ -54,6 +55,27 @@ def test_gif_frame_count_and_loop(tmp_path):
     assert meta["loop"] == 0
     assert meta["duration"] == 40  # 1/25 s
     assert Image.open(p).n_frames == 9
+
+
+@pytest.mark.parametrize("fps", [30.0, 24.0, 12.0, 25.0])
+def test_gif_plays_at_the_clip_rate(tmp_path, fps):
+    # GIF89a delays are whole centiseconds (GIF89a specification, section 23,
+    # "Delay Time"); a 30 fps GIF with 30 ms frames played 11 % fast. Read
+    # back with Pillow, the delays must add up to the clip's length to within
+    # half a centisecond, and no frame may be shorter than 20 ms (browsers
+    # play shorter delays at 100 ms; common practice).
+    n = 30
+    rng = np.random.default_rng(1)
+    codes = [rng.integers(0, 256, (8, 8, 3), dtype=np.uint8) for _ in range(n)]  # distinct: no frames merged
+    p = tmp_path / "rate.gif"
+    write_gif_codes(p, codes, fps)
+    im = Image.open(p)
+    delays = []
+    for i in range(im.n_frames):
+        im.seek(i)
+        delays.append(im.info["duration"])
+    assert len(delays) == n and min(delays) >= 20
+    assert abs(sum(delays) - 1000.0 * n / fps) <= 5.0
 
 
 def test_mp4_frame_count_even_size(tmp_path):

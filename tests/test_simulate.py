@@ -61,15 +61,29 @@ def test_plan_basics_and_rate_snap_note():
     assert any(n.startswith("force[3].evolve:") for n in plan.notes)
 
 
-def test_notes_name_what_cannot_loop():
+def test_what_breaks_an_exact_loop_is_a_warning_and_the_plan_says_what_the_loop_is():
     look = LookSpec(name="n", clip=ClipSpec(frames=30, fps=30, loop="exact", warmup=0.5),
                     sources=(SourceSpec(rate=10.0, bursts=(BurstSpec(0.2, 5),), stop=0.5, life=(2.0, 3.0)),))
-    notes = plan_simulation(look).notes
-    assert any(n.startswith("source[0].bursts: a burst cannot repeat") for n in notes)
-    assert any(n.startswith("source[0].stop:") for n in notes)
-    assert any(n.startswith("clip.warmup: 0.5 s raised to 3 s") for n in notes)
-    assert any(n.startswith("source[0].life:") for n in notes)
+    plan = plan_simulation(look)
+    assert any(n.startswith("source[0].bursts: a burst cannot repeat") for n in plan.warnings)
+    assert any(n.startswith("source[0].stop:") for n in plan.warnings)
+    assert not any("jump" in n or "closes" in n for n in plan.notes)  # no note may claim the loop closes
+    assert any(n.startswith("clip.warmup: 0.5 s raised to 3 s") for n in plan.notes)
+    assert any(n.startswith("source[0].life:") for n in plan.notes)
+    assert plan.loop_breaks == ("source[0].stop", "source[0].bursts") and plan.effective_loop == "none"
+    late = LookSpec(name="n", clip=ClipSpec(frames=30, fps=30, loop="exact"), sources=(SourceSpec(start=0.4),))
+    assert plan_simulation(late).loop_breaks == ("source[0].start",)
+    whole = plan_simulation(_busy_look("exact"))
+    assert whole.warnings == () and whole.effective_loop == "exact"
     assert plan_simulation(_busy_look("none")).notes == ()
+
+
+def test_a_crossfade_that_rounds_far_from_what_was_asked_is_a_warning():
+    # 0.1 of 4 frames is 0.4 frames: blended over 1 frame (a quarter of the clip), which must be said.
+    short = plan_simulation(LookSpec(name="c", clip=ClipSpec(frames=4, loop="crossfade", crossfade=0.1)))
+    assert any(w.startswith("clip.crossfade: 0.1 of 4 frames is 0.4 frames") for w in short.warnings)
+    fine = plan_simulation(LookSpec(name="c", clip=ClipSpec(frames=64, loop="crossfade", crossfade=0.25)))
+    assert fine.warnings == ()
 
 
 def test_frame_state_fields():
@@ -162,7 +176,29 @@ def test_save_states_round_trip(tmp_path):
         np.testing.assert_array_equal(z["time"], [0.0, 0.2, 0.4])
         for j, st in enumerate(states):
             for name in FIELDS:
-                np.testing.assert_array_equal(z[name][fs[j]:fs[j + 1]], getattr(st, name), err_msg=name)
+                want = getattr(st, name)
+                want = want.astype(np.float32) if want.dtype.kind == "f" else want  # floats stored as float32
+                assert z[name].dtype == want.dtype, name
+                np.testing.assert_array_equal(z[name][fs[j]:fs[j + 1]], want, err_msg=name)
+
+
+def test_saved_states_are_compressed_float32_with_the_umask_permissions(tmp_path):
+    # The file once came out mode 0600 and as raw float64 (35 MB for 64 frames).
+    import stat
+    import zipfile
+
+    states = list(simulate(_busy_look(), frames=range(12)))
+    old = os.umask(0o022)
+    try:
+        save_states(tmp_path / "sim.npz", states)
+    finally:
+        os.umask(old)
+    assert stat.S_IMODE(os.stat(tmp_path / "sim.npz").st_mode) == 0o644  # what open() gives under umask 022
+    with zipfile.ZipFile(tmp_path / "sim.npz") as z:
+        infos = {i.filename: i for i in z.infolist()}
+    assert infos["pos.npy"].compress_type == zipfile.ZIP_DEFLATED
+    raw64 = sum(getattr(st, name).astype(np.float64).nbytes for st in states for name in ("pos", "vel", "deform"))
+    assert sum(infos[f"{n}.npy"].compress_size for n in ("pos", "vel", "deform")) < 0.5 * raw64
 
 
 def test_save_states_empty(tmp_path):

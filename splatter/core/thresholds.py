@@ -4,8 +4,6 @@ Examples
 --------
 >>> round(VISIBLE_ALPHA * 255, 6)
 1.0
->>> FIT_ALPHA == VISIBLE_ALPHA / 4
-True
 """
 
 CUTOFF = 3.0
@@ -13,10 +11,6 @@ CUTOFF = 3.0
 
 VISIBLE_ALPHA = 1.0 / 255.0
 """Alpha of one 8-bit step: smoke at or above it can be seen in an 8-bit texture."""
-
-FIT_ALPHA = VISIBLE_ALPHA / 4.0
-"""``camera.fit`` frames each puff out to this alpha, so faint rims that overlap
-near the edge still add up to less than :data:`VISIBLE_ALPHA` there."""
 
 MAX_OPACITY = 1.0 - 1e-6
 """Opacity is clipped here wherever it becomes an optical depth ``-ln(1 - a)``,

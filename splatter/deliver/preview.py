@@ -20,7 +20,7 @@ from splatter.deliver.fileio import atomic_path
 from splatter.deliver.png import write_png_encoded
 from splatter.deliver.sheet import sheet_layout
 
-__all__ = ["write_gif_codes", "write_mp4_codes", "write_contact_codes", "checker", "over_checker", "write_gif", "write_mp4", "write_contact_sheet"]
+__all__ = ["gif_delays", "write_gif_codes", "write_mp4_codes", "write_contact_codes", "checker", "over_checker", "write_gif", "write_mp4", "write_contact_sheet"]
 
 # Two neutral greys, given as sRGB code values (102 and 153 of 255) so the
 # checker looks even on screen; composited in linear light.
@@ -101,8 +101,10 @@ def write_gif(path, frames_premult_linear, fps, *, exposure=0.0):
     frames_premult_linear : iterable of (H, W, 4) float ndarray
         Linear premultiplied RGBA frames, all the same size.
     fps : float
-        Playback rate. GIF delays are whole centiseconds, so the rate is
-        rounded to ``100 / round(100 / fps)`` (30 fps plays at 33.3).
+        Playback rate. GIF delays are whole centiseconds, so each frame's
+        delay is rounded from its place on the clip's clock (see
+        :func:`gif_delays`): 30 fps alternates 3 and 4 centiseconds and plays
+        at 30 fps on average, not at 33.3.
     exposure : float
         Stops applied to the frames' colour.
 
@@ -121,13 +123,40 @@ def write_gif(path, frames_premult_linear, fps, *, exposure=0.0):
     return write_gif_codes(path, _preview_frames(frames_premult_linear, exposure), fps)
 
 
+def gif_delays(n_frames, fps):
+    """Each frame's GIF delay in milliseconds: whole centiseconds that keep to the clip's clock.
+
+    Frame ``i`` shows from ``round(100 i / fps)`` to ``round(100 (i + 1) / fps)``
+    centiseconds, so the delays sum to the clip's length (to half a
+    centisecond) however the rate divides 100. Delays never go below 2
+    centiseconds: browsers play shorter ones at 10 (common practice), so
+    above 50 fps the GIF plays at 50 fps; nor above 65535, the largest the
+    format's 16-bit field holds (GIF89a, section 23), so below 0.0015 fps a
+    frame shows for 655 s.
+
+    Examples
+    --------
+    >>> gif_delays(6, 30.0)
+    [30, 40, 30, 30, 40, 30]
+    >>> sum(gif_delays(24, 24.0)), sum(gif_delays(30, 30.0))  # one second each
+    (1000, 1000)
+    """
+    fps = check_positive(fps, "fps")
+    ends = [round(100.0 * (i + 1) / fps) for i in range(int(n_frames))]
+    starts = [0] + ends[:-1]
+    return [10 * min(65535, max(2, b - a)) for a, b in zip(starts, ends)]
+
+
 def write_gif_codes(path, codes, fps):
     """:func:`write_gif` from frames already over the checker: a list of (H, W, 3) uint8 sRGB codes."""
     import imageio.v3 as iio
 
-    duration_ms = 10.0 * max(1, round(100.0 / fps))
+    codes = np.stack(codes)
+    delays = gif_delays(len(codes), fps)
     with atomic_path(path, suffix=".gif") as tmp:
-        iio.imwrite(tmp, np.stack(codes), plugin="pillow", extension=".gif", duration=duration_ms, loop=0)
+        # Pillow takes a list of delays for an animation, a number for a single frame.
+        iio.imwrite(tmp, codes, plugin="pillow", extension=".gif", duration=delays if len(delays) > 1 else delays[0],
+                    loop=0)
     return os.fspath(path)
 
 

@@ -46,9 +46,10 @@ from splatter.deliver.sheet import (
     write_sheet_codes,
     write_sheet_image,
 )
+from splatter.core.errors import LookError
 from splatter.look.records import LookSpec
 
-__all__ = ["OutputSink", "NORMAL_ATTRIBUTE"]
+__all__ = ["OutputSink", "NORMAL_ATTRIBUTE", "check_outputs"]
 
 _PREVIEW_MAX = 512  # GIF and MP4 frames fit this many pixels on a side
 _CONTACT_MAX = 256  # contact-sheet thumbnails fit this
@@ -60,6 +61,37 @@ NORMAL_ATTRIBUTE = "splatter.normal_convention"
 
 def _convention(out) -> str:
     return "+y down" if out.normal_y == "down" else "+y up"
+
+
+def check_outputs(look: LookSpec, n_frames: int, frames: Optional[Sequence[int]] = None):
+    """Lay out the sheet for ``n_frames`` frames (numbered ``frames``, default ``0 .. n_frames - 1``)
+    as the render will, before any frame is rendered.
+
+    Returns
+    -------
+    SheetLayout or None
+        None when the look asks for no sheet.
+
+    Raises
+    ------
+    LookError
+        The sheet options cannot hold these frames (for example padding
+        that leaves no room in a power-of-two cell of 16 px frames).
+    """
+    spec = look.output.sheet
+    if spec is None:
+        return None
+    n = max(1, n_frames)
+    numbers = list(range(n)) if frames is None else [int(f) for f in frames][:n]
+    cols, rows = (spec.columns, spec.rows) if numbers == list(range(look.clip.frames)) else partial_grid(
+        n, spec.columns, spec.rows, spec.pow2)
+    try:
+        return sheet_layout(n, look.image.width, look.image.height, columns=cols, rows=rows, padding=spec.padding,
+                            pow2=spec.pow2, cell=spec.cell, numbers=numbers if len(numbers) == n else None)
+    except ValueError as err:
+        raise LookError(look.path, "output.sheet",
+                        f"sheet options that fit {n_frames} frames of {look.image.width} x {look.image.height} px",
+                        str(err)) from None
 
 
 class OutputSink:
@@ -77,6 +109,10 @@ class OutputSink:
         n_frames - 1``). The sheet's cells carry them, and a sheet that does
         not hold the whole clip ``0 .. clip.frames - 1`` is laid out for the
         frames it holds and says ``loop: "none"`` (it does not loop).
+    loop : str, optional
+        What the clip really is, for the sheet metadata (the plan's
+        ``effective_loop``: ``"none"`` when an exact loop is broken);
+        default ``clip.loop``.
 
     Notes
     -----
@@ -96,11 +132,14 @@ class OutputSink:
     ``--resume`` can skip the frame.
     """
 
-    def __init__(self, look: LookSpec, out_dir: str, n_frames: int, frames: Optional[Sequence[int]] = None):
+    def __init__(self, look: LookSpec, out_dir: str, n_frames: int, frames: Optional[Sequence[int]] = None,
+                 loop: Optional[str] = None):
         self.look = look
+        self.loop = look.clip.loop if loop is None else loop
+        self.numbers = list(range(n_frames)) if frames is None else [int(f) for f in frames]
+        check_outputs(look, n_frames, self.numbers)  # a bad sheet fails here, before the first frame is rendered
         self.out_dir = out_dir
         self.n_frames = n_frames
-        self.numbers = list(range(n_frames)) if frames is None else [int(f) for f in frames]
         self.whole_clip = self.numbers == list(range(look.clip.frames))
         self.files: List[str] = []
         self.write_seconds = 0.0
@@ -294,7 +333,7 @@ class OutputSink:
             for f in entry.get("files", [entry.get("file")]):
                 self.files.append(os.path.join(self.out_dir, f))
         sheet, self._sheet = self._sheet, None
-        loop = look.clip.loop if self.whole_clip else "none"  # a part of a loop does not loop
+        loop = self.loop if self.whole_clip else "none"  # a part of a loop does not loop
         if spec.format == "png":
             self.files += write_sheet_codes(self.out_dir, name, sheet, layout, alpha=look.output.png_alpha,
                                             fps=look.clip.fps, loop=loop, maps=maps)

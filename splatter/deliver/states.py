@@ -43,6 +43,11 @@ def save_states(path, states: Iterable[FrameState]) -> None:
     ``time (F,) float64``, and per puff ``id``, ``slot``, ``source``, ``pos``,
     ``vel``, ``age``, ``life``, ``size``, ``opacity``, ``color``, ``glow``,
     ``aspect``, ``quat``, ``stretch``, ``density``, ``deform`` (rows of (3, 3)).
+    Per-puff floats are stored as float32 (7 significant digits, the
+    precision point caches in the trade carry; common practice), integers as
+    they are, and the file is zip-deflated: a 64-frame look of 20,000 puffs
+    takes about a third of its float64, uncompressed size. The file gets the
+    permissions a plain ``open()`` gives under the process umask.
     """
     path = os.fspath(path)
     cols = {name: [] for name in PER_PUFF_FIELDS}
@@ -54,9 +59,10 @@ def save_states(path, states: Iterable[FrameState]) -> None:
         for name in PER_PUFF_FIELDS:
             cols[name].append(getattr(st, name))
     arrays = {name: (np.concatenate(cols[name]) if cols[name] else empty_field(name)) for name in PER_PUFF_FIELDS}
+    arrays = {name: a.astype(np.float32) if a.dtype.kind == "f" else a for name, a in arrays.items()}
     arrays["frame_start"] = np.cumsum(np.array(counts, dtype=np.int64))
     arrays["frame"] = np.array(frame, dtype=np.int64)
     arrays["time"] = np.array(time, dtype=np.float64)
     with atomic_path(path, suffix=".npz") as tmp:
         with open(tmp, "wb") as fh:
-            np.savez(fh, **arrays)
+            np.savez_compressed(fh, **arrays)

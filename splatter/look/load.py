@@ -19,7 +19,7 @@ from __future__ import annotations
 import os
 import re
 import tomllib
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any, Dict, Iterable, List, Optional, Sequence, Tuple
 
@@ -170,6 +170,7 @@ def _apply_override(data: Dict, keys: List[Any], value: Any, origins: Dict[Tuple
                 raise LookError("--set", shown, "an index here (this is an array)", repr(k))
             if k not in node:
                 node[k] = [] if isinstance(nxt, int) else {}
+                origins[tuple(keys[: depth + 1])] = "--set"  # a table --set made: its errors blame --set
             node = node[k]
     last = keys[-1]
     shown = ".".join(map(str, keys))
@@ -252,9 +253,11 @@ def load_look(path, *, overrides: Iterable[str] = (), seed: Optional[int] = None
     ...
     splatter.core.errors.LookError: --set: clip.frames: expected an integer from 1 to 10000, got integer 0
     """
-    overrides = list(overrides)
-    if seed is not None:
-        overrides.append(f"seed={int(seed)}")
-    return build_look(read_raw(path, overrides))
+    look = build_look(read_raw(path, list(overrides)))
+    if seed is None:
+        return look
+    if isinstance(seed, bool) or int(seed) != seed or not 0 <= seed <= 2**63 - 1:
+        raise LookError("--seed", "", f"an integer from 0 to {2**63 - 1}", str(seed))
+    return replace(look, seed=int(seed))
 
 

@@ -133,6 +133,7 @@ class CameraSpec:
     fov: float = key(40.0, number(0.0, 170.0, lo_open=True))
     fit: bool = key(False, boolean)
     margin: float = key(0.05, number(0.0, 0.45))
+    fit_alpha: float = key(1.0 / 255.0, number(0.0, 0.5, lo_open=True))  # extension: alpha the fit keeps the edge below
 
 
 @dataclass(frozen=True)

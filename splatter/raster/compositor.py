@@ -32,6 +32,17 @@ TILE = (_k.TILE_H, _k.TILE_W)
 
 _MODES = {"over": _k.MODE_OVER, "add": _k.MODE_ADD, "absorb": _k.MODE_ABSORB}
 
+TABLE_BYTES = 64 * 2**20
+"""Most bytes one frame's row-profile tables may take.
+
+A table holds a splat's row profile across its whole 3-sigma width, which is
+unbounded (a puff ten times the frame, or a camera zoomed far in, asks for
+gigabytes). The widest splats beyond this budget take the direct path (a
+vector ``exp`` per chunk, no table), so the memory a frame needs is bounded
+by its splat count and image size, never by how large a footprint is; the
+pixels drawn are the same to float32 rounding.
+"""
+
 _SCRATCH = threading.local()
 """Per-thread reusable work arrays (see :func:`_scratch`)."""
 
@@ -219,6 +230,7 @@ def _render(means, covs, features, opacities, height, width, blend, times=None):
     tlen = _scratch("tlen", (n,), np.int64)
     _k._prepare(_as_kernel_floats(means), _as_kernel_floats(covs),
                 peaks, height, width, params, ranges, tlen)
+    _direct_beyond(ranges, tlen, TABLE_BYTES // 4)
     toff = np.cumsum(tlen, out=_scratch("toff", (n,), np.int64))
     ranges[:, _k.N_RANGES - 1] = toff - tlen
     clock.lap("prepare")
@@ -244,6 +256,23 @@ def _render(means, covs, features, opacities, height, width, blend, times=None):
            peaks, offsets, order, tile_order, out)
     clock.lap("kernel")
     return out
+
+
+def _direct_beyond(ranges, tlen, budget):
+    """Send the widest splats to the direct path until the tables fit ``budget`` floats.
+
+    ``ranges`` and ``tlen`` are :func:`splatter.raster._kernels._prepare`'s
+    outputs, changed in place: a demoted splat gets half-length -1 and
+    table length 0.
+    """
+    total = int(tlen.sum())
+    if total <= budget:
+        return
+    order = np.argsort(-tlen, kind="stable")
+    left = total - np.cumsum(tlen[order])
+    cut = order[: int(np.searchsorted(-left, -budget)) + 1]  # the widest, until what is left fits
+    ranges[cut, _k._KH] = -1
+    tlen[cut] = 0
 
 
 class _Clock:

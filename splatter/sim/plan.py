@@ -24,7 +24,7 @@ from splatter.sim.forces import ForceTables, pack_forces
 from splatter.sim.obstacles import ObstacleTables, pack_obstacles
 from splatter.sim.swirl import auto_octaves
 
-__all__ = ["SimPlan", "plan_simulation", "has_auto_octaves", "with_octaves"]
+__all__ = ["SimPlan", "plan_simulation", "has_auto_octaves", "with_octaves", "crossfade_frames"]
 
 _MAX_DENOMINATOR = 1 << 20  # rational births per step when not looping: rate error < 1e-6
 
@@ -65,6 +65,14 @@ class SimPlan:
     obstacles : ObstacleTables
     notes : tuple of str
         Plain sentences: the key, then what was done.
+    warnings : tuple of str
+        Plain sentences, the key first, on settings that break what the
+        look asks for: a source that starts, stops or bursts inside an exact
+        loop (the seam jumps), a crossfade that rounds to far fewer or more
+        frames than asked.
+    loop_breaks : tuple of str
+        The keys that keep an exact loop from closing (empty when it closes
+        or the clip does not loop exactly).
     steady_state_puffs : float
         Expected puffs alive at steady state: sum of rate * mean life, plus
         every burst's count.
@@ -93,6 +101,17 @@ class SimPlan:
     steady_state_puffs: float
     swirl_octaves: Tuple[int, ...] = ()
     pixel_size: Optional[float] = None
+    warnings: Tuple[str, ...] = ()
+    loop_breaks: Tuple[str, ...] = ()
+
+    @property
+    def effective_loop(self) -> str:
+        """What the clip really is: ``clip.loop``, except ``"none"`` when an exact loop is broken.
+
+        The sheet metadata states this, so an engine never treats a clip
+        whose seam jumps as a seamless loop.
+        """
+        return "none" if self.loop_breaks else self.loop
 
     def frame_step(self, frame: int) -> int:
         """Step boundary of ``frame``."""
@@ -115,6 +134,20 @@ def _burst_boundary(time: float, warmup_steps: int, steps_per_second: float):
         x = float(round(x))
     s = max(0, math.ceil(x))
     return s, max(0.0, s - x)
+
+
+def crossfade_frames(clip) -> int:
+    """Frames a crossfade loop blends across the seam: ``clip.crossfade`` of the clip, at least 1 (0 otherwise).
+
+    Examples
+    --------
+    >>> from splatter.look.records import ClipSpec
+    >>> crossfade_frames(ClipSpec(frames=64, loop="crossfade")), crossfade_frames(ClipSpec(frames=4, loop="crossfade"))
+    (16, 1)
+    """
+    if clip.loop != "crossfade":
+        return 0
+    return max(1, int(round(clip.crossfade * clip.frames)))
 
 
 def has_auto_octaves(look) -> bool:
@@ -186,9 +219,17 @@ def plan_simulation(look, *, pixel_size: Optional[float] = None) -> SimPlan:
         warmup_steps = math.ceil(max_life * sps - 1e-9)
         notes.append(f"clip.warmup: {_fmt(warmup)} s raised to {_fmt(warmup_steps * dt)} s, the longest puff life, "
                      f"so frame 0 of the exact loop is in steady state")
+    warns, breaks = [], []
     if clip.loop == "crossfade":
+        fade = crossfade_frames(clip)
+        asked = clip.crossfade * clip.frames
         notes.append(f"clip.loop: crossfade; the simulation runs on past the last frame and the renderer blends "
-                     f"{_fmt(clip.crossfade)} of the clip across the seam")
+                     f"{fade} frames ({_fmt(clip.crossfade)} of the clip) across the seam")
+        if abs(fade - asked) > max(0.25, 0.1 * asked):
+            warns.append(f"clip.crossfade: {_fmt(clip.crossfade)} of {clip.frames} frames is {_fmt(asked)} frames; "
+                         f"the seam is blended over {fade} frame{'s' if fade > 1 else ''} "
+                         f"({_fmt(fade / clip.frames)} of the clip). Set clip.crossfade to a multiple of "
+                         f"{_fmt(1 / clip.frames)} or render more frames")
 
     rates, schedules = [], []
     steady = 0.0
@@ -210,18 +251,21 @@ def plan_simulation(look, *, pixel_size: Optional[float] = None) -> SimPlan:
             eff = per / period
             sched = Schedule(per=per, steps=period_steps, origin=0, lo=lo, hi=hi)
             if per and start > 0:
-                notes.append(f"{key}.start: the source starts at {_fmt(start)} s, inside the clip; the exact loop "
-                             f"will show a jump at the seam")
+                breaks.append(f"{key}.start")
+                warns.append(f"{key}.start: the source starts at {_fmt(start)} s, inside the clip; the exact loop "
+                             f"will show a jump at the seam (set start = 0, or loop = \"crossfade\")")
             if per and stop is not None and stop < period:
-                notes.append(f"{key}.stop: the source stops at {_fmt(stop)} s, before the {_fmt(period)} s loop "
-                             f"period ends; the exact loop will show a jump at the seam")
+                breaks.append(f"{key}.stop")
+                warns.append(f"{key}.stop: the source stops at {_fmt(stop)} s, before the {_fmt(period)} s loop "
+                             f"period ends; the exact loop will show a jump at the seam (set stop = \"never\", or "
+                             f"loop = \"crossfade\")")
             if src.bursts:
-                notes.append(f"{key}.bursts: a burst cannot repeat in an exact loop; the loop will show a jump at "
-                             f"the seam")
+                breaks.append(f"{key}.bursts")
+                warns.append(f"{key}.bursts: a burst cannot repeat in an exact loop; the loop will show a jump at "
+                             f"the seam (drop the bursts, or set loop = \"none\" for a one-shot)")
             if per and float(src.life[1]) > period:
                 notes.append(f"{key}.life: puffs live up to {_fmt(src.life[1])} s, longer than the {_fmt(period)} s "
-                             f"loop period, so twins born one period apart are alive together (the loop still "
-                             f"closes exactly)")
+                             f"loop period, so twins born one period apart are alive together")
         else:
             per, steps = 0, 1
             if rate > 0:
@@ -260,4 +304,5 @@ def plan_simulation(look, *, pixel_size: Optional[float] = None) -> SimPlan:
                    schedules=tuple(schedules), gust_periods=forces.gust_periods, forces=forces,
                    obstacles=pack_obstacles(look.obstacles), notes=tuple(notes), steady_state_puffs=steady,
                    swirl_octaves=tuple(f.octaves for f in resolved if f.kind == "swirl"),
-                   pixel_size=None if pixel_size is None else float(pixel_size))
+                   pixel_size=None if pixel_size is None else float(pixel_size), warnings=tuple(warns),
+                   loop_breaks=tuple(breaks))

@@ -172,6 +172,14 @@ def _project_one(i, pos, c00, c01, c02, c10, c11, c12, c20, c21, c22, rot, eye, 
         syy = scale * scale
     sxx += low_pass
     syy += low_pass
+    # A footprint over 700 times longer than wide (a puff of size 1e4 and aspect 1e-6) stored as
+    # float32 can round to a determinant <= 0; keeping the correlation within 1 - 1e-6 (the
+    # short axis at least 1/700 of the long) leaves it positive after rounding.
+    lim = (1.0 - 1e-6) * math.sqrt(sxx * syy)
+    if abs(sxy) > lim:
+        sxy = math.copysign(lim, sxy)
+    if abs(syx) > lim:
+        syx = math.copysign(lim, syx)
     rx = 3.0 * math.sqrt(sxx)
     ry = 3.0 * math.sqrt(syy)
     on = (mx + rx > 0) & (mx - rx < width) & (my + ry > 0) & (my - ry < height)

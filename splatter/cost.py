@@ -1,0 +1,311 @@
+"""What a render will cost: peak memory by part, a rough time, and the limit it must fit.
+
+``check`` prints the estimate; ``render`` refuses (exit 2) a render whose
+estimate passes the limit, before the first frame, naming the part that
+drives the cost and the keys that cut it. The limit is a share of the
+memory the machine has free (:func:`memory_limit`), or ``--max-memory``.
+
+The model counts what the pipeline holds at its peak (every figure in
+bytes):
+
+* **simulation**: the live puffs (about :data:`BYTES_PER_PUFF` each: the
+  driver's buffers, one frame's state, its splats and the compositor's
+  per-splat layout), plus the twin driver's held frames for exact loops;
+* **compositing**: the (tile, splat) pairs, 8 bytes each, from the largest
+  footprint a puff can reach (``size`` times the largest ``grow``, in pixels
+  at the camera's target), and the row tables (at most
+  :data:`splatter.raster.compositor.TABLE_BYTES`);
+* **frames**: a frame's feature image, float32 with ``K + 1`` channels, in
+  flight :data:`FRAMES_IN_FLIGHT` times (compositing, the crossfade tail,
+  the writer's queue);
+* **sheets**: the colour sheet (8/16-bit codes for PNG, float32 RGBA for
+  EXR) and, with maps, every frame's map layers and alpha, kept until the
+  end because map encodings use clip-wide ranges;
+* **previews**: GIF/MP4 frames at most 512 px and contact thumbnails at most
+  256 px on a side, 3 bytes a pixel, every frame;
+* **framing**: ``camera.fit`` keeps the sampled puff centres of every frame.
+
+The time is a rough figure from this machine's measured rates
+(:data:`PIXELS_PER_SECOND`, :data:`PUFF_STEPS_PER_SECOND`), a guide to the
+order of magnitude only.
+
+Examples
+--------
+>>> parse_size("8G"), parse_size("512M"), parse_size("1.5 GB")
+(8589934592, 536870912, 1610612736)
+>>> format_bytes(3.2e9)
+'3.0 GiB'
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import re
+from dataclasses import dataclass, field
+from typing import Dict, List, Optional
+
+from splatter.core.errors import LookError
+from splatter.deliver.sink import check_outputs
+from splatter.look.records import LookSpec
+from splatter.raster.compositor import TABLE_BYTES
+from splatter.render import FIT_PUFFS, _crossfade_frames
+from splatter.sim.driver import TWIN_MEMORY, SimPlan
+
+__all__ = ["CostEstimate", "estimate_cost", "births_per_step", "memory_limit", "parse_size", "format_bytes",
+           "refuse_if_too_big"]
+
+BYTES_PER_PUFF = 1200
+"""Bytes one live puff costs across the simulation, its frame state, splat and layout (measured: about 1.2 KB for the harbour chimney)."""
+
+FRAMES_IN_FLIGHT = 7
+"""Frame-sized float images alive at once: the composite, the crossfade tail and blend, the split
+colour and maps, and the writer's queue of three."""
+
+BASELINE = 250 * 2**20
+"""Python, numpy, numba and the compiled kernels."""
+
+FIT_BYTES_PER_POINT = 40
+"""``camera.fit`` keeps a centre (24 bytes) and a radius per sampled puff and frame, with some slack."""
+
+PIXELS_PER_SECOND = 1.5e8
+"""Footprint pixels composited per second (``scripts/bench_composite.py`` on this 2-core VM: 0.2-0.5 G)."""
+
+PUFF_STEPS_PER_SECOND = 5e6
+"""Puff steps per second with swirl and shaping (``scripts/bench_sim.py`` on this VM)."""
+
+STEP_SECONDS = 2e-5
+"""Python overhead of one simulation step, whatever the puff count."""
+
+LIMIT_SHARE = 0.8
+"""Share of the machine's available memory a render may plan to use by default."""
+
+_PART_KEYS = {"simulation": "source.rate", "compositing": "source.size", "frames": "image",
+              "sheets": "output.sheet", "previews": "output.preview", "framing": "clip.frames"}
+_MAP_CHANNELS = {"motion": 2, "depth": 1, "normal": 3, "lightdirs": 6}
+_SIZE = re.compile(r"^\s*([0-9]*\.?[0-9]+)\s*([kmgt]?)i?b?\s*$", re.IGNORECASE)
+
+
+def parse_size(text: str) -> int:
+    """``"8G"``, ``"512M"``, ``"1.5 GB"`` or plain bytes to a byte count (powers of 1024).
+
+    Raises
+    ------
+    ValueError
+        Not a size.
+    """
+    m = _SIZE.match(str(text))
+    if not m:
+        raise ValueError(f"expected a size such as 8G, 512M or 2048K, got {text!r}")
+    scale = 1024 ** "_kmgt".index((m.group(2) or "_").lower())
+    return int(float(m.group(1)) * scale)
+
+
+def format_bytes(n: float) -> str:
+    """Bytes in the largest binary unit that keeps the number at least 1, one decimal."""
+    for unit, size in (("TiB", 2**40), ("GiB", 2**30), ("MiB", 2**20)):
+        if n >= size:
+            return f"{n / size:.1f} {unit}"
+    return f"{n / 1024:.0f} KiB"
+
+
+def available_memory() -> int:
+    """Bytes the machine can give a new process now (``MemAvailable`` of ``/proc/meminfo``)."""
+    try:
+        with open("/proc/meminfo") as f:
+            for line in f:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    try:
+        return int(os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"))
+    except (ValueError, OSError, AttributeError):
+        return 8 * 2**30
+
+
+def memory_limit(option: Optional[str] = None) -> int:
+    """The most memory a render may plan to use: ``--max-memory``, else a share of what is free."""
+    if option is not None:
+        return parse_size(option)
+    return int(LIMIT_SHARE * available_memory())
+
+
+@dataclass
+class CostEstimate:
+    """A render's planned peak memory by part, a rough time and the limit.
+
+    Attributes
+    ----------
+    parts : dict of str to float
+        Bytes by part: simulation, compositing, frames, sheets, previews, framing, baseline.
+    seconds : float
+        Rough wall time.
+    limit : int
+        Bytes the render may use.
+    puffs : float
+        Live puffs at the peak.
+    sigma_px : float
+        Largest footprint sigma in pixels the estimate assumed.
+    hints : dict of str to str
+        For each part, what drives it and how to cut it.
+    """
+
+    parts: Dict[str, float]
+    seconds: float
+    limit: int
+    puffs: float
+    sigma_px: float
+    hints: Dict[str, str] = field(default_factory=dict)
+
+    @property
+    def peak(self) -> float:
+        """Planned peak bytes."""
+        return float(sum(self.parts.values()))
+
+    @property
+    def fits(self) -> bool:
+        """True when the peak is within the limit."""
+        return self.peak <= self.limit
+
+    def driver(self) -> str:
+        """The largest part."""
+        return max((k for k in self.parts if k != "baseline"), key=self.parts.get)
+
+    def lines(self) -> List[str]:
+        """The lines ``check`` prints."""
+        shown = ", ".join(f"{k} {format_bytes(v)}" for k, v in sorted(self.parts.items(), key=lambda kv: -kv[1])
+                          if v >= 2**20)
+        return [f"memory    about {format_bytes(self.peak)} at the peak ({shown}); limit {format_bytes(self.limit)}",
+                f"time      roughly {_format_seconds(self.seconds)} on this machine "
+                f"(largest footprint {self.sigma_px:.3g} px sigma)"]
+
+
+def _format_seconds(s: float) -> str:
+    if s < 60:
+        return f"{max(s, 0.1):.1g} s" if s < 10 else f"{s:.0f} s"
+    if s < 3600:
+        return f"{s / 60:.0f} min"
+    return f"{s / 3600:.1f} h"
+
+
+def _max_grow(src) -> float:
+    return max(v for _, v in src.grow)
+
+
+def births_per_step(look: LookSpec, plan: SimPlan) -> float:
+    """The most puffs born in one step: every source's rate times the step, plus its largest burst."""
+    return float(sum(rate * plan.dt + max((b.count for b in src.bursts), default=0)
+                     for src, rate in zip(look.sources, plan.rates)))
+
+
+def estimate_cost(look: LookSpec, plan: SimPlan, pixel_size: float, n_frames: int, *, limit: int,
+                  sigma_px: Optional[float] = None, mean_sigma_px: Optional[float] = None) -> CostEstimate:
+    """Estimate the peak memory and time of rendering ``n_frames`` frames of ``look``.
+
+    Parameters
+    ----------
+    look : LookSpec
+    plan : SimPlan
+    pixel_size : float
+        World units per pixel at the camera's target.
+    n_frames : int
+        Frames to render.
+    limit : int
+        Bytes the render may use (:func:`memory_limit`).
+    sigma_px, mean_sigma_px : float, optional
+        Largest and mean footprint sigma in pixels, when a sampled
+        simulation measured them; default from the sources' ``size`` and
+        ``grow`` (the largest a puff can reach, and half of it).
+
+    Returns
+    -------
+    CostEstimate
+    """
+    img, out = look.image, look.output
+    w, h = img.width, img.height
+    px = w * h
+    n = max(float(plan.steady_state_puffs), births_per_step(look, plan), 0.0)
+    if sigma_px is None:
+        reach = max((s.size[1] * _max_grow(s) * (1.0 + s.stretch) for s in look.sources), default=0.0)
+        sigma_px = reach / pixel_size
+    if mean_sigma_px is None:
+        mean_sigma_px = 0.5 * sigma_px
+    parts: Dict[str, float] = {"baseline": float(BASELINE)}
+    hints: Dict[str, str] = {}
+
+    sim = n * BYTES_PER_PUFF
+    if plan.period_steps is not None:
+        sim += min(float(TWIN_MEMORY), 128.0 * n * n_frames)
+    parts["simulation"] = sim
+    hints["simulation"] = (f"about {n:,.0f} live puffs (source rate times life, plus bursts); "
+                           "lower source.rate or source.life")
+
+    # (tile, splat) pairs: the tiles the largest footprint touches, at most all of them.
+    reach_px = min(6.0 * sigma_px, 4.0 * (w + h))
+    ntiles = math.ceil(w / 512) * math.ceil(h / 16)
+    tiles = min(float(ntiles), (reach_px / 16.0 + 2.0) * (reach_px / 512.0 + 2.0))
+    tables = min(float(TABLE_BYTES), n * 4.0 * 2.0 * min(3.0 * sigma_px + 10.0, float(w)))
+    parts["compositing"] = n * tiles * 16.0 + tables
+    hints["compositing"] = (f"{n:,.0f} puffs whose footprints reach {sigma_px:.3g} px sigma; lower source.size or "
+                            "source.grow, widen camera.view_width, or lower the rate")
+
+    k = 3 + sum(_MAP_CHANNELS[m] for m in out.maps if m != "normal")
+    parts["frames"] = float(px) * (k + 1) * 4 * FRAMES_IN_FLIGHT
+    hints["frames"] = f"{w} x {h} px frames with {k + 1} channels each; lower image.width and image.height"
+
+    sheets = 0.0
+    if out.sheet is not None:
+        layout = check_outputs(look, n_frames)
+        per = 4 * (out.png_bits // 8) if out.sheet.format == "png" else 16
+        sheets = float(layout.width * layout.height) * per
+        map_ch = sum(_MAP_CHANNELS[m] for m in out.maps)
+        if map_ch:
+            sheets += float(px) * (map_ch + 1) * 4 * n_frames  # layers and alpha of every frame
+            sheets += float(layout.width * layout.height) * 4 * 4  # one map sheet being encoded
+        hints["sheets"] = (f"a {layout.width} x {layout.height} px sheet"
+                           + (f" and {map_ch} map channels of every one of {n_frames} frames" if map_ch else "")
+                           + "; set output.sheet.cell smaller, render fewer frames, or drop output.maps")
+    parts["sheets"] = sheets
+
+    prev = 0.0
+    scale = lambda m: min(1.0, m / max(w, h)) ** 2  # noqa: E731 (shrunk by a whole factor, about this)
+    if set(out.preview) - {"contact"}:
+        prev += float(px) * scale(512) * 3 * n_frames * (2 if "mp4" in out.preview else 1)
+    if "contact" in out.preview:
+        prev += float(px) * scale(256) * 3 * n_frames * 2
+    parts["previews"] = prev
+    hints["previews"] = f"preview frames of all {n_frames} frames; drop output.preview or render fewer frames"
+
+    if look.camera.fit:
+        total = look.clip.frames + _crossfade_frames(look)
+        parts["framing"] = min(n, 2.0 * FIT_PUFFS) * total * FIT_BYTES_PER_POINT
+        hints["framing"] = f"camera.fit frames on sampled puffs of all {total} frames; render fewer clip.frames"
+
+    # Time: composite footprint pixels (the ellipse's share of its 6-sigma box, clipped to the frame),
+    # and the puff steps of the warm-up and the frames.
+    foot = min(math.pi * 9.0 * mean_sigma_px**2, float(px))
+    frame_steps = n_frames * plan.substeps
+    if plan.period_steps is not None:
+        # The twin driver steps one period's puffs from birth to death (lives may span many periods).
+        life = max((s.life[1] for s in look.sources), default=0.0)
+        steps = life / plan.dt + frame_steps
+        puff_steps = n * (plan.period_steps + frame_steps)
+    else:
+        steps = plan.warmup_steps + frame_steps
+        puff_steps = n * steps
+    seconds = n * foot * n_frames / PIXELS_PER_SECOND + puff_steps / PUFF_STEPS_PER_SECOND + steps * STEP_SECONDS
+    return CostEstimate(parts=parts, seconds=seconds, limit=int(limit), puffs=n, sigma_px=float(sigma_px),
+                        hints=hints)
+
+
+def refuse_if_too_big(look: LookSpec, est: CostEstimate, option_name: str = "--max-memory") -> None:
+    """Raise :class:`LookError` when ``est`` does not fit its limit, naming the cost's driver and the cure."""
+    if est.fits:
+        return
+    top = est.driver()
+    raise LookError(
+        look.path, _PART_KEYS[top],
+        f"a render that fits in {format_bytes(est.limit)} of memory (raise the limit with {option_name}, "
+        f"for example {option_name} {math.ceil(est.peak / 2**30)}G)",
+        f"about {format_bytes(est.peak)}, {format_bytes(est.parts[top])} of it for the {top}: {est.hints[top]}")
