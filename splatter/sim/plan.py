@@ -145,6 +145,22 @@ def _resolve_octaves(forces, pixel_size):
     return tuple(out)
 
 
+def _flow_notes(look, forces: ForceTables) -> list:
+    """What a convection force means for the loop, and heat that moves nothing."""
+    flow = [i for i, f in enumerate(look.forces) if f.kind == "convection"]
+    hot = [i for i, s in enumerate(look.sources) if s.heat > 0]
+    notes = []
+    if flow and hot and look.clip.loop == "exact":
+        notes.append(f'force[{flow[0]}]: a convection flow cannot repeat by construction, so clip.loop = "exact" '
+                     f'will show a jump at the seam; use clip.loop = "crossfade" for a seamless flipbook')
+    if flow and not hot:
+        notes.append(f"force[{flow[0]}]: no source has heat > 0, so the convection flow stays still; "
+                     f"give a source heat (source[0].heat) to make it rise")
+    if hot and not flow:
+        notes.append(f'source[{hot[0]}].heat: no force of kind "convection", so the heat moves nothing')
+    return notes
+
+
 def plan_simulation(look, *, pixel_size: Optional[float] = None) -> SimPlan:
     """Derive the step, warm-up, loop period, effective rates and notes of a look.
 
@@ -240,7 +256,8 @@ def plan_simulation(look, *, pixel_size: Optional[float] = None) -> SimPlan:
         schedules.append(sched)
         steady += eff * 0.5 * (float(src.life[0]) + float(src.life[1])) + sum(int(b.count) for b in src.bursts)
 
-    forces = pack_forces(resolved, seed=look.seed, loop_period=period)
+    forces = pack_forces(resolved, seed=look.seed, loop_period=period, heat=[float(s.heat) for s in look.sources])
+    notes += _flow_notes(look, forces)
     if exact:
         w = 0
         for i, f in enumerate(look.forces):
