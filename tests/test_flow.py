@@ -208,12 +208,12 @@ def test_a_steady_plume_spreads_linearly_at_the_published_rate():
     # Morton, Taylor and Turner 1956; Papanicolaou and List 1988: above a few source diameters the
     # time-averaged half-width grows linearly, db/dz about 0.1 (0.08-0.16 for the scalar).
     diameter = 0.2
-    T = 8.0
+    T = 12.0  # the second half averaged: with 4 s instead of 6 the spread moved 0.05-0.11 between seeds
     look = LookSpec(name="plume", seed=1, clip=ClipSpec(frames=int(T * 15), fps=15, substeps=2, warmup=0.0),
                     sources=(SourceSpec(shape="disc", radius=diameter / 2, rate=1500.0, speed=(0.05, 0.05),
                                         spread=0.0, life=(T, T), size=(0.01, 0.01), heat=0.0007),),
                     forces=(ConvectionSpec(cells=48, confinement=3.0),))
-    z, b, top = _half_width_growth(look, range(int(T * 15) // 2, int(T * 15), 2))
+    z, b, top = _half_width_growth(look, range(int(T * 15) // 2, int(T * 15), 3))
     sel = (z > 6 * diameter) & (z < 0.7 * top)
     assert sel.sum() >= 8
     slope, _ = np.polyfit(z[sel], b[sel], 1)

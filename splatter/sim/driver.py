@@ -322,8 +322,9 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int], sam
         From :func:`plan_simulation` (made here if not given; a look whose
         swirl octaves are "auto" needs one made with a pixel size).
     frames : iterable of int
-        Frame indices >= 0, any order; they may run past ``clip.frames - 1``
-        (the simulation simply continues).
+        Frame indices, any order; they may run past ``clip.frames - 1``
+        (the simulation simply continues), and back into the warm-up
+        (negative frames, down to ``-warmup_steps // substeps``).
     sample : int
         Simulate only the puffs whose spawn slot is a multiple of ``sample``
         (1: all). Puffs never act on each other, so these are exactly the
@@ -347,10 +348,11 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int], sam
     [(0, True), (3, True)]
     """
     wanted = sorted({int(f) for f in frames})
-    if wanted and wanted[0] < 0:
-        raise ValueError(f"frames must be >= 0, got {wanted[0]}")
     if plan is None:
         plan = plan_simulation(look)
+    if wanted and wanted[0] < 0 and plan.frame_step(wanted[0]) < 0:
+        raise ValueError(f"frames must be >= {-(plan.warmup_steps // plan.substeps)} (the warm-up's first whole "
+                         f"frame), got {wanted[0]}")
     if not wanted:
         return
     if isinstance(sample, bool) or int(sample) != sample or sample < 1:

@@ -24,7 +24,7 @@ from splatter.sim.forces import ForceTables, pack_forces
 from splatter.sim.obstacles import ObstacleTables, pack_obstacles
 from splatter.sim.swirl import auto_octaves
 
-__all__ = ["SimPlan", "plan_simulation", "has_auto_octaves", "with_octaves"]
+__all__ = ["SimPlan", "plan_simulation", "has_auto_octaves", "with_octaves", "crossfade_frames", "flows"]
 
 _MAX_DENOMINATOR = 1 << 20  # rational births per step when not looping: rate error < 1e-6
 
@@ -145,6 +145,19 @@ def _resolve_octaves(forces, pixel_size):
     return tuple(out)
 
 
+def crossfade_frames(clip) -> int:
+    """Frames blended across the seam of a ``loop = "crossfade"`` clip (0 for other loops)."""
+    if clip.loop != "crossfade":
+        return 0
+    return max(1, int(round(clip.crossfade * clip.frames)))
+
+
+def flows(plan: SimPlan) -> bool:
+    """True when the plan's convection flow moves (a convection force and a source with heat)."""
+    conv = plan.forces.convection
+    return conv is not None and any(h != 0.0 for h in conv.heat)
+
+
 def _flow_notes(look, forces: ForceTables) -> list:
     """What a convection force means for the loop, and heat that moves nothing."""
     flow = [i for i, f in enumerate(look.forces) if f.kind == "convection"]
@@ -202,7 +215,16 @@ def plan_simulation(look, *, pixel_size: Optional[float] = None) -> SimPlan:
         warmup_steps = math.ceil(max_life * sps - 1e-9)
         notes.append(f"clip.warmup: {_fmt(warmup)} s raised to {_fmt(warmup_steps * dt)} s, the longest puff life, "
                      f"so frame 0 of the exact loop is in steady state")
-    if clip.loop == "crossfade":
+    flowing = any(f.kind == "convection" for f in look.forces) and any(s.heat > 0 for s in look.sources)
+    if clip.loop == "crossfade" and flowing:
+        fade = crossfade_frames(clip)
+        if warmup_steps < fade * clip.substeps:
+            warmup_steps = fade * clip.substeps
+            notes.append(f"clip.warmup: {_fmt(warmup)} s raised to {_fmt(warmup_steps * dt)} s, the crossfade's "
+                         f"{fade} frames, which are simulated before frame 0")
+        notes.append(f"clip.loop: crossfade; the last {fade} frames ({_fmt(clip.crossfade)} of the clip) fade into "
+                     f"the {fade} frames the simulation ran just before frame 0, so the flow is simulated once")
+    elif clip.loop == "crossfade":
         notes.append(f"clip.loop: crossfade; the simulation runs on past the last frame and the renderer blends "
                      f"{_fmt(clip.crossfade)} of the clip across the seam")
 
