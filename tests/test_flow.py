@@ -223,3 +223,59 @@ def test_a_steady_plume_spreads_linearly_at_the_published_rate():
     resid = b[sel] - np.polyval(np.polyfit(z[sel], b[sel], 1), z[sel])
     assert resid.std() < 0.5 * b[sel].std()
     print(f"plume spread db/dz = {slope:.3f} over z = {z[sel][0]:.2f}..{z[sel][-1]:.2f}")
+
+
+FLOW_LOOK = """
+name = "steam_whistle"
+seed = 5
+[clip]
+frames = 6
+fps = 15
+warmup = 1.0
+loop = "exact"
+[[source]]
+rate = 300
+life = 1.5
+size = 0.03
+heat = 0.004
+[[force]]
+kind = "convection"
+cells = 12
+[[obstacle]]
+kind = "plane"
+point = [0, -0.2, 0]
+"""
+
+
+def test_simulate_writes_the_flow_grid_and_the_loop_note(tmp_path, capsys):
+    from splatter.cli import main
+
+    look = tmp_path / "steam_whistle.toml"
+    look.write_text(FLOW_LOOK)
+    grid = tmp_path / "grid.npz"
+    assert main(["simulate", str(look), "--out", str(tmp_path / "s.npz"), "--flow-grid", str(grid),
+                 "--flow-frame", "4"]) == 0
+    err = capsys.readouterr().err
+    assert 'force[0]: a convection flow cannot repeat' in err and 'clip.loop = "exact"' in err
+    data = np.load(grid)
+    shape = data["density"].shape
+    assert int(data["frame"]) == 4 and data["origin"].shape == (3,) and float(data["cell"]) > 0
+    assert data["velocity"].shape == shape + (3,) and data["heat"].shape == shape == data["solid"].shape
+    assert data["u"].shape == (shape[0] + 1,) + shape[1:] and data["v"].shape[1] == shape[1] + 1
+    assert data["density"].sum() > 0 and data["velocity"][..., 1].max() > 0 and data["solid"].any()
+    # The cell-centred velocity is the mean of each cell's faces.
+    assert np.allclose(data["velocity"][..., 0], 0.5 * (data["u"][1:] + data["u"][:-1]))
+
+
+def test_simulate_refuses_a_flow_grid_without_a_flow(tmp_path, capsys):
+    from splatter.cli import main
+
+    look = tmp_path / "quiet.toml"
+    look.write_text(FLOW_LOOK.replace("heat = 0.004", ""))
+    out = tmp_path / "out"
+    assert main(["simulate", str(look), "--out", str(out / "s.npz"), "--flow-grid", str(out / "g.npz")]) == 2
+    err = capsys.readouterr().err
+    assert "--flow-grid" in err and "convection" in err and "Traceback" not in err
+    assert not out.exists()
+    assert main(["check", str(look)]) == 0
+    assert "no source has heat" in capsys.readouterr().out
