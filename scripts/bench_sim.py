@@ -149,6 +149,7 @@ def main():
     ap.add_argument("--rate-scale", type=float, default=1.0, help="with --look: multiply every source's rate")
     ap.add_argument("--size", type=int, default=0, help="with --look: image width and height, px")
     ap.add_argument("--repeats-driver", type=int, default=2, help="best of this many simulate() timings")
+    ap.add_argument("--flow-only", action="store_true", help="time the puff step and the convection flow only")
     args = ap.parse_args()
     if args.look:
         _look_ab(args)
@@ -200,6 +201,9 @@ def main():
     print(f"numba step : {rate_numba / 1e6:8.2f} M particle-steps/s")
     print(f"  + shapes : {n * args.steps / t_shaped / 1e6:8.2f} M particle-steps/s  (velocity gradient and F"
           f" update, follow = 1; {t_shaped / t_numba:.2f}x the time)")
+    if args.flow_only:
+        flow_steps(n, t_numba / args.steps, repeats=args.repeats)
+        return
     print(f"numpy step : {rate_numpy / 1e6:8.2f} M particle-steps/s")
     # The whole driver (emission, ageing, ramps, output) on a look holding ~n puffs.
     look = LookSpec(name="bench", clip=ClipSpec(frames=64, fps=30, substeps=2, loop="exact"),
