@@ -119,8 +119,8 @@ def make_camera(look: LookSpec, plan: Optional[SimPlan] = None, frames: Optional
     blend = look.shading.blend
     sample = max(1, int(plan.steady_state_puffs // FIT_PUFFS))
     # The fit keeps the view direction, so the camera's axes (which thinning uses) are already final.
-    return fit_camera(cam, simulate(look, plan, frames=frames, sample=sample), margin=c.margin,
-                      opacity_of=lambda state: seen_opacity(state, blend, cam))
+    states = simulate(look, plan, frames=frames, sample=sample, warmup_frames=True)
+    return fit_camera(cam, states, margin=c.margin, opacity_of=lambda state: seen_opacity(state, blend, cam))
 
 
 def pixel_size(camera: Camera) -> float:
@@ -301,8 +301,8 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
         lead_frames = sorted({f - n for f in wanted if n - fade <= f < n})
         tail_frames = []
         every = sorted(set(wanted) | set(lead_frames))
-        main = frame_images(look, camera, _timed(simulate(look, plan, frames=every), timings, "simulate"),
-                            timings=timings)
+        main = frame_images(look, camera, _timed(simulate(look, plan, frames=every, warmup_frames=True), timings,
+                                                  "simulate"), timings=timings)
     else:
         lead_frames = []
         tail_frames = [n + f for f in wanted if f < fade] if fade else []

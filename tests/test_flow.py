@@ -141,6 +141,24 @@ def test_same_seed_same_bytes_for_any_thread_count_and_frame_range():
         assert np.array_equal(getattr(one[1], name), getattr(alone[0], name)), name
 
 
+def test_a_flow_crossfade_reaches_back_into_the_warm_up():
+    # The crossfade of a flow look blends the clip's end into the frames just before frame 0: the plan makes
+    # the warm-up long enough, and those frames are the same states a run asked only for them gives.
+    look = _plume_look(0.002, frames=8)
+    look = LookSpec(**{**look.__dict__, "clip": ClipSpec(frames=8, fps=15, substeps=2, warmup=0.0,
+                                                         loop="crossfade", crossfade=0.25)})
+    plan = plan_simulation(look)
+    assert plan.warmup_steps == 2 * 2 and any("before frame 0" in n for n in plan.notes)
+    with pytest.raises(ValueError, match="frames must be >= 0"):
+        list(simulate(look, plan, frames=[-1]))
+    both = list(simulate(look, plan, frames=[-2, 7], warmup_frames=True))
+    alone = list(simulate(look, plan, frames=[-2], warmup_frames=True))
+    assert [s.frame for s in both] == [-2, 7] and len(both[0]) > 0
+    assert np.array_equal(both[0].pos, alone[0].pos)
+    with pytest.raises(ValueError, match="warm-up"):
+        list(simulate(look, plan, frames=[-3], warmup_frames=True))
+
+
 def test_the_grid_follows_the_rising_smoke():
     # A plume rising far above where it started never meets the top of the grid.
     look = _plume_look(0.003, frames=30, life=(3.0, 3.0))

@@ -307,7 +307,8 @@ def _state_of(look, plan: SimPlan, pick: dict, frame: int, step: int, flow: Opti
                       stretch=stretch, density=density, deform=pick["deform"], flow=snapshot)
 
 
-def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int], sample: int = 1) -> Iterator[FrameState]:
+def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int], sample: int = 1,
+             warmup_frames: bool = False) -> Iterator[FrameState]:
     """Run the simulation and yield the requested frames.
 
     Exact loops whose sources emit on their whole lattice (no ``start`` or
@@ -323,8 +324,7 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int], sam
         swirl octaves are "auto" needs one made with a pixel size).
     frames : iterable of int
         Frame indices, any order; they may run past ``clip.frames - 1``
-        (the simulation simply continues), and back into the warm-up
-        (negative frames, down to ``-warmup_steps // substeps``).
+        (the simulation simply continues); >= 0 unless ``warmup_frames``.
     sample : int
         Simulate only the puffs whose spawn slot is a multiple of ``sample``
         (1: all). Puffs never act on each other, so these are exactly the
@@ -332,6 +332,10 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int], sam
         subset for framing the camera.  With a convection flow they do act
         on each other through the air: the subset then lays ``sample`` times
         its heat, and moves close to, not exactly like, the whole run.
+    warmup_frames : bool
+        Allow negative frames, states of the warm-up down to
+        ``-warmup_steps // substeps`` (the crossfade of a flow look blends
+        the clip's end into them).
 
     Yields
     ------
@@ -350,7 +354,9 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int], sam
     wanted = sorted({int(f) for f in frames})
     if plan is None:
         plan = plan_simulation(look)
-    if wanted and wanted[0] < 0 and plan.frame_step(wanted[0]) < 0:
+    if wanted and wanted[0] < 0 and not warmup_frames:
+        raise ValueError(f"frames must be >= 0, got {wanted[0]}")
+    if wanted and plan.frame_step(wanted[0]) < 0:
         raise ValueError(f"frames must be >= {-(plan.warmup_steps // plan.substeps)} (the warm-up's first whole "
                          f"frame), got {wanted[0]}")
     if not wanted:
