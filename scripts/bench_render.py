@@ -21,13 +21,20 @@ and once with its 8 x 8 sheet, GIF and contact sheet, and prints the time per
 stage, how much the sheet and previews add, and each process's peak memory
 beside the finished sheet's 8-bit size.
 
-Usage: python scripts/bench_render.py [--frames N] [--keep DIR] [--demo]
+With ``--flow`` it renders the flow demo (``looks/beach_bonfire.toml``, 64
+frames with its sheet and previews, ``--size`` px) twice in separate
+processes: with its convection flow, and with a lift force in the flow's
+place (the same look without the flow), and prints the time per stage and
+their ratio (goal: the flow at most 2x).
+
+Usage: python scripts/bench_render.py [--frames N] [--keep DIR] [--demo] [--flow [--size PX]]
 """
 
 from __future__ import annotations
 
 import argparse
 import os
+import re
 import shutil
 import sys
 import tempfile
@@ -153,12 +160,63 @@ def demo(work: Path) -> int:
     return 0
 
 
+FLOW_BLOCK = re.compile(r'\[\[force\]\]\nkind = "convection"\n(?:[a-z_]+ = .*\n)*')
+LIFT_BLOCK = """[[force]]
+kind = "lift"
+accel = 1.2
+cooling = 0.4
+"""
+
+
+def flow(work: Path, size: int) -> int:
+    """The flow demo (beach bonfire) with its convection flow and with a lift force in its place."""
+    import json
+    import subprocess
+
+    text = (HERE.parent / "looks" / "beach_bonfire.toml").read_text()
+    if not FLOW_BLOCK.search(text):
+        raise SystemExit("looks/beach_bonfire.toml no longer holds the convection block this benchmark swaps out")
+    work.mkdir(parents=True, exist_ok=True)
+    looks = {"with the flow": work / "flow.toml", "lift instead": work / "lift.toml"}
+    looks["with the flow"].write_text(text)
+    looks["lift instead"].write_text(FLOW_BLOCK.sub(LIFT_BLOCK, text))
+    over = [f"image.width={size}", f"image.height={size}"]
+    for path in looks.values():
+        subprocess.run([sys.executable, "-c", DEMO_CHILD, str(path), str(work / "warm"), "clip.frames=2", *over],
+                       check=True, capture_output=True)  # fill the JIT cache
+    stages = ["fit", "simulate", "light", "project", "composite", "queue", "write"]
+    print(f"beach bonfire, 64 frames of {size} x {size}, sheet and previews; threads: "
+          f"{os.environ.get('NUMBA_NUM_THREADS', 'all')}")
+    print(f"{'case':<15} {'wall s':>7} " + " ".join(f"{s:>9}" for s in stages))
+    walls = {}
+    for label, path in looks.items():
+        run_ = subprocess.run([sys.executable, "-c", DEMO_CHILD, str(path), str(work / label[:4]), *over],
+                              check=True, capture_output=True, text=True)
+        sec = json.loads(run_.stdout.strip().splitlines()[-1])
+        walls[label] = sec["wall"]
+        print(f"{label:<15} {sec['wall']:7.2f} " + " ".join(f"{sec.get(s, 0.0):9.2f}" for s in stages))
+    print()
+    print(f"the flow demo takes {walls['with the flow'] / walls['lift instead']:.2f}x the time of the same look "
+          f"with a lift force instead (goal: at most 2x)")
+    return 0
+
+
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--frames", type=int, default=64)
     ap.add_argument("--keep", help="keep the rendered files in this folder")
     ap.add_argument("--demo", action="store_true", help="time the detailed demo chimney instead")
+    ap.add_argument("--flow", action="store_true",
+                    help="time the flow demo (beach bonfire) against the same look with lift instead of the flow")
+    ap.add_argument("--size", type=int, default=512, help="with --flow: image width and height, px")
     args = ap.parse_args()
+    if args.flow:
+        work = Path(args.keep or tempfile.mkdtemp(prefix="splatter-bench-"))
+        try:
+            return flow(work, args.size)
+        finally:
+            if not args.keep:
+                shutil.rmtree(work, ignore_errors=True)
     if args.demo:
         work = Path(args.keep or tempfile.mkdtemp(prefix="splatter-bench-"))
         try:

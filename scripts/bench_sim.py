@@ -9,6 +9,11 @@ largest difference in ``F`` is printed as a check).  Goals: >= 5 M
 particle-steps/s on two cores, >= 10x the numpy version, and with
 ``--octaves 6`` the shaped step >= 30x the numpy shaped step.
 
+Last, the convection flow: one step of its grid (advection, buoyancy,
+confinement, projection) at the default ``cells`` and twice that, with the
+cost of laying the puffs' heat and sampling the air at them, as a multiple
+of the puff step measured in the same run.
+
 Then the whole driver, ``simulate()``, on an exact loop of ~N puffs: the
 warm-up path (every puff stepped from the start of the warm-up) against the
 twin path (one period of births over their whole lives), interleaved in
@@ -185,6 +190,7 @@ def main():
     ap.add_argument("--rate-scale", type=float, default=1.0, help="with --look: multiply every source's rate")
     ap.add_argument("--size", type=int, default=0, help="with --look: image width and height, px")
     ap.add_argument("--repeats-driver", type=int, default=2, help="best of this many simulate() timings")
+    ap.add_argument("--flow-only", action="store_true", help="time the puff step and the convection flow only")
     args = ap.parse_args()
     if args.look:
         _look_ab(args)
@@ -242,6 +248,9 @@ def main():
     print(f"numba step : {rate_numba / 1e6:8.2f} M particle-steps/s")
     print(f"  + shapes : {n * args.steps / t_shaped / 1e6:8.2f} M particle-steps/s  (velocity gradient and F"
           f" update, follow = 1; {t_shaped / t_numba:.2f}x the time)")
+    if args.flow_only:
+        flow_steps(n, t_numba / args.steps, repeats=args.repeats)
+        return
     print(f"numpy step : {rate_numpy / 1e6:8.2f} M particle-steps/s")
     print(f"  + shapes : {n * args.steps / t_numpy_shaped / 1e6:8.2f} M particle-steps/s  (max |F difference| "
           f"{float(np.max(np.abs(fn - deform))):.2e})")
@@ -255,6 +264,55 @@ def main():
     print(f"ratio      : {rate_numba / rate_numpy:8.1f}x   (max |pos difference| {err:.2e})")
     print(f"  shaped   : {t_numpy_shaped / t_shaped:8.1f}x   (numba shaped step against the numpy shaped step)")
     _driver_ab(look, plan_simulation(look), list(range(64)), repeats=args.repeats_driver)
+    flow_steps(n, t_numba / args.steps, repeats=args.repeats)
+
+
+def _plume(cells, puffs):
+    """A plume of a small hot source at ``cells``: a Convection that has stepped over its puffs, and the puffs."""
+    from splatter.look.records import ConvectionSpec
+    from splatter.sim.flow import Convection
+
+    look = LookSpec(name="plume", seed=2, clip=ClipSpec(frames=2, fps=30, substeps=2, warmup=3.0),
+                    sources=(SourceSpec(shape="disc", radius=0.15, rate=puffs / 3.0, speed=(0.2, 0.4), spread=20.0,
+                                        life=(3.0, 3.0), size=(0.02, 0.02), grow=((0.0, 1.0), (1.0, 4.0)),
+                                        heat=3.0 * 3.0 / puffs),),
+                    forces=(ConvectionSpec(cells=cells),))
+    plan = plan_simulation(look)
+    st = next(simulate(look, plan, frames=[1]))
+    flow = Convection(plan.forces.convection, plan.obstacles)
+    for _ in range(60):  # the grid around these puffs, and two seconds of air rising over them
+        flow.advance(st.pos, st.size, st.source, st.age, plan.dt)
+    return flow, st, plan.dt
+
+
+def flow_steps(n, puff_step, repeats=5, steps=30):
+    """Cost of one step of the convection flow (grid step, heat laid, velocity and gradient sampled at the
+    puffs) at the default cells and twice them, against the puff step measured above."""
+    from splatter.look.records import ConvectionSpec
+
+    default = ConvectionSpec().cells
+    print()
+    print(f"convection flow, a developed plume of ~{n:,} puffs (default cells = {default}); "
+          f"threads {numba.get_num_threads()}")
+    print(f"{'cells':>6} {'grid':>14} {'step ms':>8} {'CG iters':>8} {'lay+sample ms':>13} {'x puff step':>11}")
+    for cells in (default, 2 * default):
+        flow, st, dt = _plume(cells, n)
+        g = flow.grid
+        t_grid = t_puffs = float("inf")
+        iters = []
+        for _ in range(repeats):
+            t0 = time.perf_counter()
+            for _ in range(steps):
+                iters.append(g.step(dt, buoyancy=1.0, confinement=flow.table.confinement))
+            t_grid = min(t_grid, (time.perf_counter() - t0) / steps)
+            t0 = time.perf_counter()
+            for _ in range(steps):
+                g.heat = g.deposit(st.pos, np.full(len(st), 3.0 * 3.0 / n))
+                flow.sample(st.pos, gradient=True)
+            t_puffs = min(t_puffs, (time.perf_counter() - t0) / steps)
+        dims = "x".join(str(d) for d in g.dims)
+        print(f"{cells:6d} {dims:>14} {1e3 * t_grid:8.2f} {np.mean(iters):8.1f} {1e3 * t_puffs:13.2f} "
+              f"{(t_grid + t_puffs) / puff_step:11.2f}")
 
 
 if __name__ == "__main__":

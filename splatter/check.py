@@ -323,6 +323,9 @@ def _report(look: LookSpec, *, frames: Optional[Sequence[int]] = None, out_dir: 
             n = next(octaves)
             eddy = f.scale / 2 ** (n - 1) / pixel_size(camera)  # wavelength of the last octave at the target
             kinds[i] = f"swirl ({n} octaves{', auto' if f.octaves is None else ''}, smallest eddy {eddy:.1f} px)"
+        elif f.kind == "convection":
+            flux = sum(r * s.heat for r, s in zip(plan.rates, look.sources)) * f.buoyancy
+            kinds[i] = f"convection ({f.cells} cells, buoyancy flux {flux:.3g} units^4/s^3)"
     obst = [o.kind for o in look.obstacles]
     lines.append(f"forces    {', '.join(kinds) or 'none'}; obstacles {', '.join(obst) or 'none'}")
     lines.append(f"puffs     about {plan.steady_state_puffs:,.0f} alive at steady state")

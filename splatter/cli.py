@@ -28,6 +28,7 @@ examples:
   splatter render looks/quay_dust.toml --frames 0:8 --threads 1
   splatter render looks/quay_dust.toml --resume
   splatter simulate looks/quay_vent.toml --out vent.npz
+  splatter simulate looks/beach_bonfire.toml --out fire.npz --flow-grid fire-grid.npz --flow-frame 32
   splatter pack renders/harbour_chimney --columns 8
 
 The look file format is described in docs/look-reference.md.
@@ -110,6 +111,10 @@ def _parser() -> argparse.ArgumentParser:
     )
     look_options(s, out_help="the .npz file to write")
     s.add_argument("--frames", metavar="A:B", help="frames A to B-1 only")
+    s.add_argument("--flow-grid", metavar="FILE.npz", dest="flow_grid",
+                   help="also write the convection flow's grid (density, heat, velocity) at one frame")
+    s.add_argument("--flow-frame", metavar="N", type=int, dest="flow_frame",
+                   help="the frame --flow-grid writes (default: the middle of the frames simulated)")
 
     k = sub.add_parser(
         "pack",
@@ -262,15 +267,40 @@ def _cmd_simulate(args) -> int:
     if not args.out.endswith(".npz"):
         raise _UsageError(f"--out: expected a file name ending in .npz, got {args.out!r}")
     frames = parse_frames(args.frames, look.clip.frames) or range(look.clip.frames)
-    from splatter.deliver.states import save_states
+    grid_frame = None
+    if args.flow_grid is not None:
+        if not args.flow_grid.endswith(".npz"):
+            raise _UsageError(f"--flow-grid: expected a file name ending in .npz, got {args.flow_grid!r}")
+        if not any(f.kind == "convection" for f in look.forces) or not any(s.heat > 0 for s in look.sources):
+            raise _UsageError(f"--flow-grid: expected a look with a force of kind \"convection\" and a source with "
+                              f"heat > 0, got {look.path or look.name} without a moving flow")
+        grid_frame = frames[len(frames) // 2] if args.flow_frame is None else args.flow_frame
+        if grid_frame not in frames:
+            raise _UsageError(f"--flow-frame: expected one of the frames simulated ({frames[0]} to {frames[-1]}), "
+                              f"got {grid_frame}")
+    elif args.flow_frame is not None:
+        raise _UsageError("--flow-frame: expected together with --flow-grid FILE.npz")
+    from splatter.deliver.states import save_flow_grid, save_states
     from splatter.render import look_plan
     from splatter.sim.driver import simulate
 
     plan = look_plan(look)  # "auto" swirl octaves resolved at the render's framing
     _say_plan(plan)
     Path(args.out).parent.mkdir(parents=True, exist_ok=True)
-    save_states(args.out, simulate(look, plan, frames=frames))
+    grid = []
+
+    def states():
+        for st in simulate(look, plan, frames=frames):
+            if st.frame == grid_frame:
+                grid.append(st)
+            yield st
+
+    save_states(args.out, states())
     print(f"wrote {args.out} ({len(frames)} frames)", file=sys.stderr)
+    if grid_frame is not None:
+        Path(args.flow_grid).parent.mkdir(parents=True, exist_ok=True)
+        save_flow_grid(args.flow_grid, grid[0])
+        print(f"wrote {args.flow_grid} (the flow's grid at frame {grid_frame})", file=sys.stderr)
     return EXIT_OK
 
 

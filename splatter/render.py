@@ -24,7 +24,7 @@ from splatter.look.records import LookSpec
 from splatter.raster.compositor import composite_features, kernels_cached
 from splatter.raster.maps import normal_map
 from splatter.sim.driver import SimPlan, plan_simulation, simulate
-from splatter.sim.plan import crossfade_frames, has_auto_octaves, with_octaves
+from splatter.sim.plan import crossfade_frames, flows, has_auto_octaves, with_octaves
 from splatter.view.camera import Camera
 from splatter.view.framing import border_alpha_share, fit_camera, max_border_alpha
 from splatter.view.light import build_density_grid, light_puffs, transmittance
@@ -117,11 +117,13 @@ def make_camera(look: LookSpec, plan: Optional[SimPlan] = None, frames: Optional
         look = with_octaves(look, FIT_OCTAVES)
     plan = plan or plan_simulation(look)
     if frames is None:
-        frames = range(look.clip.frames + _crossfade_frames(look))
+        fade = _crossfade_frames(look)
+        frames = range(-fade, look.clip.frames) if flows(plan) else range(look.clip.frames + fade)
     blend = look.shading.blend
     sample = max(1, int(plan.steady_state_puffs // FIT_PUFFS))
     # The fit keeps the view direction, so the camera's axes (which thinning uses) are already final.
-    return fit_camera(cam, simulate(look, plan, frames=frames, sample=sample), margin=c.margin, alpha=c.fit_alpha,
+    states = simulate(look, plan, frames=frames, sample=sample, warmup_frames=True)
+    return fit_camera(cam, states, margin=c.margin, alpha=c.fit_alpha,
                       opacity_of=lambda state: seen_opacity(state, blend, cam))
 
 
@@ -372,10 +374,21 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
         return RenderResult(name=look.name, out_dir=folder, frames=wanted, seconds=timings)
     n = look.clip.frames
     fade = _crossfade_frames(look)
-    tail_frames = [n + f for f in todo if f < fade] if fade else []
     maps = look.output.maps
-    main = iter(frame_images(look, camera, _timed(simulate(look, plan, frames=todo), timings, "simulate"),
-                             timings=timings))
+    lead = {}
+    if fade and flows(plan):
+        # A flow is simulated once: the last `fade` frames fade into the frames just before frame 0 (from the
+        # warm-up), which arrive first, so nothing waits for the end of the clip.
+        lead_frames = sorted({f - n for f in todo if n - fade <= f < n})
+        tail_frames = []
+        every = sorted(set(todo) | set(lead_frames))
+        main = iter(frame_images(look, camera, _timed(simulate(look, plan, frames=every, warmup_frames=True),
+                                                      timings, "simulate"), timings=timings))
+    else:
+        lead_frames = []
+        tail_frames = [n + f for f in todo if f < fade] if fade else []
+        main = iter(frame_images(look, camera, _timed(simulate(look, plan, frames=todo), timings, "simulate"),
+                                 timings=timings))
     tail = iter(frame_images(look, camera, _timed(simulate(look, plan, frames=tail_frames), timings, "simulate"),
                              timings=timings)) if tail_frames else None
 
@@ -406,6 +419,13 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
                     bar.update(1)
                 continue
             frame, image, channels, sigma = next(main)
+            while frame < 0:  # a flow's frames before frame 0, for the crossfade
+                lead[frame] = image
+                frame, image, channels, sigma = next(main)
+            if lead_frames and n - fade <= frame < n:
+                # Frame f shows frame f fading into frame f - N, so frame N-1 runs on into frame 0.
+                w = np.float32((frame - (n - fade)) / fade)
+                image = w * lead.pop(frame - n) + (np.float32(1.0) - w) * image
             if tail is not None and frame < fade:
                 _, late, _, _ = next(tail)
                 # Frame f shows frame N+f fading into frame f, so frame N-1 runs on into frame 0.

@@ -23,7 +23,7 @@ import numpy as np
 from splatter.deliver.fileio import atomic_path
 from splatter.sim.driver import PER_PUFF_FIELDS, FrameState, empty_field
 
-__all__ = ["save_states"]
+__all__ = ["save_states", "save_flow_grid"]
 
 
 def save_states(path, states: Iterable[FrameState]) -> None:
@@ -63,6 +63,56 @@ def save_states(path, states: Iterable[FrameState]) -> None:
     arrays["frame_start"] = np.cumsum(np.array(counts, dtype=np.int64))
     arrays["frame"] = np.array(frame, dtype=np.int64)
     arrays["time"] = np.array(time, dtype=np.float64)
+    with atomic_path(path, suffix=".npz") as tmp:
+        with open(tmp, "wb") as fh:
+            np.savez_compressed(fh, **arrays)
+
+
+def save_flow_grid(path, state: FrameState) -> None:
+    """Write the convection flow's grid at one frame to an ``.npz`` file, atomically.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+    state : FrameState
+        A frame of a look with a convection flow (``state.flow`` set).
+
+    Notes
+    -----
+    Arrays (world units, seconds; cell ``(i, j, k)`` has its centre at
+    ``origin + (i + 1/2, j + 1/2, k + 1/2) * cell``, y up):
+
+    * ``frame ()`` int64, ``time ()`` float64, ``origin (3,)`` float64, ``cell ()`` float64;
+    * ``density (nx, ny, nz)``: the frame's puff opacity per cubic world unit, laid on the cell
+      centres with trilinear weights;
+    * ``heat (nx, ny, nz)``: the heat per cubic world unit the last step's buoyancy used;
+    * ``solid (nx, ny, nz)`` bool: cells inside obstacles;
+    * ``velocity (nx, ny, nz, 3)``: the air at the cell centres (mean of opposite faces);
+    * ``u (nx+1, ny, nz)``, ``v (nx, ny+1, nz)``, ``w (nx, ny, nz+1)``: the face velocities the
+      solver holds (a staggered grid: ``u[i, j, k]`` sits at ``origin + (i, j + 1/2, k + 1/2) * cell``).
+
+    Examples
+    --------
+    >>> import pathlib, tempfile
+    >>> from splatter.look.records import ClipSpec, ConvectionSpec, LookSpec, SourceSpec
+    >>> from splatter.sim.driver import simulate
+    >>> look = LookSpec(name="doc", clip=ClipSpec(frames=3, fps=10, warmup=0.5),
+    ...                 sources=(SourceSpec(rate=200.0, heat=0.01),), forces=(ConvectionSpec(cells=8),))
+    >>> path = pathlib.Path(tempfile.mkdtemp()) / "grid.npz"
+    >>> save_flow_grid(path, next(simulate(look, frames=[2])))
+    >>> data = np.load(path)
+    >>> data["velocity"].shape == data["density"].shape + (3,), int(data["frame"])
+    (True, 2)
+    """
+    if state.flow is None:
+        raise ValueError(f"frame {state.frame} has no flow grid: the look needs a convection force and a "
+                         f"source with heat, and the air moves from the first step on")
+    path = os.fspath(path)
+    f = state.flow
+    arrays = {name: np.asarray(f[name]) for name in ("origin", "cell", "density", "heat", "solid", "velocity",
+                                                   "u", "v", "w")}
+    arrays["frame"] = np.int64(state.frame)
+    arrays["time"] = np.float64(state.time)
     with atomic_path(path, suffix=".npz") as tmp:
         with open(tmp, "wb") as fh:
             np.savez_compressed(fh, **arrays)

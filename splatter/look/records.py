@@ -22,7 +22,7 @@ Examples
 >>> ClipSpec().frames, ClipSpec().integrator
 (64, 'symplectic')
 >>> sorted(FORCE_KINDS)
-['drag', 'gravity', 'lift', 'swirl', 'vortex', 'wind']
+['convection', 'drag', 'gravity', 'lift', 'swirl', 'vortex', 'wind']
 >>> FORCE_KINDS["swirl"] is SwirlSpec and SwirlSpec.kind
 'swirl'
 """
@@ -173,6 +173,7 @@ class SourceSpec:
     density: float = key(1.0, number(0.0, 1e4))
     follow: float = key(1.0, number(0.0, 1.0))  # extension: how strongly shapes follow the flow
     elongation: float = key(10.0, number(1.5, 1000.0))  # extension: long/short axis ratio before relaxing
+    heat: float = key(0.0, number(0.0, 1e6))  # extension: heat a puff lays on a convection flow at birth
 
 
 @dataclass(frozen=True)
@@ -234,9 +235,21 @@ class VortexSpec:
     radius: float = key(0.5, number(0.0, 1e6, lo_open=True))
 
 
-ForceSpec = Union[GravitySpec, WindSpec, DragSpec, LiftSpec, SwirlSpec, VortexSpec]
+@dataclass(frozen=True)
+class ConvectionSpec:
+    """A buoyant flow on a coarse grid that puffs ride (``kind = "convection"``; extension)."""
 
-FORCE_KINDS: Dict[str, type] = {c.kind: c for c in (GravitySpec, WindSpec, DragSpec, LiftSpec, SwirlSpec, VortexSpec)}
+    kind: ClassVar[str] = "convection"
+    cells: int = key(32, number(8, 128, integer=True))  # grid cells along the smoke's longest side
+    buoyancy: float = key(1.0, number(0.0, 1e4))  # upward acceleration per unit heat density
+    cooling: float = key(0.3, number(0.0, 1e3))  # 1/s: a puff's heat decays as exp(-cooling age)
+    confinement: float = key(3.0, number(0.0, 20.0))  # vorticity confinement strength eps
+
+
+ForceSpec = Union[GravitySpec, WindSpec, DragSpec, LiftSpec, SwirlSpec, VortexSpec, ConvectionSpec]
+
+FORCE_KINDS: Dict[str, type] = {c.kind: c for c in (GravitySpec, WindSpec, DragSpec, LiftSpec, SwirlSpec, VortexSpec,
+                                                    ConvectionSpec)}
 """Every ``[[force]]`` kind and its record: the one registry the schema, the simulation and ``check`` use."""
 
 

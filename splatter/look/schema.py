@@ -199,6 +199,10 @@ def _cross_checks(spec: L.LookSpec, ctx: Ctx) -> None:
             sctx.child("rate").fail(
                 f"at most {MAX_LIVE_PUFFS:,} puffs alive at once (rate x longest life + bursts)", f"{live:,.0f}", raw=True
             )
+    flows = [i for i, f in enumerate(spec.forces) if f.kind == "convection"]
+    if len(flows) > 1:
+        ctx.child("force").child(flows[1]).child("kind").fail(
+            'at most one force of kind "convection" (the puffs share one flow)', "convection")
     sheet = spec.output.sheet
     if sheet is not None:
         n = spec.clip.frames

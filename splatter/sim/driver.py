@@ -39,7 +39,11 @@ the same arrays as stepping everything from the start of the warm-up
 ``Ns / (W + Ns)`` of the puff-steps when lives are long, but the frames
 wait for the puffs that finish them: their moving parts are kept until
 then (up to every requested frame's puffs at once when lives exceed the
-period).  Other clips run from the start of the warm-up.
+period).  Other clips run from the start of the warm-up, and so does every look with
+a convection force: its puffs share one flow (:mod:`splatter.sim.flow`), so
+they are not independent twins, and the driver steps the flow's grid
+(heat laid, air stepped, velocity handed to each puff) before each step of
+the puffs.
 """
 
 from __future__ import annotations
@@ -50,6 +54,7 @@ from typing import Iterable, Iterator, Optional
 import numpy as np
 
 from splatter.sim.emit import N_DRAWS, sample_puffs
+from splatter.sim.flow import Convection
 from splatter.sim.integrate import air_velocity, step_puffs
 from splatter.sim.plan import SimPlan, plan_simulation
 from splatter.sim.ramps import evaluate_color_ramp, evaluate_ramp
@@ -95,6 +100,10 @@ class FrameState:
         Deformation gradient ``F`` (identity at birth, advanced with the air
         velocity gradient; see :mod:`splatter.sim.shaping`): the puff's
         covariance is ``F S0 F^T`` for its rigid covariance ``S0``.
+    flow : dict or None
+        With a convection force: its grid at this frame
+        (:meth:`splatter.sim.flow.Convection.snapshot`, ``density`` laid by
+        this frame's puff opacities); None otherwise.
 
     Arrays are ordered by ``(source, slot, id)``, the same order at frame 0
     and frame ``frames`` of an exact loop.
@@ -118,6 +127,7 @@ class FrameState:
     stretch: np.ndarray
     density: np.ndarray
     deform: Optional[np.ndarray] = None  # None: rigid puffs (states made by hand)
+    flow: Optional[dict] = None  # the convection grid at this frame (see Convection.snapshot), or None
 
     def __len__(self) -> int:
         return int(self.id.shape[0])
@@ -253,14 +263,16 @@ def _sizes(look, source, size0, x) -> np.ndarray:
     return size
 
 
-def _frame_state(look, plan: SimPlan, puffs: _Puffs, frame: int, step: int) -> FrameState:
+def _frame_state(look, plan: SimPlan, puffs: _Puffs, frame: int, step: int, flow: Optional[Convection] = None
+                 ) -> FrameState:
     a = puffs.a
     live = np.flatnonzero(puffs.live[:puffs.n])
     order = live[np.lexsort((a["id"][live], a["slot"][live], a["source"][live]))]
-    return _state_of(look, plan, {name: a[name][order] for name in _STORE}, frame, step)
+    return _state_of(look, plan, {name: a[name][order] for name in _STORE}, frame, step, flow)
 
 
-def _state_of(look, plan: SimPlan, pick: dict, frame: int, step: int) -> FrameState:
+def _state_of(look, plan: SimPlan, pick: dict, frame: int, step: int, flow: Optional[Convection] = None
+              ) -> FrameState:
     """The frame state of the stored attributes ``pick`` (already in output order) at boundary ``step``."""
     age = ((step - pick["bstep"]) + pick["bfrac"]) * plan.dt
     m = age.shape[0]
@@ -283,13 +295,20 @@ def _state_of(look, plan: SimPlan, pick: dict, frame: int, step: int) -> FrameSt
         stretch[sel] = float(src.stretch)
         density[sel] = float(src.density)
     vel = pick["vel"] + air_velocity(pick["pos"], time=plan.force_time(step), forces=plan.forces)
+    snapshot = None
+    if flow is not None and flow.active:
+        vel = vel + flow.sample(pick["pos"])
+        snapshot = flow.snapshot()
+        if snapshot is not None:
+            snapshot["density"] = flow.grid.deposit(pick["pos"], opacity)
     return FrameState(frame=int(frame), time=frame / plan.fps, id=pick["id"], slot=pick["slot"],
                       source=pick["source"], pos=pick["pos"], vel=vel, age=age, life=pick["life"], size=size,
                       opacity=opacity, color=color, glow=glow, aspect=pick["aspect"], quat=pick["quat"],
-                      stretch=stretch, density=density, deform=pick["deform"])
+                      stretch=stretch, density=density, deform=pick["deform"], flow=snapshot)
 
 
-def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int], sample: int = 1) -> Iterator[FrameState]:
+def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int], sample: int = 1,
+             warmup_frames: bool = False) -> Iterator[FrameState]:
     """Run the simulation and yield the requested frames.
 
     Exact loops whose sources emit on their whole lattice (no ``start`` or
@@ -304,13 +323,19 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int], sam
         From :func:`plan_simulation` (made here if not given; a look whose
         swirl octaves are "auto" needs one made with a pixel size).
     frames : iterable of int
-        Frame indices >= 0, any order; they may run past ``clip.frames - 1``
-        (the simulation simply continues).
+        Frame indices, any order; they may run past ``clip.frames - 1``
+        (the simulation simply continues); >= 0 unless ``warmup_frames``.
     sample : int
         Simulate only the puffs whose spawn slot is a multiple of ``sample``
         (1: all). Puffs never act on each other, so these are exactly the
         same puffs, with the same bits, as in the whole run: a cheap, exact
-        subset for framing the camera.
+        subset for framing the camera.  With a convection flow they do act
+        on each other through the air: the subset then lays ``sample`` times
+        its heat, and moves close to, not exactly like, the whole run.
+    warmup_frames : bool
+        Allow negative frames, states of the warm-up down to
+        ``-warmup_steps // substeps`` (the crossfade of a flow look blends
+        the clip's end into them).
 
     Yields
     ------
@@ -327,16 +352,19 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int], sam
     [(0, True), (3, True)]
     """
     wanted = sorted({int(f) for f in frames})
-    if wanted and wanted[0] < 0:
-        raise ValueError(f"frames must be >= 0, got {wanted[0]}")
     if plan is None:
         plan = plan_simulation(look)
+    if wanted and wanted[0] < 0 and not warmup_frames:
+        raise ValueError(f"frames must be >= 0, got {wanted[0]}")
+    if wanted and plan.frame_step(wanted[0]) < 0:
+        raise ValueError(f"frames must be >= {-(plan.warmup_steps // plan.substeps)} (the warm-up's first whole "
+                         f"frame), got {wanted[0]}")
     if not wanted:
         return
     if isinstance(sample, bool) or int(sample) != sample or sample < 1:
         raise ValueError(f"sample: expected an integer >= 1, got {sample!r}")
     sample = int(sample)
-    if _twins_apply(plan) and _twin_bytes(plan, len(wanted)) / sample <= TWIN_MEMORY:
+    if plan.forces.convection is None and _twins_apply(plan) and _twin_bytes(plan, len(wanted)) / sample <= TWIN_MEMORY:
         yield from _simulate_twins(look, plan, wanted, sample)
     else:
         yield from _simulate_warmup(look, plan, wanted, sample)
@@ -360,23 +388,36 @@ def _shaping(look, plan: SimPlan):
     """Per-source ``follow`` and ``elongation``, and whether shapes are advanced at all."""
     follow = np.array([float(src.follow) for src in look.sources])
     elongation = np.array([float(src.elongation) for src in look.sources])
-    # Shapes only when some source follows a flow that has a gradient (swirl or vortex).
-    shaping = bool(np.any(follow > 0)) and (plan.forces.swirl_b.shape[0] + plan.forces.vortex.shape[0]) > 0
+    # Shapes only when some source follows a flow that has a gradient (swirl, vortex or convection).
+    flowing = plan.forces.convection is not None and any(h != 0.0 for h in plan.forces.convection.heat)
+    shaping = bool(np.any(follow > 0)) and (
+        plan.forces.swirl_b.shape[0] + plan.forces.vortex.shape[0] > 0 or flowing)
     return follow, elongation, shaping
 
 
-def _advance(look, plan: SimPlan, puffs: _Puffs, s: int, follow, elongation, shaping: bool) -> None:
-    """Step every live puff from boundary ``s - 1`` to ``s`` and drop those an obstacle killed."""
+def _advance(look, plan: SimPlan, puffs: _Puffs, s: int, follow, elongation, shaping: bool,
+             flow: Optional[Convection] = None) -> None:
+    """Step every live puff from boundary ``s - 1`` to ``s`` and drop those an obstacle killed.
+
+    With a convection ``flow``, the live puffs first lay their heat on its
+    grid and step the air; every puff then rides the air's velocity there.
+    """
     if not len(puffs):
         return
     a = puffs.a
     src = a["source"]
     ages = puffs.ages(s - 1, plan.dt)
-    sigma = _sizes(look, src, a["size0"], ages / a["life"]) if shaping else None
+    flowing = flow is not None and flow.active
+    sigma = _sizes(look, src, a["size0"], ages / a["life"]) if shaping or flowing else None
+    air = None
+    if flowing:
+        live = puffs.live[:puffs.n]
+        flow.advance(a["pos"][live], sigma[live], src[live], ages[live], plan.dt)
+        air = flow.sample(a["pos"], gradient=shaping)
     killed = step_puffs(a["pos"], a["vel"], ages, dt=plan.dt,
                         time=plan.force_time(s - 1), forces=plan.forces, obstacles=plan.obstacles,
                         integrator=plan.integrator, deform=a["deform"] if shaping else None,
-                        follow=follow[src], elongation=elongation[src], sigma=sigma)
+                        follow=follow[src], elongation=elongation[src], sigma=sigma if shaping else None, flow=air)
     puffs.kill(killed)
 
 
@@ -390,15 +431,17 @@ def _simulate_warmup(look, plan: SimPlan, wanted: list, sample: int = 1) -> Iter
     next_id = 0
     last = plan.frame_step(wanted[-1])
     follow, elongation, shaping = _shaping(look, plan)
+    conv = plan.forces.convection
+    flow = Convection(conv, plan.obstacles, heat_scale=sample) if conv is not None else None
     for s in range(last + 1):
         if s > 0:
-            _advance(look, plan, puffs, s, follow, elongation, shaping)
+            _advance(look, plan, puffs, s, follow, elongation, shaping, flow)
         parts, next_id = _spawn(look, plan, s, cursors, draws, next_id)
         puffs.add(_keep_every(parts, sample))
         if len(puffs):
             puffs.kill(puffs.ages(s, plan.dt) >= puffs.a["life"])
         while frame is not None and plan.frame_step(frame) == s:
-            yield _frame_state(look, plan, puffs, frame, s)
+            yield _frame_state(look, plan, puffs, frame, s, flow)
             frame = next(targets, None)
 
 

@@ -19,6 +19,9 @@ A puff has a position ``x`` and its own velocity ``v``; it moves with
   it would bunch up in strain regions); ``strength`` is then the speed puffs
   actually drift with; and adding a swirl does not quietly add drag toward
   still air.  The reported puff velocity is ``v + u(x, t)``.
+* convection: a buoyant flow on a coarse grid (:mod:`splatter.sim.flow`),
+  state shared by all puffs, so the driver steps it and hands each puff the
+  air velocity (and gradient) there; the step kernel adds it to ``u``.
 * vortex: tangential air speed about ``axis`` through ``center``, a Rankine
   profile (solid-body rotation inside ``radius``, ``1/r`` outside) scaled so
   the speed at ``radius`` is ``strength``; positive strength turns
@@ -29,11 +32,13 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import Optional
 
 import numba
 import numpy as np
 
 from splatter.core.jit import KERNEL
+from splatter.sim.flow import ConvectionTable
 from splatter.sim.rng import force_generator
 from splatter.sim.swirl import build_swirl, modified_wavenumbers, phase_table
 
@@ -68,6 +73,8 @@ class ForceTables:
         The swirl fields themselves, one per swirl force.
     gust_periods : tuple of tuple of float
         Per wind, the three gust periods used, seconds.
+    convection : ConvectionTable or None
+        The buoyant flow, stepped by the driver (:mod:`splatter.sim.flow`), not by the step kernel.
     swirl_kt : (M, 3) float64 ndarray
         Modified wavenumbers ``sin(k h) / h`` of all modes, for the velocity
         gradient (see :mod:`splatter.sim.swirl`).
@@ -86,6 +93,7 @@ class ForceTables:
     swirls: tuple = ()
     gust_periods: tuple = ()
     swirl_kt: np.ndarray = field(default_factory=lambda: np.zeros((0, 3)))
+    convection: Optional[ConvectionTable] = None
 
     def swirl_phases(self, t: float) -> np.ndarray:
         """cos and sin of ``w t + phi`` for all swirl modes, (2, M) float64."""
@@ -111,7 +119,7 @@ def snap_period(period: float, loop_period: float) -> float:
     return loop_period / max(1, round(loop_period / period))
 
 
-def pack_forces(forces, *, seed: int, loop_period=None) -> ForceTables:
+def pack_forces(forces, *, seed: int, loop_period=None, heat=()) -> ForceTables:
     """Pack force records into :class:`ForceTables`.
 
     Parameters
@@ -121,6 +129,8 @@ def pack_forces(forces, *, seed: int, loop_period=None) -> ForceTables:
         The look's seed (random gust phases and swirl modes).
     loop_period : float or None
         Exact-loop period in seconds; time-varying forces are made periodic in it.
+    heat : sequence of float
+        Each source's ``heat`` (for a convection force).
 
     Returns
     -------
@@ -129,6 +139,7 @@ def pack_forces(forces, *, seed: int, loop_period=None) -> ForceTables:
     gravity = np.zeros(3)
     drag = 0.0
     winds, lifts, vortices, swirls, gust_periods = [], [], [], [], []
+    convection = None
     for i, f in enumerate(forces):
         kind = getattr(f, "kind", None)
         if kind == "gravity":
@@ -157,6 +168,9 @@ def pack_forces(forces, *, seed: int, loop_period=None) -> ForceTables:
             lifts.append(np.concatenate([[f.accel, f.cooling], _unit(f.direction, f"force[{i}].direction")]))
         elif kind == "swirl":
             swirls.append(build_swirl(f, seed=seed, force_index=i, period=loop_period))
+        elif kind == "convection":
+            convection = ConvectionTable(cells=int(f.cells), buoyancy=float(f.buoyancy), cooling=float(f.cooling),
+                                         confinement=float(f.confinement), heat=tuple(float(x) for x in heat))
         elif kind == "vortex":
             vortices.append(np.concatenate([f.center, _unit(f.axis, f"force[{i}].axis"), [f.strength, f.radius]]))
         else:
@@ -176,7 +190,7 @@ def pack_forces(forces, *, seed: int, loop_period=None) -> ForceTables:
     return ForceTables(gravity=gravity, drag=drag, wind=table(winds, WIND_COLS), lift=table(lifts, LIFT_COLS),
                        swirl_q=cat("q", 3), swirl_oct=octs, swirl_b=cat("b", 3), swirl_w=cat("w", 0), swirl_phi=cat("phi", 0),
                        vortex=table(vortices, VORTEX_COLS), swirls=tuple(swirls),
-                       gust_periods=tuple(gust_periods),
+                       gust_periods=tuple(gust_periods), convection=convection,
                        swirl_kt=np.ascontiguousarray(np.concatenate([modified_wavenumbers(s) for s in swirls]))
                        if swirls else np.zeros((0, 3)))
 

@@ -96,9 +96,24 @@ def _phi(k, h):
     return -math.expm1(-kh) / k
 
 
+@numba.njit(inline="always", **KERNEL)
+def _add_flow(buf, ux, i0, n, flow, gradient):
+    """Add the convection flow of puffs ``i0 ..`` to the air in ``buf[ux:ux+3]`` (and its gradient to rows 14-22)."""
+    if flow.shape[0] == 0:
+        return
+    for j in range(n):
+        buf[ux, j] += flow[i0 + j, 0]
+        buf[ux + 1, j] += flow[i0 + j, 1]
+        buf[ux + 2, j] += flow[i0 + j, 2]
+    if gradient and flow.shape[1] == 12:
+        for r in range(9):
+            for j in range(n):
+                buf[14 + r, j] += flow[i0 + j, 3 + r]
+
+
 @numba.njit(**KERNEL)
 def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, lift, sq, so, sb, ph0, ph1,
-                vortex, planes, spheres, killed, buf, skt, deform, follow, elong, sigma, work):
+                vortex, planes, spheres, killed, buf, skt, deform, follow, elong, sigma, work, flow):
     """Advance puffs ``i0 .. i0+n-1``; ``buf`` is (25, BLOCK) scratch, ``work`` (2, 3, 3).
 
     Rows: 0-2 position, 3-5 air velocity there, 6-8 midpoint position,
@@ -108,6 +123,8 @@ def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, li
     24 scratch.
     The gradient is taken where the step's air velocity is: at the start for
     Euler and symplectic Euler, at the midpoint for the midpoint rule.
+    ``flow`` (N, 3) or (N, 12), or no rows: the convection flow's velocity
+    (and gradient) at each puff's start, added to the air at both points.
     """
     shaping = deform.shape[0] > 0
     wk0 = wind0[0]
@@ -123,6 +140,7 @@ def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, li
     for j in range(n):
         buf[23, j] = sigma[i0 + j] if shaping else 0.0
     _air_block(buf, 0, 3, n, sq, so, sb, ph0, vortex, skt, 14 if shaping and method != 2 else 0)
+    _add_flow(buf, 3, i0, n, flow, shaping and method != 2)
     if method == 2:
         for j in range(n):
             i = i0 + j
@@ -130,6 +148,7 @@ def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, li
             buf[7, j] = buf[1, j] + half * (vel[i, 1] + buf[4, j])
             buf[8, j] = buf[2, j] + half * (vel[i, 2] + buf[5, j])
         _air_block(buf, 6, 9, n, sq, so, sb, ph1, vortex, skt, 14 if shaping else 0)
+        _add_flow(buf, 9, i0, n, flow, shaping)
     for j in range(n):
         i = i0 + j
         x = buf[0, j]
@@ -184,7 +203,7 @@ def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, li
 
 @numba.njit(**PARALLEL)
 def _step(pos, vel, age, h, method, gravity, drag, wind0, wind1, lift, sq, so, sb, ph0, ph1, vortex,
-          planes, spheres, killed, skt, deform, follow, elong, sigma):
+          planes, spheres, killed, skt, deform, follow, elong, sigma, flow):
     """Advance every puff by one step ``h``; ``wind0/ph0`` at the step's start, ``wind1/ph1`` half-way."""
     nblocks = (pos.shape[0] + BLOCK - 1) // BLOCK
     for blk in numba.prange(nblocks):
@@ -193,7 +212,7 @@ def _step(pos, vel, age, h, method, gravity, drag, wind0, wind1, lift, sq, so, s
         buf = np.empty((25, BLOCK))
         work = np.empty((2, 3, 3))
         _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, lift, sq, so, sb, ph0, ph1,
-                    vortex, planes, spheres, killed, buf, skt, deform, follow, elong, sigma, work)
+                    vortex, planes, spheres, killed, buf, skt, deform, follow, elong, sigma, work, flow)
 
 
 @numba.njit(**PARALLEL)
@@ -229,6 +248,7 @@ def _air_gradient(pos, sq, so, sb, skt, cs, vortex, sigma, out):
 
 
 _NO_DEFORM = np.zeros((0, 3, 3))
+_NO_FLOW = np.zeros((0, 3))
 
 
 def _check_state(pos, vel):
@@ -243,7 +263,7 @@ def _check_state(pos, vel):
 
 def step_puffs(pos: np.ndarray, vel: np.ndarray, age: np.ndarray, *, dt: float, time: float,
                forces: ForceTables, obstacles: ObstacleTables, integrator: str = "symplectic",
-               deform: np.ndarray = None, follow=None, elongation=None, sigma=None) -> np.ndarray:
+               deform: np.ndarray = None, follow=None, elongation=None, sigma=None, flow=None) -> np.ndarray:
     """Advance puffs by one step, in place.
 
     Parameters
@@ -269,6 +289,11 @@ def step_puffs(pos: np.ndarray, vel: np.ndarray, age: np.ndarray, *, dt: float, 
         Per puff, with ``deform``: its current sigma; the flow's gradient is
         the one the whole puff feels (eddies smaller than it are filtered out).
         Default 0 (the point gradient).
+    flow : (N, 3) or (N, 12) float64 ndarray, optional
+        The convection flow's air velocity at each puff (and its gradient
+        ``du_a/dx_b`` in columns ``3 + 3 a + b``, which shapes puffs with
+        ``deform``), from :class:`splatter.sim.flow.Convection`; added to the
+        swirl and vortex air for the whole step.
 
     Returns
     -------
@@ -301,8 +326,18 @@ def step_puffs(pos: np.ndarray, vel: np.ndarray, age: np.ndarray, *, dt: float, 
     _step(pos, vel, age, float(dt), INTEGRATORS.index(integrator), forces.gravity, forces.drag, wind0, wind1,
           forces.lift, forces.swirl_q, forces.swirl_oct, forces.swirl_b, forces.swirl_phases(t),
           forces.swirl_phases(t + half), forces.vortex, obstacles.planes, obstacles.spheres, killed,
-          forces.swirl_kt, deform, follow, elongation, sigma)
+          forces.swirl_kt, deform, follow, elongation, sigma, _check_flow(flow, n))
     return killed.astype(bool)
+
+
+def _check_flow(flow, n):
+    if flow is None:
+        return _NO_FLOW
+    if not isinstance(flow, np.ndarray) or flow.dtype != np.float64 or flow.ndim != 2 or flow.shape[0] != n \
+            or flow.shape[1] not in (3, 12):
+        raise ValueError(f"flow: expected an ({n}, 3) or ({n}, 12) float64 ndarray, got "
+                         f"{getattr(flow, 'shape', type(flow).__name__)}")
+    return np.ascontiguousarray(flow)
 
 
 def air_velocity(pos: np.ndarray, *, time: float, forces: ForceTables) -> np.ndarray:

@@ -24,7 +24,7 @@ from splatter.sim.forces import ForceTables, pack_forces
 from splatter.sim.obstacles import ObstacleTables, pack_obstacles
 from splatter.sim.swirl import auto_octaves
 
-__all__ = ["SimPlan", "plan_simulation", "has_auto_octaves", "with_octaves", "crossfade_frames"]
+__all__ = ["SimPlan", "plan_simulation", "has_auto_octaves", "with_octaves", "crossfade_frames", "flows"]
 
 _MAX_DENOMINATOR = 1 << 20  # rational births per step when not looping: rate error < 1e-6
 
@@ -178,6 +178,28 @@ def _resolve_octaves(forces, pixel_size):
     return tuple(out)
 
 
+def flows(plan: SimPlan) -> bool:
+    """True when the plan's convection flow moves (a convection force and a source with heat)."""
+    conv = plan.forces.convection
+    return conv is not None and any(h != 0.0 for h in conv.heat)
+
+
+def _flow_notes(look, forces: ForceTables) -> list:
+    """What a convection force means for the loop, and heat that moves nothing."""
+    flow = [i for i, f in enumerate(look.forces) if f.kind == "convection"]
+    hot = [i for i, s in enumerate(look.sources) if s.heat > 0]
+    notes = []
+    if flow and hot and look.clip.loop == "exact":
+        notes.append(f'force[{flow[0]}]: a convection flow cannot repeat by construction, so clip.loop = "exact" '
+                     f'will show a jump at the seam; use clip.loop = "crossfade" for a seamless flipbook')
+    if flow and not hot:
+        notes.append(f"force[{flow[0]}]: no source has heat > 0, so the convection flow stays still; "
+                     f"give a source heat (source[0].heat) to make it rise")
+    if hot and not flow:
+        notes.append(f'source[{hot[0]}].heat: no force of kind "convection", so the heat moves nothing')
+    return notes
+
+
 def plan_simulation(look, *, pixel_size: Optional[float] = None) -> SimPlan:
     """Derive the step, warm-up, loop period, effective rates and notes of a look.
 
@@ -220,11 +242,21 @@ def plan_simulation(look, *, pixel_size: Optional[float] = None) -> SimPlan:
         notes.append(f"clip.warmup: {_fmt(warmup)} s raised to {_fmt(warmup_steps * dt)} s, the longest puff life, "
                      f"so frame 0 of the exact loop is in steady state")
     warns, breaks = [], []
+    flowing = any(f.kind == "convection" for f in look.forces) and any(s.heat > 0 for s in look.sources)
     if clip.loop == "crossfade":
         fade = crossfade_frames(clip)
         asked = clip.crossfade * clip.frames
-        notes.append(f"clip.loop: crossfade; the simulation runs on past the last frame and the renderer blends "
-                     f"{fade} frames ({_fmt(clip.crossfade)} of the clip) across the seam")
+        if flowing:
+            if warmup_steps < fade * clip.substeps:
+                warmup_steps = fade * clip.substeps
+                notes.append(f"clip.warmup: {_fmt(warmup)} s raised to {_fmt(warmup_steps * dt)} s, the "
+                             f"crossfade's {fade} frames, which are simulated before frame 0")
+            notes.append(f"clip.loop: crossfade; the last {fade} frames ({_fmt(clip.crossfade)} of the clip) fade "
+                         f"into the {fade} frames the simulation ran just before frame 0, so the flow is simulated "
+                         f"once")
+        else:
+            notes.append(f"clip.loop: crossfade; the simulation runs on past the last frame and the renderer "
+                         f"blends {fade} frames ({_fmt(clip.crossfade)} of the clip) across the seam")
         if abs(fade - asked) > max(0.25, 0.1 * asked):
             warns.append(f"clip.crossfade: {_fmt(clip.crossfade)} of {clip.frames} frames is {_fmt(asked)} frames; "
                          f"the seam is blended over {fade} frame{'s' if fade > 1 else ''} "
@@ -284,7 +316,8 @@ def plan_simulation(look, *, pixel_size: Optional[float] = None) -> SimPlan:
         schedules.append(sched)
         steady += eff * 0.5 * (float(src.life[0]) + float(src.life[1])) + sum(int(b.count) for b in src.bursts)
 
-    forces = pack_forces(resolved, seed=look.seed, loop_period=period)
+    forces = pack_forces(resolved, seed=look.seed, loop_period=period, heat=[float(s.heat) for s in look.sources])
+    notes += _flow_notes(look, forces)
     if exact:
         w = 0
         for i, f in enumerate(look.forces):
