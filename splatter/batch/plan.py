@@ -106,15 +106,14 @@ def parse_seeds(text, *, where: str = "--seeds") -> List[int]:
     else:
         text = str(text).strip()
         try:
-            if ":" in text:
-                a, b = (int(p) for p in text.split(":"))
-                if b <= a:
-                    raise LookError(where, "", "A:B with A < B (seeds A to B-1)", repr(text))
-                seeds = list(range(a, b))
-            else:
-                seeds = [int(p) for p in text.split(",")]
+            parts = [int(p) for p in text.split(":" if ":" in text else ",")]
         except ValueError:
             raise LookError(where, "", "seeds as A:B (A to B-1), A,B,C or one integer", repr(text)) from None
+        if ":" in text:
+            if len(parts) != 2 or parts[1] <= parts[0]:
+                raise LookError(where, "", "A:B with A < B (seeds A to B-1)", repr(text))
+            parts = list(range(parts[0], parts[1]))
+        seeds = parts
     if not seeds or any(s < 0 for s in seeds):
         raise LookError(where, "", "integers >= 0", repr(text))
     if len(set(seeds)) != len(seeds):
@@ -275,7 +274,9 @@ def read_batch_file(path) -> Dict[str, Any]:
 
 
 def _folder_value(text: str) -> str:
-    return re.sub(r"[^A-Za-z0-9.+-]+", "-", text).strip("-") or "x"
+    """A value as a folder-name part: runs of other characters become "-"; a minus sign stays."""
+    part = re.sub(r"[^A-Za-z0-9.+-]+", "-", text).rstrip("-")
+    return (part if text.startswith("-") else part.lstrip("-")) or "x"
 
 
 def _digest(raw_data: Dict) -> str:
