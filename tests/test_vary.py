@@ -226,3 +226,40 @@ def test_board_has_one_labelled_cell_per_variation(tmp_path, look):
             assert not np.array_equal(labels[i], labels[j]), f"cells {i} and {j} have the same label"
     gif = Image.open(out / "board.gif")
     assert gif.n_frames == 4 and gif.info.get("loop") == 0 and gif.size == (board.shape[1], board.shape[0])
+
+
+def test_dask_cluster_gives_the_local_bytes_and_survives_a_killed_worker(tmp_path, look):
+    # A real cluster on localhost: scheduler, two worker processes (each behind a nanny that restarts it).
+    import signal
+    import threading
+    import time
+
+    from distributed import Client, LocalCluster
+
+    local = tmp_path / "local"
+    splatter.vary(look, seeds="1:5", out=str(local), jobs=1, progress=False)
+    farm = tmp_path / "farm"
+    killed = []
+    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as cluster, \
+            Client(cluster) as client:
+
+        def kill_a_busy_worker():
+            deadline = time.monotonic() + 120
+            while time.monotonic() < deadline and not killed:
+                busy = [w for w, keys in client.processing().items()
+                        if any(str(k).startswith("splatter-vary") for k in keys)]
+                if busy:
+                    pid = cluster.scheduler.workers[busy[0]].pid
+                    os.kill(pid, signal.SIGKILL)  # mid-variation: it is lost, not finished
+                    killed.append(pid)
+                time.sleep(0.02)
+
+        killer = threading.Thread(target=kill_a_busy_worker)
+        killer.start()
+        m = splatter.vary(look, seeds="1:5", out=str(farm), cluster=cluster.scheduler_address, progress=False)
+        killer.join()
+    assert killed, "no worker was seen busy with a variation"
+    assert [v["status"] for v in m["variations"]] == ["done"] * 4, [v["message"] for v in m["variations"]]
+    assert m["summary"]["cluster"] == cluster.scheduler_address
+    for v in m["variations"]:
+        assert files_of(farm / v["folder"]) == files_of(local / v["folder"])
