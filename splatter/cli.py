@@ -26,7 +26,7 @@ examples:
   splatter simulate looks/quay_vent.toml --out vent.npz
   splatter pack renders/harbour_chimney --columns 8
   splatter vary looks/harbour_chimney.toml --seeds 1:5 --sweep force.0.velocity.0=0.5,1.5 --set clip.frames=32
-  splatter vary looks/chimney_takes.toml --jobs 2
+  splatter vary looks/batches/chimney_takes.toml --jobs 2
 
 The look file format is described in docs/look-reference.md.
 """

@@ -263,3 +263,10 @@ def test_dask_cluster_gives_the_local_bytes_and_survives_a_killed_worker(tmp_pat
     assert m["summary"]["cluster"] == cluster.scheduler_address
     for v in m["variations"]:
         assert files_of(farm / v["folder"]) == files_of(local / v["folder"])
+
+
+def test_shipped_batch_file_plans():
+    batch = Path(__file__).resolve().parents[1] / "looks" / "batches" / "chimney_takes.toml"
+    m = splatter.vary(str(batch), dry_run=True)
+    assert len(m["variations"]) == 20 and m["name"] == "harbour_chimney"
+    assert {v["overrides"]["force.0.velocity"] for v in m["variations"]} == {"[0.6, 0, 0]", "[1.8, 0, 0]"}

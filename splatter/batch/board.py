@@ -118,6 +118,7 @@ def _fit_text(draw, text: str, font, width: int) -> str:
 def _cell_size(frame_shape: Tuple[int, int], columns: int) -> Tuple[int, int]:
     h, w = frame_shape
     side = int(np.clip(_BOARD_WIDTH // max(columns, 1) - _PAD, _MIN_CELL, _MAX_CELL))
+    side = min(side, max(h, w, _MIN_CELL))  # small frames are not blown up past what the label needs
     scale = side / max(h, w)
     return max(1, round(w * scale)), max(1, round(h * scale))
 

@@ -274,7 +274,9 @@ def run_batch(batch: Batch, *, jobs: Optional[int] = None, cluster: Optional[str
             client.close()
     cells = [BoardCell(label=_label(v, e), folder=os.path.join(batch.out, v.name) if e["status"] == "done" else None,
                        exposure=v.look.shading.exposure) for v, e in zip(batch.variations, entries)]
+    t_board = time.perf_counter()
     manifest["board"] = write_board(batch.out, cells, fps=batch.variations[0].look.clip.fps)
+    t_board = time.perf_counter() - t_board
     failed = [e for e in entries if e["status"] != "done"]
     manifest["summary"] = {
         "variations": len(entries),
@@ -282,6 +284,7 @@ def run_batch(batch: Batch, *, jobs: Optional[int] = None, cluster: Optional[str
         "reused": sum(1 for e in entries if e.get("reused")),
         "failed": len(failed),
         "seconds": round(time.perf_counter() - t_start, 3),
+        "board_seconds": round(t_board, 3),
         "jobs": None if client is not None else jobs,
         "cluster": cluster,
     }
