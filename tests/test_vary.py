@@ -270,3 +270,42 @@ def test_shipped_batch_file_plans():
     m = splatter.vary(str(batch), dry_run=True)
     assert len(m["variations"]) == 20 and m["name"] == "harbour_chimney"
     assert {v["overrides"]["force.0.velocity"] for v in m["variations"]} == {"[0.6, 0, 0]", "[1.8, 0, 0]"}
+
+
+def test_a_killed_local_worker_loses_no_variation(tmp_path, look):
+    import signal
+    import threading
+    import time
+
+    import psutil  # installed with distributed
+
+    inline = tmp_path / "inline"
+    splatter.vary(look, seeds="1:4", out=str(inline), jobs=1, progress=False)
+    killed = []
+    stop = threading.Event()
+
+    def kill_a_worker():
+        me = psutil.Process()
+        while not stop.is_set() and not killed:
+            for child in me.children():
+                try:
+                    busy = "spawn_main" in " ".join(child.cmdline()) and sum(child.cpu_times()[:2]) > 0.5
+                except psutil.Error:
+                    continue
+                if busy:
+                    os.kill(child.pid, signal.SIGKILL)
+                    killed.append(child.pid)
+                    break
+            time.sleep(0.02)
+
+    killer = threading.Thread(target=kill_a_worker)
+    killer.start()
+    try:
+        m = splatter.vary(look, seeds="1:4", out=str(tmp_path / "pool"), jobs=2, progress=False)
+    finally:
+        stop.set()
+        killer.join()
+    assert killed, "no busy worker process was seen"
+    assert [v["status"] for v in m["variations"]] == ["done"] * 3, [v["message"] for v in m["variations"]]
+    for v in m["variations"]:
+        assert files_of(tmp_path / "pool" / v["folder"]) == files_of(inline / v["folder"])

@@ -57,24 +57,39 @@ def _run_inline(tasks: List[Dict], done: _Done) -> None:
 
 
 def _run_local(tasks: List[Dict], jobs: int, done: _Done) -> None:
+    """Render ``tasks`` in ``jobs`` spawned worker processes.
+
+    A worker that dies (killed, out of memory) breaks the pool and every
+    variation in flight with it; those are rendered once more in a fresh
+    pool, and only a variation lost twice is reported failed.
+    """
     import multiprocessing
+    from concurrent.futures.process import BrokenProcessPool
 
     threads = tasks[0]["threads"] if tasks else None
     ctx = multiprocessing.get_context("spawn")  # numba's thread pools are not safe to fork
-    with ProcessPoolExecutor(max_workers=jobs, mp_context=ctx, initializer=init_worker,
-                             initargs=(threads,)) as pool:
-        futures = {pool.submit(render_variation, t): t for t in tasks}
-        try:
-            for fut in as_completed(futures):
-                try:
-                    result = fut.result()
-                except Exception as err:  # the worker process died (killed, out of memory)
-                    result = {"status": "failed", "message": f"worker process lost: {type(err).__name__}: {err}",
-                              "files": [], "seconds": None, "warnings": []}
-                done(futures[fut], result)
-        except BaseException:
-            pool.shutdown(wait=False, cancel_futures=True)
-            raise
+    for attempt in range(2):
+        lost = []
+        with ProcessPoolExecutor(max_workers=min(jobs, len(tasks)), mp_context=ctx, initializer=init_worker,
+                                 initargs=(threads,)) as pool:
+            futures = {pool.submit(render_variation, t): t for t in tasks}
+            try:
+                for fut in as_completed(futures):
+                    try:
+                        result = fut.result()
+                    except BrokenProcessPool as err:
+                        if attempt == 0:
+                            lost.append(futures[fut])
+                            continue
+                        result = {"status": "failed", "files": [], "seconds": None, "warnings": [],
+                                  "message": f"worker process lost twice (killed or out of memory?): {err}"}
+                    done(futures[fut], result)
+            except BaseException:
+                pool.shutdown(wait=False, cancel_futures=True)
+                raise
+        if not lost:
+            return
+        tasks = lost
 
 
 def _connect(address: str):
