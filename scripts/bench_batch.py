@@ -9,7 +9,7 @@ from what the parallel workers give. Every batch's frames are checked
 byte for byte against the loop's. Prints wall times, ratios, and where the
 batch's time goes (its manifest's per-variation seconds and the board).
 
-Usage: python scripts/bench_batch.py [--seeds 8] [--frames 64] [--size 128]
+Usage: python scripts/bench_batch.py [--seeds 8] [--frames 64] [--size 128] [--rounds 2]
 """
 
 from __future__ import annotations
@@ -80,6 +80,7 @@ def main() -> int:
     ap.add_argument("--seeds", type=int, default=8, help="seeds (times 2 rates = variations)")
     ap.add_argument("--frames", type=int, default=64)
     ap.add_argument("--size", type=int, default=128)
+    ap.add_argument("--rounds", type=int, default=2, help="loop-then-batch rounds (the machine's load moves)")
     args = ap.parse_args()
     work = Path(tempfile.mkdtemp(prefix="splatter-batch-"))
     look = work / "chimney_take.toml"
@@ -90,35 +91,40 @@ def main() -> int:
     # Warm numba's on-disk cache so neither side pays for compiling.
     subprocess.run(cmd + ["render", str(look), "--quiet", "--frames", "0:2", "--out", str(work / "warm")], check=True)
 
-    t0 = time.perf_counter()
-    for seed in seeds:
-        for rate in RATES:
-            out = work / "loop" / f"seed{seed}_source.0.rate-{rate}"
-            subprocess.run(cmd + ["render", str(look), "--quiet", "--seed", str(seed), "--set",
-                                  f"source.0.rate={rate}", "--out", str(out)], check=True,
-                           stderr=subprocess.DEVNULL)  # the loop's notes, once per variation
-    t_loop = time.perf_counter() - t0
-
-    runs = {}
-    for label, extra in (("batch", []), ("batch --jobs 1", ["--jobs", "1"])):
-        out = work / label.replace(" ", "_")
-        t0 = time.perf_counter()
-        subprocess.run(cmd + ["vary", str(look), "--quiet", "--seeds", f"{seeds[0]}:{seeds[-1] + 1}", "--sweep",
-                              "source.0.rate=" + ",".join(RATES), "--out", str(out), *extra], check=True,
-                       stderr=subprocess.DEVNULL)
-        runs[label] = (time.perf_counter() - t0, json.loads((out / "vary.json").read_text()), out)
-
     print(f"{n} variations of {args.frames} frames at {args.size} px, {os.cpu_count()} cores")
-    print(f"shell loop of splatter render: {t_loop:6.1f} s  ({t_loop / n:.2f} s a variation)")
-    for label, (wall, manifest, out) in runs.items():
-        for v in manifest["variations"]:
-            assert _digests(out / v["folder"]) == _digests(work / "loop" / v["folder"]), v["folder"]
-        s = manifest["summary"]
-        render_sum = sum(v["seconds"] for v in manifest["variations"])
-        print(f"{label:30s} {wall:6.1f} s  loop / batch = {t_loop / wall:.2f}x  (jobs {s['jobs']}; "
-              f"variations' own render time summed {render_sum:.1f} s, board {s['board_seconds']:.1f} s, "
-              f"the rest start-up, worker start and kernel loading {wall - s['seconds'] + (s['seconds'] - s['board_seconds']) - render_sum / max(1, s['jobs']):.1f} s)")
+    ratios = []
+    for r in range(args.rounds):
+        # Loop and batches back to back in each round, so load from other work falls on both.
+        t0 = time.perf_counter()
+        for seed in seeds:
+            for rate in RATES:
+                out = work / f"loop{r}" / f"seed{seed}_source.0.rate-{rate}"
+                subprocess.run(cmd + ["render", str(look), "--quiet", "--seed", str(seed), "--set",
+                                      f"source.0.rate={rate}", "--out", str(out)], check=True,
+                               stderr=subprocess.DEVNULL)  # the loop's notes, once per variation
+        t_loop = time.perf_counter() - t0
+        print(f"round {r + 1}: shell loop of splatter render: {t_loop:6.1f} s  ({t_loop / n:.2f} s a variation)")
+        # --jobs 1 (start-up saved, no parallel workers) in the first round only, to keep the run short.
+        for label, extra in (("batch", []), ("batch --jobs 1", ["--jobs", "1"]))[: 2 if r == 0 else 1]:
+            out = work / f"{label.replace(' ', '_')}{r}"
+            t0 = time.perf_counter()
+            subprocess.run(cmd + ["vary", str(look), "--quiet", "--seeds", f"{seeds[0]}:{seeds[-1] + 1}", "--sweep",
+                                  "source.0.rate=" + ",".join(RATES), "--out", str(out), *extra], check=True,
+                           stderr=subprocess.DEVNULL)
+            wall = time.perf_counter() - t0
+            manifest = json.loads((out / "vary.json").read_text())
+            for v in manifest["variations"]:
+                assert _digests(out / v["folder"]) == _digests(work / f"loop{r}" / v["folder"]), v["folder"]
+            s = manifest["summary"]
+            per = [v["seconds"] for v in manifest["variations"]]
+            if label == "batch":
+                ratios.append(t_loop / wall)
+            print(f"round {r + 1}: {label:15s} {wall:6.1f} s  loop / batch = {t_loop / wall:.2f}x  "
+                  f"(jobs {s['jobs']}; a variation's render on its worker {min(per):.2f}-{max(per):.2f} s, "
+                  f"summed {sum(per):.1f} s; board {s['board_seconds']:.1f} s; the rest, process and worker "
+                  f"start-up, kernel loading and waiting, {wall - s['board_seconds'] - sum(per) / s['jobs']:.1f} s)")
     print("frames byte-identical to the loop's: yes")
+    print("loop / batch per round: " + ", ".join(f"{x:.2f}x" for x in ratios))
     shutil.rmtree(work, ignore_errors=True)
     return 0
 

@@ -27,6 +27,7 @@ import numpy as np
 from PIL import Image, ImageDraw, ImageFont
 
 from splatter.deliver.fileio import atomic_path
+from splatter.core.colorspace import srgb_decode
 from splatter.deliver.exr import read_exr
 from splatter.deliver.pack import find_frames
 from splatter.deliver.png import read_png_linear
@@ -137,10 +138,35 @@ def _resize(rgba: np.ndarray, size: Tuple[int, int]) -> np.ndarray:
     return out
 
 
+_PNG_RGBA8 = (8, 6)  # IHDR bit depth and colour type of 8-bit RGBA
+_DECODE8 = None
+
+
+def _read_png8_straight(path: str) -> Optional[np.ndarray]:
+    """The common case fast (Pillow's C decoder and a 256-entry sRGB table); None for any other PNG."""
+    global _DECODE8
+    with open(path, "rb") as f:
+        head = f.read(26)
+    if len(head) < 26 or (head[24], head[25]) != _PNG_RGBA8:
+        return None
+    with Image.open(path) as im:
+        if im.info.get("splatter.alpha") == "premultiplied":
+            return None
+        codes = np.asarray(im.convert("RGBA"))
+    if _DECODE8 is None:
+        _DECODE8 = srgb_decode(np.arange(256, dtype=np.float32) / np.float32(255.0)).astype(np.float32)
+    alpha = codes[..., 3].astype(np.float32) / np.float32(255.0)
+    rgba = np.empty(codes.shape, dtype=np.float32)
+    rgba[..., :3] = _DECODE8[codes[..., :3]] * alpha[..., None]
+    rgba[..., 3] = alpha
+    return rgba
+
+
 def read_frame(path: str, ext: str) -> np.ndarray:
     """(H, W, 4) float32 linear premultiplied RGBA of a frame splatter wrote (PNG or EXR)."""
     if ext == "png":
-        return read_png_linear(path)
+        fast = _read_png8_straight(path)
+        return fast if fast is not None else read_png_linear(path)
     ch = read_exr(path)
     return np.stack([ch[c] for c in "RGBA"], axis=-1).astype(np.float32)
 
