@@ -157,11 +157,11 @@ def test_batch_file_equals_the_command_line(tmp_path, look):
         set = ["clip.frames=3"]
         [sweep]
         source.0.rate = [20, 40, 60]
-        "shading.exposure" = "-1:1:3"
+        "shading.exposure" = "-1.0:1:3"
     """ % (tmp_path / "from_file").as_posix()))
     from_file = splatter.vary(str(batch), dry_run=True)
     from_cli = splatter.vary(look, seeds=[3, 4], zip=True, sets=["clip.frames=3"], out=str(tmp_path / "from_file"),
-                             sweep={"source.0.rate": [20, 40, 60], "shading.exposure": "-1:1:3"}, dry_run=True)
+                             sweep={"source.0.rate": [20, 40, 60], "shading.exposure": "-1.0:1:3"}, dry_run=True)
     assert from_file["variations"] == from_cli["variations"]
     assert [v["overrides"] for v in from_file["variations"][:3]] == [
         {"source.0.rate": "20", "shading.exposure": "-1.0"},

@@ -12,8 +12,10 @@ Examples
 ([3, 4, 5], [1, 5, 9], [7])
 >>> parse_sweep("source.0.rate=40,80")
 ('source.0.rate', ['40', '80'])
->>> parse_sweep("shading.exposure=-1:1:3")
-('shading.exposure', ['-1.0', '0.0', '1.0'])
+>>> parse_sweep("shading.exposure=-1:1:5")
+('shading.exposure', ['-1.0', '-0.5', '0.0', '0.5', '1.0'])
+>>> parse_sweep("clip.frames=16:64:4")
+('clip.frames', ['16', '32', '48', '64'])
 >>> parse_sweep("shading.light.color=[1,0.5,0],[0,0.5,1]")
 ('shading.light.color', ['[1,0.5,0]', '[0,0.5,1]'])
 """
@@ -142,6 +144,7 @@ def _split_values(text: str) -> List[str]:
     return parts
 
 
+_INT = re.compile(r"^\s*[-+]?\d+\s*$")
 _RANGE = re.compile(r"^\s*([-+]?[0-9.eE+-]+)\s*:\s*([-+]?[0-9.eE+-]+)\s*:\s*(\d+)\s*$")
 
 
@@ -170,6 +173,8 @@ def parse_sweep(text: str, *, where: str = "--sweep") -> Tuple[str, List[str]]:
         except ValueError:
             raise LookError(where, key, "LO:HI:COUNT with numbers LO and HI", repr(values)) from None
         out = _spaced(lo, hi, int(m.group(3)), where=where, key=key)
+        if _INT.match(m.group(1)) and _INT.match(m.group(2)) and all(float(v).is_integer() for v in out):
+            out = [str(int(float(v))) for v in out]  # whole numbers between whole ends stay integers (clip.frames)
     else:
         out = _split_values(values)
     if not out or any(v == "" for v in out):
