@@ -30,6 +30,8 @@ examples:
   splatter simulate looks/quay_vent.toml --out vent.npz
   splatter simulate looks/beach_bonfire.toml --out fire.npz --flow-grid fire-grid.npz --flow-frame 32
   splatter pack renders/harbour_chimney --columns 8
+  splatter vary looks/harbour_chimney.toml --seeds 1:5 --sweep force.0.velocity.0=0.5,1.5 --set clip.frames=32
+  splatter vary looks/batches/chimney_takes.toml --jobs 2
 
 The look file format is described in docs/look-reference.md.
 """
@@ -137,6 +139,29 @@ def _parser() -> argparse.ArgumentParser:
                    "else none)")
     k.add_argument("--force", action="store_true",
                    help="replace a sheet whose map sheets have another layout (the map sheets are removed)")
+    v = sub.add_parser(
+        "vary",
+        help="render many variations (seeds, sweeps) with a board to pick from",
+        description="Render many variations of one look: seeds crossed with swept keys. Writes one folder per "
+        "variation, vary.json (the manifest), board.png and board.gif into --out. Re-running the same batch "
+        "skips variations that finished. Exit 0 if all succeeded, 1 if any failed, 2 for bad input.",
+    )
+    v.add_argument("look", metavar="LOOK", help="a look file, or a batch file (TOML with look, seeds, [sweep], zip, "
+                   "out)")
+    v.add_argument("--seeds", metavar="A:B", help="seeds A to B-1 (or A,B,C or one seed)")
+    v.add_argument("--sweep", action="append", default=[], metavar="KEY=V1,V2,...",
+                   help="a look key and its values (TOML syntax), or KEY=LO:HI:COUNT for evenly spaced numbers; "
+                   "several --sweep are crossed as a grid; repeatable")
+    v.add_argument("--zip", action="store_true", help="pair the sweeps value by value instead of crossing them")
+    v.add_argument("--set", dest="overrides", action="append", default=[], metavar="KEY=VALUE",
+                   help="override a value of the look in every variation; repeatable")
+    v.add_argument("--out", metavar="DIR", help="batch folder (default renders/{name}-vary)")
+    v.add_argument("--jobs", type=int, metavar="N", help="worker processes (default: one per core, at most one "
+                   "per variation)")
+    v.add_argument("--cluster", metavar="ADDRESS", help="a running Dask scheduler, tcp://host:port: render each "
+                   "variation as a task on its workers (pip install 'splatter[farm]')")
+    v.add_argument("--dry-run", action="store_true", help="list the variations and what would run; write nothing")
+    v.add_argument("--quiet", action="store_true", help="no progress bar and no summary (failures are still listed)")
     return p
 
 
@@ -335,7 +360,25 @@ def _cmd_pack(args) -> int:
     return EXIT_OK
 
 
-_COMMANDS = {"render": _cmd_render, "check": _cmd_check, "simulate": _cmd_simulate, "pack": _cmd_pack}
+def _cmd_vary(args) -> int:
+    from splatter.batch.plan import parse_sweep
+    from splatter.batch.run import dry_run_lines, summary_lines, vary
+
+    sweep = dict(parse_sweep(text) for text in args.sweep)
+    manifest = vary(args.look, seeds=args.seeds, sweep=None, zip=args.zip, sets=args.overrides, out=args.out,
+                    jobs=args.jobs, cluster=args.cluster, dry_run=args.dry_run, progress=not args.quiet,
+                    parsed_sweep=sweep)
+    if args.dry_run:
+        print("\n".join(dry_run_lines(manifest)))
+        return EXIT_OK
+    for line in summary_lines(manifest):
+        if not args.quiet or line.startswith("splatter: failed"):
+            print(line, file=sys.stderr)
+    return EXIT_OK if manifest["summary"]["failed"] == 0 else EXIT_INTERNAL
+
+
+_COMMANDS = {"render": _cmd_render, "check": _cmd_check, "simulate": _cmd_simulate, "pack": _cmd_pack,
+             "vary": _cmd_vary}
 
 
 def _show_warning(message, category, filename, lineno, file=None, line=None):

@@ -11,15 +11,18 @@ import sys
 import time
 import warnings
 from dataclasses import dataclass, field, replace
-from typing import Dict, Iterable, List, Optional
+from typing import Dict, Iterable, Iterator, List, NamedTuple, Optional
 
 import numpy as np
 
+from splatter.core.args import check_choice
+from splatter.core.choices import MAPS
 from splatter.core.errors import LookError, LookWarning
 from splatter.core.thresholds import VISIBLE_ALPHA
 from splatter.deliver.folder import RenderFolder, check_folder
 from splatter.deliver.names import planned_files
 from splatter.deliver.sink import OutputSink
+from splatter.look.load import load_look
 from splatter.look.records import LookSpec
 from splatter.raster.compositor import composite_features, kernels_cached
 from splatter.raster.maps import normal_map
@@ -30,8 +33,8 @@ from splatter.view.framing import border_alpha_share, fit_camera, max_border_alp
 from splatter.view.light import build_density_grid, light_puffs, transmittance
 from splatter.view.splats import feature_layout, make_splats, seen_opacity, split_layers
 
-__all__ = ["render", "RenderResult", "make_camera", "plan_and_camera", "look_plan", "pixel_size", "output_dir",
-           "frame_images", "prepare_kernels", "unfitted", "first_plan"]
+__all__ = ["render", "render_frames", "Frame", "as_look", "RenderResult", "make_camera", "plan_and_camera",
+           "look_plan", "pixel_size", "output_dir", "frame_images", "prepare_kernels", "unfitted", "first_plan"]
 
 FIT_OCTAVES = 2
 """Octaves an "auto" swirl is simulated with to fit the camera, before its count is known.
@@ -309,14 +312,61 @@ def prepare_kernels(look: LookSpec, *, say: bool = True) -> float:
     return time.perf_counter() - t0
 
 
-def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[Iterable[int]] = None,
+def _frame_layers(look: LookSpec, plan: SimPlan, camera: Camera, wanted: List[int], timings: Dict[str, float],
+                  maps: Optional[Iterable[str]] = None):
+    """Each wanted frame as ``(frame, rgba, layers)``: crossfade applied, normal map added.
+
+    The one frame loop :func:`render` and :func:`render_frames` share, so the
+    arrays a script gets are the ones the files are written from. ``wanted``
+    is ascending.
+    """
+    maps = tuple(look.output.maps if maps is None else maps)
+    n = look.clip.frames
+    fade = _crossfade_frames(look)
+    lead = {}
+    if fade and flows(plan):
+        # A flow is simulated once: the last `fade` frames fade into the frames just before frame 0 (from the
+        # warm-up), which arrive first, so nothing waits for the end of the clip.
+        lead_frames = sorted({f - n for f in wanted if n - fade <= f < n})
+        tail_frames = []
+        every = sorted(set(wanted) | set(lead_frames))
+        main = frame_images(look, camera, _timed(simulate(look, plan, frames=every, warmup_frames=True), timings,
+                                                  "simulate"), maps=maps, timings=timings)
+    else:
+        lead_frames = []
+        tail_frames = [n + f for f in wanted if f < fade] if fade else []
+        main = frame_images(look, camera, _timed(simulate(look, plan, frames=wanted), timings, "simulate"),
+                            maps=maps, timings=timings)
+    tail = iter(frame_images(look, camera, _timed(simulate(look, plan, frames=tail_frames), timings, "simulate"),
+                             maps=maps, timings=timings)) if tail_frames else None
+    for frame, image, channels, sigma in main:
+        if frame < 0:  # a flow's frames before frame 0, for the crossfade
+            lead[frame] = image
+            continue
+        if lead_frames and n - fade <= frame < n:
+            # Frame f shows frame f fading into frame f - N, so frame N-1 runs on into frame 0.
+            w = np.float32((frame - (n - fade)) / fade)
+            image = w * lead.pop(frame - n) + (np.float32(1.0) - w) * image
+        if tail is not None and frame < fade:
+            _, late, _, _ = next(tail)
+            # Frame f shows frame N+f fading into frame f, so frame N-1 runs on into frame 0.
+            w = np.float32(1.0 - frame / fade)
+            image = w * late + (np.float32(1.0) - w) * image
+        rgba, layers = split_layers(image, channels)
+        if "normal" in maps:
+            layers.update(normal_map(rgba[..., 3], sigma, y_down=look.output.normal_y == "down"))
+        yield frame, rgba, layers
+
+
+def render(look, *, out_dir: Optional[str] = None, frames: Optional[Iterable[int]] = None,
            progress: bool = True, plan: Optional[SimPlan] = None, camera: Optional[Camera] = None,
            resume: bool = False) -> RenderResult:
     """Render a look and write the files its ``[output]`` table asks for.
 
     Parameters
     ----------
-    look : LookSpec
+    look : LookSpec, str, os.PathLike or dict
+        A loaded look, a look file, or a look as a dict (see :func:`as_look`).
     out_dir : str, optional
         Replaces ``output.dir`` (``{name}``, ``{seed}`` filled in).
     frames : iterable of int, optional
@@ -353,6 +403,7 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
      'lamp_haze.render.json', 'lamp_haze.sheet.json', 'lamp_haze.sheet.png']
     """
     t_start = time.perf_counter()
+    look = as_look(look)
     timings: Dict[str, float] = {}
     wanted = list(frames) if frames is not None else list(range(look.clip.frames))
     folder = output_dir(look, out_dir)
@@ -372,26 +423,7 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
     if record.complete_already:
         timings["total"] = time.perf_counter() - t_start
         return RenderResult(name=look.name, out_dir=folder, frames=wanted, seconds=timings)
-    n = look.clip.frames
-    fade = _crossfade_frames(look)
-    maps = look.output.maps
-    lead = {}
-    if fade and flows(plan):
-        # A flow is simulated once: the last `fade` frames fade into the frames just before frame 0 (from the
-        # warm-up), which arrive first, so nothing waits for the end of the clip.
-        lead_frames = sorted({f - n for f in todo if n - fade <= f < n})
-        tail_frames = []
-        every = sorted(set(todo) | set(lead_frames))
-        main = iter(frame_images(look, camera, _timed(simulate(look, plan, frames=every, warmup_frames=True),
-                                                      timings, "simulate"), timings=timings))
-    else:
-        lead_frames = []
-        tail_frames = [n + f for f in todo if f < fade] if fade else []
-        main = iter(frame_images(look, camera, _timed(simulate(look, plan, frames=todo), timings, "simulate"),
-                                 timings=timings))
-    tail = iter(frame_images(look, camera, _timed(simulate(look, plan, frames=tail_frames), timings, "simulate"),
-                             timings=timings)) if tail_frames else None
-
+    fresh = _frame_layers(look, plan, camera, todo, timings)
     sink = OutputSink(look, folder, len(wanted), frames=wanted, loop=plan.effective_loop)
     borders: Dict[int, tuple] = {}
 
@@ -418,22 +450,7 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
                 if bar is not None:
                     bar.update(1)
                 continue
-            frame, image, channels, sigma = next(main)
-            while frame < 0:  # a flow's frames before frame 0, for the crossfade
-                lead[frame] = image
-                frame, image, channels, sigma = next(main)
-            if lead_frames and n - fade <= frame < n:
-                # Frame f shows frame f fading into frame f - N, so frame N-1 runs on into frame 0.
-                w = np.float32((frame - (n - fade)) / fade)
-                image = w * lead.pop(frame - n) + (np.float32(1.0) - w) * image
-            if tail is not None and frame < fade:
-                _, late, _, _ = next(tail)
-                # Frame f shows frame N+f fading into frame f, so frame N-1 runs on into frame 0.
-                w = np.float32(1.0 - frame / fade)
-                image = w * late + (np.float32(1.0) - w) * image
-            rgba, layers = split_layers(image, channels)
-            if "normal" in maps:
-                layers.update(normal_map(rgba[..., 3], sigma, y_down=look.output.normal_y == "down"))
+            frame, rgba, layers = next(fresh)
             border, share = max_border_alpha(rgba[..., 3]), border_alpha_share(rgba[..., 3])
             borders[frame] = (border, share)
             if border > worst[0]:
@@ -465,3 +482,95 @@ def render(look: LookSpec, *, out_dir: Optional[str] = None, frames: Optional[It
         )
     return result
 
+
+def as_look(look) -> LookSpec:
+    """A :class:`LookSpec` from a look, a look file's path or a look as a dict.
+
+    A dict goes through the same checks as a file (and its messages name
+    ``<dict>`` where they would name the file).
+    """
+    if isinstance(look, LookSpec):
+        return look
+    return load_look(look)
+
+
+class Frame(NamedTuple):
+    """One rendered frame, as :func:`render_frames` yields it.
+
+    Attributes
+    ----------
+    frame : int
+        Frame number.
+    rgba : (H, W, 4) float32 ndarray
+        Linear premultiplied RGBA, before exposure and display encoding
+        (what an EXR frame holds).
+    maps : dict of str to ndarray
+        Each requested map by its ``output.maps`` name: ``"motion"``
+        ``(H, W, 2)`` pixels per frame (x right, y down), ``"depth"``
+        ``(H, W)`` distance along the view axis, ``"normal"`` ``(H, W, 3)``
+        unit view-space normals, ``"lightdirs"`` ``(H, W, C)`` light factors
+        per direction; all float32, straight (0 where alpha is 0).
+    """
+
+    frame: int
+    rgba: np.ndarray
+    maps: Dict[str, np.ndarray]
+
+
+def _group_layers(layers: Dict[str, np.ndarray]) -> Dict[str, np.ndarray]:
+    """``{"motion.x": a, "motion.y": b}`` to ``{"motion": (H, W, 2)}``; one-channel maps stay 2D."""
+    groups: Dict[str, List[np.ndarray]] = {}
+    for key, plane in layers.items():
+        groups.setdefault(key.split(".", 1)[0], []).append(plane)
+    return {k: (v[0] if len(v) == 1 else np.stack(v, axis=-1)) for k, v in groups.items()}
+
+
+def render_frames(look, frames: Optional[Iterable[int]] = None, *, maps: Optional[Iterable[str]] = None
+                  ) -> Iterator[Frame]:
+    """Render a look frame by frame and yield the arrays; nothing is written.
+
+    The pixels are those :func:`render` writes (same simulation, framing and
+    crossfade), one frame in memory at a time.
+
+    Parameters
+    ----------
+    look : LookSpec, str, os.PathLike or dict
+        A loaded look, a look file, or a look as a dict (see :func:`as_look`).
+    frames : iterable of int, optional
+        Frame numbers (default: the whole clip); yielded in increasing order.
+    maps : iterable of str, optional
+        Maps to compute (default: the look's ``output.maps``).
+
+    Yields
+    ------
+    Frame
+        ``(frame, rgba, maps)``.
+
+    Examples
+    --------
+    >>> look = {"clip": {"frames": 3}, "image": {"width": 32, "height": 24},
+    ...         "source": [{"rate": 30, "life": 1}]}
+    >>> for f in render_frames(look, maps=["depth"]):
+    ...     print(f.frame, f.rgba.shape, f.rgba.dtype, f.maps["depth"].shape)
+    0 (24, 32, 4) float32 (24, 32)
+    1 (24, 32, 4) float32 (24, 32)
+    2 (24, 32, 4) float32 (24, 32)
+    """
+    look = as_look(look)
+    maps = tuple(look.output.maps if maps is None else maps)
+    for m in maps:
+        check_choice(m, "maps", MAPS)
+    wanted = list(frames) if frames is not None else list(range(look.clip.frames))
+    plan, camera = plan_and_camera(look)
+    for frame, rgba, layers in _frame_layers(look, plan, camera, wanted, {}, maps):
+        yield Frame(frame, rgba, _group_layers(layers))
+
+
+class _CallableModule(type(sys)):
+    """Lets ``splatter.render(look)`` work although ``splatter.render`` is also this module's name."""
+
+    def __call__(self, look, **options) -> RenderResult:
+        return render(look, **options)
+
+
+sys.modules[__name__].__class__ = _CallableModule

@@ -105,15 +105,21 @@ def _merge(base: Dict, top: Dict, prefix: Tuple, top_source: str, origins: Dict[
     return out
 
 
-def _load_chain(path: Path, seen: List[Path], origins: Dict[Tuple, str]) -> Dict:
-    data = _read_toml(path)
+DICT_SOURCE = "<dict>"
+"""How messages name a look given as a dict (where they would name the file)."""
+
+
+def _load_chain(path: Path, seen: List[Path], origins: Dict[Tuple, str], data: Optional[Dict] = None) -> Dict:
+    if data is None:
+        data = _read_toml(path)
     base = data.pop("base", None)
     if base is None:
         _note_origins(data, (), str(path), origins)
         return data
     if not isinstance(base, str) or not base:
         raise LookError(path, "base", "a path to another look file (a string)", describe(base))
-    base_path = Path(os.path.normpath(path.parent / base))
+    # A dict's base is relative to the working folder (its "file" is not on disk).
+    base_path = Path(os.path.normpath((Path.cwd() if str(path) == DICT_SOURCE else path.parent) / base))
     if base_path.resolve() in seen:
         chain = " -> ".join(str(p) for p in seen + [base_path.resolve()])
         raise LookError(path, "base", "a chain of looks without a cycle", f"a cycle: {chain}")
@@ -196,8 +202,9 @@ def read_raw(path, overrides: Iterable[str] = ()) -> RawLook:
 
     Parameters
     ----------
-    path : str or Path
-        The look file.
+    path : str, Path or dict
+        The look file, or the look's tables as a dict (a ``base`` in it is
+        relative to the working folder).
     overrides : iterable of str
         ``KEY=VALUE`` strings, applied in order after inheritance.
 
@@ -205,18 +212,33 @@ def read_raw(path, overrides: Iterable[str] = ()) -> RawLook:
     -------
     RawLook
     """
-    path = Path(path)
     origins: Dict[Tuple, str] = {}
-    data = _load_chain(path, [path.resolve()], origins)
+    if isinstance(path, dict):
+        data = _plain_tables(path)
+        path = Path(DICT_SOURCE)
+        data = _load_chain(path, [], origins, data)
+    else:
+        path = Path(path)
+        data = _load_chain(path, [path.resolve()], origins)
     for text in overrides:
         keys, value = parse_override(text)
         _apply_override(data, keys, value, origins)
     return RawLook(data=data, origins=origins, path=path)
 
 
+def _plain_tables(data: Dict) -> Dict:
+    """A deep copy of a look dict with tuples as lists (TOML arrays), so the caller's dict is never changed."""
+    if isinstance(data, dict):
+        return {k: _plain_tables(v) for k, v in data.items()}
+    if isinstance(data, (list, tuple)):
+        return [_plain_tables(v) for v in data]
+    return data
+
+
 def build_look(raw: RawLook) -> LookSpec:
     """Validate a :class:`RawLook` and build its :class:`~splatter.look.records.LookSpec`."""
-    return build_spec(raw.data, raw.origin, default_name=raw.path.stem, path=str(raw.path))
+    default_name = "look" if str(raw.path) == DICT_SOURCE else raw.path.stem
+    return build_spec(raw.data, raw.origin, default_name=default_name, path=str(raw.path))
 
 
 def load_look(path, *, overrides: Iterable[str] = (), seed: Optional[int] = None) -> LookSpec:
@@ -224,8 +246,10 @@ def load_look(path, *, overrides: Iterable[str] = (), seed: Optional[int] = None
 
     Parameters
     ----------
-    path : str or Path
-        The look file (TOML 1.0).
+    path : str, Path or dict
+        The look file (TOML 1.0), or the same tables as a dict (checked the
+        same way; messages name ``<dict>`` where they would name the file; a
+        look without ``name`` is called ``look``).
     overrides : iterable of str
         ``KEY=VALUE`` overrides (the command line's ``--set``).
     seed : int, optional
@@ -252,6 +276,12 @@ def load_look(path, *, overrides: Iterable[str] = (), seed: Optional[int] = None
     Traceback (most recent call last):
     ...
     splatter.core.errors.LookError: --set: clip.frames: expected an integer from 1 to 10000, got integer 0
+    >>> load_look({"name": "quay_mist", "clip": {"frames": 12}}).clip.frames
+    12
+    >>> load_look({"clip": {"frames": "many"}})
+    Traceback (most recent call last):
+    ...
+    splatter.core.errors.LookError: <dict>: clip.frames: expected an integer from 1 to 10000, got string 'many'
     """
     look = build_look(read_raw(path, list(overrides)))
     if seed is None:
