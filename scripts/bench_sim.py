@@ -58,7 +58,9 @@ def numpy_step(pos, vel, age, dt, t, ft, ot):
     theta = pos @ k.T + (ft.swirl_w * t + ft.swirl_phi)
     air = np.cos(theta) @ ft.swirl_b
     pos0, vel0 = pos, vel
-    vel = vel + dt * acc
+    # Drag and wind grip, the linear pull -kd v, are integrated exactly, as in the kernel.
+    step = -np.expm1(-kd * dt) / kd if kd * dt >= 1e-8 else dt * (1.0 - 0.5 * kd * dt)
+    vel = vel + step * acc
     pos = pos + dt * (vel + air)
     for p in ot.planes:
         d = (pos - p[0:3]) @ p[3:6]
