@@ -14,6 +14,7 @@ import warnings
 from pathlib import Path
 from typing import Optional, Sequence
 
+from splatter.core.choices import FRAME_FORMATS, LOOP_MODES
 from splatter.core.errors import LookError, LookWarning
 
 EXIT_OK, EXIT_INTERNAL, EXIT_BAD_INPUT, EXIT_INTERRUPTED = 0, 1, 2, 130
@@ -129,12 +130,13 @@ def _parser() -> argparse.ArgumentParser:
     k.add_argument("--columns", type=int, metavar="C")
     k.add_argument("--rows", type=int, metavar="R")
     k.add_argument("--padding", type=int, default=2, metavar="PX", help="gutter around each cell (default 2)")
-    k.add_argument("--pow2", action="store_true", help="power-of-two sheet size (frames resampled into cells)")
-    k.add_argument("--format", choices=("png", "exr"), help="sheet format (default: that of the frames)")
+    k.add_argument("--pow2", action="store_true", help="power-of-two sheet size (frames kept unscaled when frame "
+                   "plus padding is a power of two, else resampled into power-of-two cells)")
+    k.add_argument("--format", choices=FRAME_FORMATS, help="sheet format (default: that of the frames)")
     k.add_argument("--fps", type=float,
                    help="frames per second stored in the metadata (default: the folder's sheet metadata or render "
                    "manifest, else 30)")
-    k.add_argument("--loop", choices=("none", "exact", "crossfade"),
+    k.add_argument("--loop", choices=LOOP_MODES,
                    help="stored in the metadata (default: the render's loop when the frames are its whole clip, "
                    "else none)")
     k.add_argument("--force", action="store_true",
