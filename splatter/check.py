@@ -27,11 +27,13 @@ from splatter.deliver.names import planned_files
 from splatter.look.records import LookSpec
 from splatter.render import (
     FIT_OCTAVES,
-    _crossfade_frames,
     first_plan,
+    fit_frames,
+    make_camera,
     output_dir,
     pixel_size,
     plan_and_camera,
+    unfitted,
 )
 from splatter.sim.driver import plan_simulation, simulate
 from splatter.sim.integrate import step_puffs
@@ -204,7 +206,7 @@ def _sampled(look: LookSpec, frames: Sequence[int], seconds: float):
     states = []
     _load_step_kernels(plan)  # from numba's cache, once per process: not the sample's time
     deadline = time.process_time() + seconds  # CPU time: a busy machine slows the clock, not the work
-    for state in simulate(sim_look, plan, frames=wanted, sample=sample):
+    for state in simulate(sim_look, plan, frames=wanted, sample=sample, warmup_frames=True):
         states.append(state)
         if time.process_time() > deadline:
             break
@@ -279,18 +281,16 @@ def _report(look: LookSpec, *, frames: Optional[Sequence[int]] = None, out_dir: 
     clip, img = look.clip, look.image
     wanted = list(frames) if frames is not None else list(range(clip.frames))
     folder = output_dir(look, out_dir)
-    fit_frames = range(clip.frames + _crossfade_frames(look))
-    base = Camera(projection=look.camera.projection, eye=look.camera.eye, target=look.camera.target,
-                  up=look.camera.up, width=img.width, height=img.height, view_width=look.camera.view_width,
-                  fov=look.camera.fov)
+    first = first_plan(look)
+    base = make_camera(unfitted(look))
     limit = memory_limit(max_memory)
-    if full and not estimate_cost(look, first_plan(look), pixel_size(base), len(wanted), limit=limit).fits:
+    if full and not estimate_cost(look, first, pixel_size(base), len(wanted), limit=limit).fits:
         full = False  # the whole simulation would not fit either: sample it, and say the render is refused
     if full:
         plan, camera = plan_and_camera(look)
         states, skipped, sample = simulate(look, plan, frames=wanted), [], 1
     else:
-        states, skipped, sample = _sampled(look, fit_frames, seconds)
+        states, skipped, sample = _sampled(look, fit_frames(look, first), seconds)
         camera = base
         if look.camera.fit:
             blend = look.shading.blend

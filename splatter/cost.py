@@ -49,7 +49,8 @@ from splatter.core.errors import LookError
 from splatter.deliver.sink import check_outputs
 from splatter.look.records import LookSpec
 from splatter.raster.compositor import TABLE_BYTES
-from splatter.render import FIT_PUFFS, _crossfade_frames
+from splatter.render import FIT_PUFFS
+from splatter.sim.plan import crossfade_frames
 from splatter.sim.driver import TWIN_MEMORY, SimPlan
 
 __all__ = ["CostEstimate", "estimate_cost", "births_per_step", "memory_limit", "parse_size", "format_bytes",
@@ -278,7 +279,7 @@ def estimate_cost(look: LookSpec, plan: SimPlan, pixel_size: float, n_frames: in
     hints["previews"] = f"preview frames of all {n_frames} frames; drop output.preview or render fewer frames"
 
     if look.camera.fit:
-        total = look.clip.frames + _crossfade_frames(look)
+        total = look.clip.frames + crossfade_frames(look.clip)
         parts["framing"] = min(n, 2.0 * FIT_PUFFS) * total * FIT_BYTES_PER_POINT
         hints["framing"] = f"camera.fit frames on sampled puffs of all {total} frames; render fewer clip.frames"
 

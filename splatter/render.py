@@ -34,7 +34,7 @@ from splatter.view.light import build_density_grid, light_puffs, transmittance
 from splatter.view.splats import feature_layout, make_splats, seen_opacity, split_layers
 
 __all__ = ["render", "render_frames", "Frame", "as_look", "RenderResult", "make_camera", "plan_and_camera",
-           "look_plan", "pixel_size", "output_dir", "frame_images", "prepare_kernels", "unfitted", "first_plan"]
+           "look_plan", "pixel_size", "output_dir", "frame_images", "prepare_kernels", "unfitted", "first_plan", "fit_frames"]
 
 FIT_OCTAVES = 2
 """Octaves an "auto" swirl is simulated with to fit the camera, before its count is known.
@@ -120,14 +120,20 @@ def make_camera(look: LookSpec, plan: Optional[SimPlan] = None, frames: Optional
         look = with_octaves(look, FIT_OCTAVES)
     plan = plan or plan_simulation(look)
     if frames is None:
-        fade = _crossfade_frames(look)
-        frames = range(-fade, look.clip.frames) if flows(plan) else range(look.clip.frames + fade)
+        frames = fit_frames(look, plan)
     blend = look.shading.blend
     sample = max(1, int(plan.steady_state_puffs // FIT_PUFFS))
     # The fit keeps the view direction, so the camera's axes (which thinning uses) are already final.
     states = simulate(look, plan, frames=frames, sample=sample, warmup_frames=True)
     return fit_camera(cam, states, margin=c.margin, alpha=c.fit_alpha,
                       opacity_of=lambda state: seen_opacity(state, blend, cam))
+
+
+def fit_frames(look: LookSpec, plan: SimPlan) -> range:
+    """The frames ``camera.fit`` frames: the clip and the other end of its crossfade, which a
+    flow (simulated once) takes from before frame 0 and other looks from after the clip."""
+    fade = crossfade_frames(look.clip)
+    return range(-fade, look.clip.frames) if flows(plan) else range(look.clip.frames + fade)
 
 
 def unfitted(look: LookSpec) -> LookSpec:
@@ -189,10 +195,6 @@ def look_plan(look: LookSpec) -> SimPlan:
     if has_auto_octaves(look):
         return plan_simulation(look, pixel_size=pixel_size(make_camera(look)))
     return plan_simulation(look)
-
-
-def _crossfade_frames(look: LookSpec) -> int:
-    return crossfade_frames(look.clip)
 
 
 def frame_images(look: LookSpec, camera: Camera, states, *, maps=None, timings=None):
@@ -322,7 +324,7 @@ def _frame_layers(look: LookSpec, plan: SimPlan, camera: Camera, wanted: List[in
     """
     maps = tuple(look.output.maps if maps is None else maps)
     n = look.clip.frames
-    fade = _crossfade_frames(look)
+    fade = crossfade_frames(look.clip)
     lead = {}
     if fade and flows(plan):
         # A flow is simulated once: the last `fade` frames fade into the frames just before frame 0 (from the

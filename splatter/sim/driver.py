@@ -364,7 +364,7 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int], sam
     if isinstance(sample, bool) or int(sample) != sample or sample < 1:
         raise ValueError(f"sample: expected an integer >= 1, got {sample!r}")
     sample = int(sample)
-    if plan.forces.convection is None and _twins_apply(plan) and _twin_bytes(plan, len(wanted)) / sample <= TWIN_MEMORY:
+    if _twins_apply(plan) and _twin_bytes(plan, len(wanted)) / sample <= TWIN_MEMORY:
         yield from _simulate_twins(look, plan, wanted, sample)
     else:
         yield from _simulate_warmup(look, plan, wanted, sample)
@@ -465,8 +465,11 @@ def _twin_bytes(plan: SimPlan, frames: int) -> float:
 
 
 def _twins_apply(plan: SimPlan) -> bool:
-    """True for an exact loop whose sources emit on their whole lattice (births repeat every period)."""
-    return plan.period_steps is not None and all(sc.lo is None and sc.hi is None for sc in plan.schedules)
+    """True for an exact loop whose sources emit on their whole lattice (births repeat every period)
+    and that has no convection flow (a flow's state depends on every puff before it, so it runs from
+    the warm-up)."""
+    return (plan.period_steps is not None and plan.forces.convection is None
+            and all(sc.lo is None and sc.hi is None for sc in plan.schedules))
 
 
 class _Births:
