@@ -6,7 +6,8 @@ must be framed to a fraction of the threshold, and the dense core ends up
 small), and still says nothing about what the composited image shows. This
 module frames what the composited image shows:
 
-1. the conservative per-puff fit (:func:`splatter.view.framing.fit_camera`),
+1. the conservative per-puff fit (each puff out to where it alone fades to a
+   quarter of ``fit_alpha``, or of one 8-bit step if that is lower),
    widened :data:`WIDEN` times, looks at every fitted frame on a coarse image
    (:data:`FIT_PIXELS` on its longer side);
 2. each frame's puffs are composited there with alpha and view depth only
@@ -171,16 +172,21 @@ def _one_thread():
 def _gather(camera, states, opacity_of, alpha, sample) -> Tuple[List[_Cloud], Tuple[np.ndarray, np.ndarray]]:
     """Each frame's cloud, and the per-puff fit's deciding spheres over all frames."""
     clouds, pts, rho = [], [], []
+    # Puffs too faint alone may still add up to alpha: the wide view frames them out to a quarter
+    # of one 8-bit step at least (or, failing any, to their cutoff).
+    rim = RIM_SHARE * min(alpha, VISIBLE_ALPHA)
     for state in states:
         peak = np.asarray(opacity_of(state), dtype=np.float64)
-        p, r = puff_spheres(state, peak, RIM_SHARE * alpha)
-        if p.shape[0] == 0:
+        show = peak > 0
+        if not show.any():
             continue
+        p, r = puff_spheres(state, peak, rim)
+        if p.shape[0] == 0:
+            p, r = puff_spheres(state, peak, 0.5 * float(peak[show].min()))
         r = r * CUTOFF  # sigmas to the cutoff sphere
         keep = deciding_spheres(camera, p, r, margin=0.0)
         pts.append(p[keep])
         rho.append(r[keep])
-        show = peak > 0
         deform = getattr(state, "deform", None)
         cov = puff_covariances(state.size[show], state.aspect[show], state.quat[show], state.vel[show],
                                state.stretch[show], None if deform is None else deform[show])

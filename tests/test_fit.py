@@ -13,7 +13,7 @@ from dataclasses import replace
 import numpy as np
 import pytest
 
-from lookfiles import LONE_PUFF, write_look
+from lookfiles import LONE_PUFF, SMALL_PLUME, write_look
 from splatter.look.load import load_look
 from splatter.render import fit_frames, fit_look_camera, frame_images, make_camera, plan_and_camera, unfitted
 from splatter.sim.driver import plan_simulation, simulate
@@ -124,16 +124,19 @@ def test_the_border_alpha_of_every_fitted_frame_stays_at_fit_alpha(tmp_path, tex
 
 
 def test_the_accumulated_fit_fills_more_of_the_frame_than_each_puff_framed_alone(tmp_path):
-    # The same faint steam with the default margin: the share of frame pixels
-    # at alpha 5 % or more (check's fill threshold) grows by at least a third
-    # over the per-puff framing, and the border stays clear.
-    look = load_look(write_look(tmp_path, FAINT_STEAM.replace("margin = 0.0", "margin = 0.05")))
+    # A small plume whose puffs grow and thin as they rise: framed on each puff
+    # out to where it alone fades to fit_alpha / 4, the faint old puffs at the
+    # top and downwind hold the frame open though their smoke adds up to less
+    # than fit_alpha there. Framed on the accumulated alpha, the share of frame
+    # pixels at alpha 5 % or more (check's fill threshold) grows by at least a
+    # tenth (measured 0.22 -> 0.27), and the border stays clear.
+    look = load_look(write_look(tmp_path, SMALL_PLUME))
     plan, cam = plan_and_camera(look)
     old = _per_puff_camera(look, plan)
     new_alpha, old_alpha = _rendered_alpha(look, cam, plan), _rendered_alpha(look, old, plan)
     fill_new = np.mean([np.mean(a >= 0.05) for a in new_alpha])
     fill_old = np.mean([np.mean(a >= 0.05) for a in old_alpha])
-    assert fill_new >= 1.33 * fill_old
+    assert fill_new >= 1.1 * fill_old
     assert max(max_border_alpha(a) for a in new_alpha) < look.camera.fit_alpha
 
 
@@ -162,11 +165,13 @@ def test_fit_frames_a_lone_puff_out_to_the_alpha_its_edge_may_show(tmp_path, fit
     # sigma): its alpha 0.8 exp(-r^2 / 2 sigma^2) falls to fit_alpha at
     # r = sigma sqrt(2 ln(0.8 / fit_alpha)) (past the cutoff for 1/255, so 3
     # sigma). The frame spans 2 r over the share the margin leaves (1 - 2 * 0.05),
-    # padded by at most a coarse pixel of the measurement on each side (3 %).
+    # padded on each side by at most one pixel of the coarse measurement (which
+    # sees 1.5 times the puff's 6-sigma extent on 192 px) and half an image pixel.
     text = LONE_PUFF.replace("view_width = 4.0", f"fit = true\nfit_alpha = {fit_alpha!r}")
     look = load_look(write_look(tmp_path, text))
     cam = make_camera(look)
     reach = min(3.0, math.sqrt(2 * math.log(0.8 / fit_alpha)))
     exact = 2 * 0.25 * reach / 0.9
-    assert exact <= cam.view_width <= 1.03 * exact
+    pad = 1.5 * 6 * 0.25 / 192 + 0.5 * cam.view_width / 64
+    assert exact <= cam.view_width <= exact + 2 * pad / 0.9
     assert cam.eye[:2] == pytest.approx((0.0, 0.0), abs=0.01 * exact)
