@@ -94,6 +94,40 @@ velocity = [0.5, 0, 0]
 blend = "absorb"
 """
 
+# A still column of puffs running along the view axis, from 3.5 to 8.5 units
+# in front of the eye, off to one side: its near end shows far out in a
+# perspective view, its far end near the middle, so where the frame's edge
+# falls depends on the depth of the smoke each pixel sees.
+DEEP_COLUMN = """
+name = "deep_column"
+[clip]
+frames = 2
+fps = 10
+warmup = 0
+[image]
+width = 64
+height = 48
+[camera]
+projection = "perspective"
+eye = [0.0, 0.0, 6.0]
+target = [0.0, 0.0, 0.0]
+fov = 40
+fit = true
+margin = 0.0
+fit_alpha = 0.02
+[[source]]
+shape = "line"
+center = [0.8, 0.3, -2.5]
+extent = [0.0, 0.0, 5.0]
+rate = 0
+bursts = [{ time = 0, count = 150 }]
+speed = 0
+spread = 0
+life = 100
+size = 0.12
+opacity = 0.3
+"""
+
 
 def _rendered_alpha(look, camera, plan):
     """Alpha of every fitted frame (the clip and any crossfade partner) rendered through ``camera``."""
@@ -110,7 +144,8 @@ def _per_puff_camera(look, plan):
                       opacity_of=lambda s: seen_opacity(s, blend, base))
 
 
-@pytest.mark.parametrize("text", [FAINT_STEAM, DENSE_SMOKE], ids=["faint_steam_perspective", "dense_absorb"])
+@pytest.mark.parametrize("text", [FAINT_STEAM, DENSE_SMOKE, DEEP_COLUMN],
+                         ids=["faint_steam_perspective", "dense_absorb", "deep_column_perspective"])
 def test_the_border_alpha_of_every_fitted_frame_stays_at_fit_alpha(tmp_path, text):
     # margin = 0 puts the smoke's fit_alpha contour on the frame's edge, so the
     # border alpha must sit just under fit_alpha: at most one tenth above it
