@@ -79,7 +79,7 @@ class SampleStats:
         Highest peak opacity of a cut puff.
     fill : tuple of float
         Share of the frame's width and height spanned, over the clip, by
-        smoke at :data:`FILL_ALPHA` or more (each puff alone).
+        smoke at :data:`FILL_ALPHA` or more (the sampled puffs composited).
     sigma_max, sigma_mean : float
         Largest and mean footprint sigma in pixels (long axis).
     speed_max : float

@@ -18,7 +18,7 @@ from splatter.cost import estimate_cost, format_bytes, parse_size, refuse_if_too
 from splatter.core.errors import LookError
 from splatter.deliver.sink import check_outputs
 from splatter.look.load import load_look
-from splatter.render import first_plan, make_camera, pixel_size, plan_and_camera
+from splatter.render import first_plan, pixel_size, plan_and_camera
 
 _MEASURE = (
     "import resource, sys\n"

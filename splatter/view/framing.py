@@ -1,15 +1,17 @@
-"""Framing: what counts as visible smoke, a camera fitted to it, smoke cut off at the border.
+"""Framing: what counts as visible smoke, cameras fitted to it, smoke cut off at the border.
 
-One rule decides all three: smoke is visible where its alpha reaches
-:data:`~splatter.core.thresholds.VISIBLE_ALPHA` (one 8-bit step). A puff of
-peak opacity ``a`` shows alpha ``>= t`` out to ``sigma sqrt(2 ln(a / t))``,
-never past the footprint's cutoff (:data:`~splatter.core.thresholds.CUTOFF`
-sigmas). ``camera.fit`` keeps the smoke at the frame's edge below
-``camera.fit_alpha`` (default one step): it frames each puff out to where it
-alone fades to a quarter of that (:data:`RIM_SHARE`), so faint rims that
-overlap near the edge still add up to less there; ``check`` flags puffs whose cut-off
-rim is still visible; ``render`` measures the alpha on the image's outermost
-pixels.
+One rule decides what is visible: smoke is visible where its alpha reaches
+:data:`~splatter.core.thresholds.VISIBLE_ALPHA` (one 8-bit step), or
+``camera.fit_alpha`` for the fit. A puff of peak opacity ``a`` shows alpha
+``>= t`` out to ``sigma sqrt(2 ln(a / t))``, never past the footprint's
+cutoff (:data:`~splatter.core.thresholds.CUTOFF` sigmas). This module holds
+the geometry: spheres a camera is framed on (:func:`fit_spheres`, keeping
+the view direction), the per-puff fit that frames each puff out to where it
+alone fades to a quarter of ``fit_alpha`` (:data:`RIM_SHARE`;
+:mod:`splatter.fit` starts from it and frames the smoke's accumulated alpha),
+a widened coarse camera and its pixels' world points for that measurement;
+``check`` flags puffs whose cut-off rim is still visible; ``render``
+measures the alpha on the image's outermost pixels.
 
 Examples
 --------
