@@ -22,6 +22,7 @@ from splatter.core.thresholds import VISIBLE_ALPHA
 from splatter.deliver.folder import RenderFolder, check_folder
 from splatter.deliver.names import planned_files
 from splatter.deliver.sink import OutputSink
+from splatter.fit import fit_to_smoke
 from splatter.look.load import load_look
 from splatter.look.records import LookSpec
 from splatter.raster.compositor import composite_features, kernels_cached
@@ -29,7 +30,6 @@ from splatter.raster.maps import normal_map
 from splatter.sim.driver import SimPlan, plan_simulation, simulate
 from splatter.sim.plan import crossfade_frames, flows, has_auto_octaves, with_octaves
 from splatter.view.camera import Camera
-from splatter.fit import fit_to_smoke
 from splatter.view.framing import border_alpha_share, max_border_alpha
 from splatter.view.light import build_density_grid, light_puffs, transmittance
 from splatter.view.splats import feature_layout, make_splats, seen_opacity, split_layers
