@@ -115,7 +115,8 @@ def fit_to_smoke(camera: Camera, states: Iterable, *, opacity_of: Callable, marg
     >>> cam = fit_to_smoke(Camera(width=64, height=64), [one], opacity_of=lambda s: s.opacity, margin=0.0,
     ...                    alpha=0.05)
     >>> reach = 0.25 * np.sqrt(2 * np.log(0.5 / 0.05))  # a lone Gaussian's alpha is 0.05 this far out
-    >>> bool(1.0 <= cam.view_width / (2 * reach) < 1.03)  # framed there, padded by at most a coarse pixel
+    >>> # framed there, padded on each side by at most a coarse pixel and half an image pixel
+    >>> bool(1.0 <= cam.view_width / (2 * reach) < 1.04)
     True
     """
     if not 0.0 < alpha < 1.0:
