@@ -29,6 +29,7 @@ from splatter.render import (
     FIT_OCTAVES,
     first_plan,
     fit_frames,
+    fit_look_camera,
     make_camera,
     output_dir,
     pixel_size,
@@ -40,7 +41,7 @@ from splatter.sim.integrate import step_puffs
 from splatter.sim.plan import has_auto_octaves, with_octaves
 from splatter.view.camera import Camera, project_puffs
 from splatter.raster.compositor import composite_features
-from splatter.view.framing import cut_by_border, fit_camera
+from splatter.view.framing import cut_by_border
 from splatter.view.splats import seen_opacity
 
 __all__ = ["check_look", "check_report", "border_report", "SampleStats", "sample_stats", "CHECK_PUFFS", "CHECK_SECONDS"]
@@ -78,7 +79,7 @@ class SampleStats:
         Highest peak opacity of a cut puff.
     fill : tuple of float
         Share of the frame's width and height spanned, over the clip, by
-        smoke at :data:`FILL_ALPHA` or more (each puff alone).
+        smoke at :data:`FILL_ALPHA` or more (the sampled puffs composited).
     sigma_max, sigma_mean : float
         Largest and mean footprint sigma in pixels (long axis).
     speed_max : float
@@ -293,9 +294,7 @@ def _report(look: LookSpec, *, frames: Optional[Sequence[int]] = None, out_dir: 
         states, skipped, sample = _sampled(look, fit_frames(look, first), seconds)
         camera = base
         if look.camera.fit:
-            blend = look.shading.blend
-            camera = fit_camera(base, states, margin=look.camera.margin, alpha=look.camera.fit_alpha,
-                                opacity_of=lambda state: seen_opacity(state, blend, base))
+            camera = fit_look_camera(look, base, states, sample)
         plan = plan_simulation(look, pixel_size=pixel_size(camera) if has_auto_octaves(look) else None)
     stats = sample_stats(look, camera, states, sample)
     sampled = f" sampled ({', '.join(skipped)})" if skipped else ""

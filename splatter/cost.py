@@ -23,7 +23,7 @@ bytes):
   end because map encodings use clip-wide ranges;
 * **previews**: GIF/MP4 frames at most 512 px and contact thumbnails at most
   256 px on a side, 3 bytes a pixel, every frame;
-* **framing**: ``camera.fit`` keeps the sampled puff centres of every frame.
+* **framing**: ``camera.fit`` keeps the sampled puffs of every frame (centre, covariance, opacity).
 
 The time is a rough figure from this machine's measured rates
 (:data:`PIXELS_PER_SECOND`, :data:`PUFF_STEPS_PER_SECOND`), a guide to the
@@ -66,8 +66,9 @@ colour and maps, and the writer's queue of three."""
 BASELINE = 250 * 2**20
 """Python, numpy, numba and the compiled kernels."""
 
-FIT_BYTES_PER_POINT = 40
-"""``camera.fit`` keeps a centre (24 bytes) and a radius per sampled puff and frame, with some slack."""
+FIT_BYTES_PER_POINT = 56
+"""``camera.fit`` keeps a centre, a 3D covariance and a peak opacity (float32, 52 bytes) per sampled puff
+and frame, for its coarse alpha passes (:mod:`splatter.fit`), with some slack."""
 
 PIXELS_PER_SECOND = 1.5e8
 """Footprint pixels composited per second (``scripts/bench_composite.py`` on this 2-core VM: 0.2-0.5 G)."""

@@ -22,6 +22,7 @@ from splatter.core.thresholds import VISIBLE_ALPHA
 from splatter.deliver.folder import RenderFolder, check_folder
 from splatter.deliver.names import planned_files
 from splatter.deliver.sink import OutputSink
+from splatter.fit import fit_to_smoke
 from splatter.look.load import load_look
 from splatter.look.records import LookSpec
 from splatter.raster.compositor import composite_features, kernels_cached
@@ -29,12 +30,13 @@ from splatter.raster.maps import normal_map
 from splatter.sim.driver import SimPlan, plan_simulation, simulate
 from splatter.sim.plan import crossfade_frames, flows, has_auto_octaves, with_octaves
 from splatter.view.camera import Camera
-from splatter.view.framing import border_alpha_share, fit_camera, max_border_alpha
+from splatter.view.framing import border_alpha_share, max_border_alpha
 from splatter.view.light import build_density_grid, light_puffs, transmittance
 from splatter.view.splats import feature_layout, make_splats, seen_opacity, split_layers
 
 __all__ = ["render", "render_frames", "Frame", "as_look", "RenderResult", "make_camera", "plan_and_camera",
-           "look_plan", "pixel_size", "output_dir", "frame_images", "prepare_kernels", "unfitted", "first_plan", "fit_frames"]
+           "look_plan", "pixel_size", "output_dir", "frame_images", "prepare_kernels", "unfitted", "first_plan", "fit_frames",
+           "fit_look_camera"]
 
 FIT_OCTAVES = 2
 """Octaves an "auto" swirl is simulated with to fit the camera, before its count is known.
@@ -121,12 +123,22 @@ def make_camera(look: LookSpec, plan: Optional[SimPlan] = None, frames: Optional
     plan = plan or plan_simulation(look)
     if frames is None:
         frames = fit_frames(look, plan)
-    blend = look.shading.blend
     sample = max(1, int(plan.steady_state_puffs // FIT_PUFFS))
-    # The fit keeps the view direction, so the camera's axes (which thinning uses) are already final.
     states = simulate(look, plan, frames=frames, sample=sample, warmup_frames=True)
-    return fit_camera(cam, states, margin=c.margin, alpha=c.fit_alpha,
-                      opacity_of=lambda state: seen_opacity(state, blend, cam))
+    return fit_look_camera(look, cam, states, sample)
+
+
+def fit_look_camera(look: LookSpec, camera: Camera, states, sample: int = 1) -> Camera:
+    """``camera`` framed by ``camera.fit``'s rule on ``states`` (one puff in ``sample``).
+
+    The one rule behind the render's framing and ``check``'s sampled one:
+    the region where the smoke's composited alpha reaches ``camera.fit_alpha``
+    with ``camera.margin`` kept clear (:func:`splatter.fit.fit_to_smoke`).
+    """
+    blend = look.shading.blend
+    # The fit keeps the view direction, so the camera's axes (which thinning uses) are already final.
+    return fit_to_smoke(camera, states, margin=look.camera.margin, alpha=look.camera.fit_alpha, blend=blend,
+                        sample=sample, opacity_of=lambda state: seen_opacity(state, blend, camera))
 
 
 def fit_frames(look: LookSpec, plan: SimPlan) -> range:

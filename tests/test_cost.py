@@ -18,7 +18,7 @@ from splatter.cost import estimate_cost, format_bytes, parse_size, refuse_if_too
 from splatter.core.errors import LookError
 from splatter.deliver.sink import check_outputs
 from splatter.look.load import load_look
-from splatter.render import first_plan, make_camera, pixel_size, plan_and_camera
+from splatter.render import first_plan, pixel_size, plan_and_camera
 
 _MEASURE = (
     "import resource, sys\n"
@@ -186,16 +186,7 @@ def test_check_measures_the_share_of_the_frame_the_smoke_fills(tmp_path):
 # ---------------------------------------------------------------------------------------------------------------
 # Issue 13 item 6: framing that uses the texture.
 
-@pytest.mark.parametrize("fit_alpha", [1 / 255, 0.05, 0.3])
-def test_fit_frames_a_lone_puff_out_to_the_alpha_its_edge_may_show(tmp_path, fit_alpha):
-    # Orthographic fit of one puff (sigma 0.25, peak opacity 0.8) framed out to a
-    # quarter of camera.fit_alpha: the view spans 2 sigma sqrt(2 ln(0.8 / (alpha / 4)))
-    # (capped at the 3-sigma cutoff) over the share the margin leaves, 1 - 2 * 0.05.
-    text = LONE_PUFF.replace("view_width = 4.0", f"fit = true\nfit_alpha = {fit_alpha!r}")
-    look = load_look(write_look(tmp_path, text))
-    cam = make_camera(look)
-    reach = min(3.0, math.sqrt(2 * math.log(0.8 / (fit_alpha / 4))))
-    assert cam.view_width == pytest.approx(2 * 0.25 * reach / 0.9, rel=1e-6)
+# The fit's rule and its tests are in tests/test_fit.py.
 
 
 # ---------------------------------------------------------------------------------------------------------------

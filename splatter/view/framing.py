@@ -1,15 +1,17 @@
-"""Framing: what counts as visible smoke, a camera fitted to it, smoke cut off at the border.
+"""Framing: what counts as visible smoke, cameras fitted to it, smoke cut off at the border.
 
-One rule decides all three: smoke is visible where its alpha reaches
-:data:`~splatter.core.thresholds.VISIBLE_ALPHA` (one 8-bit step). A puff of
-peak opacity ``a`` shows alpha ``>= t`` out to ``sigma sqrt(2 ln(a / t))``,
-never past the footprint's cutoff (:data:`~splatter.core.thresholds.CUTOFF`
-sigmas). ``camera.fit`` keeps the smoke at the frame's edge below
-``camera.fit_alpha`` (default one step): it frames each puff out to where it
-alone fades to a quarter of that (:data:`RIM_SHARE`), so faint rims that
-overlap near the edge still add up to less there; ``check`` flags puffs whose cut-off
-rim is still visible; ``render`` measures the alpha on the image's outermost
-pixels.
+One rule decides what is visible: smoke is visible where its alpha reaches
+:data:`~splatter.core.thresholds.VISIBLE_ALPHA` (one 8-bit step), or
+``camera.fit_alpha`` for the fit. A puff of peak opacity ``a`` shows alpha
+``>= t`` out to ``sigma sqrt(2 ln(a / t))``, never past the footprint's
+cutoff (:data:`~splatter.core.thresholds.CUTOFF` sigmas). This module holds
+the geometry: spheres a camera is framed on (:func:`fit_spheres`, keeping
+the view direction), the per-puff fit that frames each puff out to where it
+alone fades to a quarter of ``fit_alpha`` (:data:`RIM_SHARE`;
+:mod:`splatter.fit` starts from it and frames the smoke's accumulated alpha),
+a widened coarse camera and its pixels' world points for that measurement;
+``check`` flags puffs whose cut-off rim is still visible; ``render``
+measures the alpha on the image's outermost pixels.
 
 Examples
 --------
@@ -29,11 +31,11 @@ from dataclasses import replace
 import numpy as np
 
 from splatter.core.thresholds import CUTOFF, VISIBLE_ALPHA
-from splatter.sim.shaping import largest_stretch
 from splatter.view.camera import _check_array
 
-__all__ = ["visible_reach", "fit_view", "fit_camera", "border_alpha_share", "max_border_alpha",
-           "cut_by_border", "RIM_VISIBLE_OPACITY"]
+__all__ = ["visible_reach", "fit_view", "fit_spheres", "deciding_spheres", "widened", "pixel_points",
+           "puff_spheres", "fit_camera", "border_alpha_share", "max_border_alpha", "cut_by_border",
+           "RIM_VISIBLE_OPACITY"]
 
 RIM_SHARE = 0.25
 """Share of ``camera.fit_alpha`` each puff is framed out to: overlapping rims of steam
@@ -64,13 +66,8 @@ def visible_reach(peak, alpha):
 def fit_view(camera, points, radii, *, margin):
     """A camera framed so every puff's cutoff sphere lands inside the image.
 
-    The view direction (``target - eye``) and ``up`` are kept. Orthographic:
-    eye and target move sideways to centre the spheres' extent and
-    ``view_width`` is chosen so the tighter axis just fits. Perspective:
-    ``fov`` is kept; the eye moves sideways and along the view direction to
-    the closest position from which every sphere lies inside the view cone
-    shrunk by the margin (one axis touches both edges, the other is centred);
-    the target is put on the new axis at the mean depth of ``points``.
+    The view direction (``target - eye``) and ``up`` are kept; see
+    :func:`fit_spheres`, here with spheres of radius ``CUTOFF * radii``.
 
     Parameters
     ----------
@@ -91,12 +88,48 @@ def fit_view(camera, points, radii, *, margin):
     radii = np.asarray(radii, dtype=np.float64)
     if radii.shape != (points.shape[0],) or not np.all(np.isfinite(radii)) or np.any(radii < 0):
         raise ValueError(f"radii: expected {points.shape[0]} finite values >= 0")
+    return fit_spheres(camera, points, CUTOFF * radii, margin=margin)
+
+
+def fit_spheres(camera, points, rho, *, margin):
+    """A camera framed so every sphere (centre ``points``, radius ``rho``) lands inside the image.
+
+    The view direction (``target - eye``) and ``up`` are kept. Orthographic:
+    eye and target move sideways to centre the spheres' extent and
+    ``view_width`` is chosen so the tighter axis just fits. Perspective:
+    ``fov`` is kept; the eye moves sideways and along the view direction to
+    the closest position from which every sphere lies inside the view cone
+    shrunk by the margin (one axis touches both edges, the other is centred);
+    the target is put on the new axis at the mean depth of ``points``.
+
+    Parameters
+    ----------
+    camera : Camera
+    points : (M, 3) float64 ndarray
+    rho : (M,) float64 ndarray
+        Sphere radii, world units.
+    margin : float
+        Fraction of the image width (height) kept clear at each edge, in [0, 0.5).
+
+    Returns
+    -------
+    Camera
+        ``camera`` itself when there are no spheres.
+
+    Examples
+    --------
+    >>> from splatter.view.camera import Camera
+    >>> cam = fit_spheres(Camera(width=200, height=100), np.array([[1.0, 0, 0]]), np.array([0.5]), margin=0.0)
+    >>> cam.eye[0], cam.view_width  # centred on the sphere; its height (1 unit) fills the frame's 100 px
+    (1.0, 2.0)
+    """
+    points = _check_array(points, "points", (3,))
+    rho = np.asarray(rho, dtype=np.float64)
     if not (0.0 <= margin < 0.5):
         raise ValueError(f"margin: expected a fraction in [0, 0.5), got {margin!r}")
     if points.shape[0] == 0:
         return camera
     s, u, f = camera.axes
-    rho = CUTOFF * radii
     xs, ys, zs = points @ s, points @ u, points @ f
     keep = 1.0 - 2.0 * margin
     aspect = camera.width / camera.height
@@ -118,6 +151,100 @@ def fit_view(camera, points, radii, *, margin):
     eye = ex * s + ey * u + ez * f
     depth = max(float(np.mean(zs)) - ez, 1e-6)
     return replace(camera, eye=tuple(eye), target=tuple(eye + depth * f))
+
+
+def deciding_spheres(camera, points, rho, *, margin):
+    """Indices of the (at most 8) spheres that alone decide :func:`fit_spheres`.
+
+    :func:`fit_spheres` depends on the spheres only through the extremes of
+    four linear functions of their centres and radii (the extent's sides for
+    the orthographic projection, the view wedge's four planes for the
+    perspective one), so these few spheres give the same camera as all of
+    them, the mean depth of the perspective target aside. The fit keeps
+    just these from each frame.
+
+    Parameters
+    ----------
+    camera : Camera
+    points : (M, 3) float64 ndarray
+    rho : (M,) float64 ndarray
+    margin : float
+
+    Returns
+    -------
+    (K,) int64 ndarray, K <= 8
+    """
+    if len(rho) == 0:
+        return np.zeros(0, dtype=np.int64)
+    s, u, f = camera.axes
+    xs, ys, zs = points @ s, points @ u, points @ f
+    ty = math.tan(math.radians(camera.fov) / 2) * (1.0 - 2.0 * margin)
+    tx = ty * camera.width / camera.height
+    kx, ky = rho * math.sqrt(1.0 + tx**2), rho * math.sqrt(1.0 + ty**2)
+    picks = [np.argmin(xs - rho), np.argmax(xs + rho), np.argmin(ys - rho), np.argmax(ys + rho),
+             np.argmin(tx * zs - xs - kx), np.argmin(tx * zs + xs - kx),
+             np.argmin(ty * zs - ys - ky), np.argmin(ty * zs + ys - ky)]
+    return np.unique(np.array(picks, dtype=np.int64))
+
+
+def widened(camera, factor, pixels):
+    """``camera`` seeing ``factor`` times as far across, on a coarse image ``pixels`` on its longer side.
+
+    The eye, view direction and the frame's aspect are kept (to a pixel's
+    rounding): orthographic ``view_width`` grows by ``factor``, perspective
+    ``tan(fov / 2)`` does.
+
+    Examples
+    --------
+    >>> from splatter.view.camera import Camera
+    >>> c = widened(Camera(width=512, height=256, view_width=2.0), 1.5, 128)
+    >>> c.width, c.height, c.view_width
+    (128, 64, 3.0)
+    """
+    scale = pixels / max(camera.width, camera.height)
+    w, h = max(1, round(camera.width * scale)), max(1, round(camera.height * scale))
+    if camera.projection == "orthographic":
+        return replace(camera, width=w, height=h, view_width=camera.view_width * factor * w / (camera.width * scale))
+    fov = 2.0 * math.degrees(math.atan(factor * math.tan(math.radians(camera.fov) / 2) * h / (camera.height * scale)))
+    return replace(camera, width=w, height=h, fov=min(fov, 179.0))
+
+
+def pixel_points(camera, rows, cols, depth):
+    """World points seen at pixel centres ``(rows, cols)`` at view depth ``depth``, and a pixel's size there.
+
+    Parameters
+    ----------
+    camera : Camera
+    rows, cols : (K,) int ndarray
+    depth : (K,) float ndarray
+        View depth (along the view axis) of each point.
+
+    Returns
+    -------
+    points : (K, 3) float64 ndarray
+    pixel : (K,) float64 ndarray
+        World units one pixel spans at each point.
+
+    Examples
+    --------
+    >>> from splatter.view.camera import Camera
+    >>> p, px = pixel_points(Camera(width=4, height=4, view_width=4.0), np.array([0]), np.array([3]), np.array([10.0]))
+    >>> p.tolist(), px.tolist()  # the top right pixel's centre, on the plane through the target
+    ([[1.5, 1.5, 0.0]], [1.0])
+    """
+    s, u, f = camera.axes
+    depth = np.asarray(depth, dtype=np.float64)
+    dx = np.asarray(cols, dtype=np.float64) + 0.5 - 0.5 * camera.width
+    dy = 0.5 * camera.height - (np.asarray(rows, dtype=np.float64) + 0.5)
+    if camera.projection == "orthographic":
+        pixel = np.full(depth.shape, camera.view_width / camera.width)
+        across = dx * pixel
+        up = dy * pixel
+    else:
+        pixel = depth / camera.focal_px
+        across, up = dx * pixel, dy * pixel
+    points = np.asarray(camera.eye) + across[:, None] * s + up[:, None] * u + depth[:, None] * f
+    return points, pixel
 
 
 def _fit_axis(xs, zs, rho, tan_half):
@@ -153,8 +280,53 @@ def border_alpha_share(alpha):
     return float((total - inner) / total)
 
 
+def puff_spheres(state, peak, alpha):
+    """Each visible puff of one frame as a sphere reaching out to where it alone fades to ``alpha``.
+
+    Parameters
+    ----------
+    state : FrameState-like
+        ``pos``, ``vel``, ``size``, ``stretch`` and ``deform`` (``None`` for rigid puffs).
+    peak : (M,) float ndarray
+        Each puff's peak opacity as composited.
+    alpha : float
+
+    Returns
+    -------
+    points : (K, 3) float64 ndarray
+        Centres of the puffs whose peak reaches ``alpha``.
+    radii : (K,) float64 ndarray
+        Sigmas: each sphere has radius ``CUTOFF * radii``.
+    """
+    visible = peak * (1.0 / alpha) > 1.0
+    reach = visible_reach(peak[visible], alpha) / CUTOFF
+    # The long axis of a stretched puff: size times the flow's largest
+    # stretch of it (exactly 1 for rigid puffs), or half the smear length.
+    smear = np.linalg.norm(state.vel[visible], axis=1) * state.stretch[visible] * 0.5
+    axis = state.size[visible]
+    deform = getattr(state, "deform", None)
+    if deform is not None:
+        axis = axis * _largest_stretch(deform[visible])
+    return np.asarray(state.pos[visible], dtype=np.float64), np.maximum(axis, smear / CUTOFF) * reach
+
+
+def _largest_stretch(deform):
+    """Largest singular value of each ``F`` ((N, 3, 3)), as the root of ``F^T F``'s largest eigenvalue.
+
+    The same values as :func:`splatter.sim.shaping.largest_stretch` to
+    round-off, in half the time (no singular vectors); the fit takes it for
+    every sampled puff of every frame.
+    """
+    gram = np.einsum("nji,njk->nik", deform, deform)
+    return np.sqrt(np.maximum(np.linalg.eigvalsh(gram)[:, -1], 0.0))
+
+
 def fit_camera(camera, states, *, opacity_of, margin, alpha=VISIBLE_ALPHA):
-    """``camera`` framed on what is visible of every puff in ``states``.
+    """``camera`` framed on each puff of ``states`` separately: the conservative per-puff fit.
+
+    Each puff is framed out to where it alone fades to ``RIM_SHARE * alpha``.
+    This is where ``camera.fit`` starts: :func:`splatter.fit.fit_to_smoke`
+    widens it, measures the smoke's accumulated alpha and frames that.
 
     Parameters
     ----------
@@ -166,8 +338,7 @@ def fit_camera(camera, states, *, opacity_of, margin, alpha=VISIBLE_ALPHA):
     margin : float
         Fraction of the image kept clear at each edge.
     alpha : float
-        Alpha the smoke may reach at the frame's edge (``camera.fit_alpha``):
-        each puff is framed out to where it alone fades to ``RIM_SHARE * alpha``.
+        ``camera.fit_alpha``.
 
     Returns
     -------
@@ -177,19 +348,9 @@ def fit_camera(camera, states, *, opacity_of, margin, alpha=VISIBLE_ALPHA):
         raise ValueError(f"alpha: expected a number in (0, 1), got {alpha!r}")
     pts, rad = [], []
     for state in states:
-        peak = opacity_of(state)
-        rim = RIM_SHARE * alpha
-        visible = peak * (1.0 / rim) > 1.0
-        reach = visible_reach(peak[visible], rim) / CUTOFF
-        # The long axis of a stretched puff: size times the flow's largest
-        # stretch of it (exactly 1 for rigid puffs), or half the smear length.
-        smear = np.linalg.norm(state.vel[visible], axis=1) * state.stretch[visible] * 0.5
-        axis = state.size[visible]
-        deform = getattr(state, "deform", None)
-        if deform is not None:
-            axis = axis * largest_stretch(deform[visible])
-        pts.append(state.pos[visible])
-        rad.append(np.maximum(axis, smear / CUTOFF) * reach)
+        p, r = puff_spheres(state, opacity_of(state), RIM_SHARE * alpha)
+        pts.append(p)
+        rad.append(r)
     points = np.concatenate(pts) if pts else np.zeros((0, 3))
     radii = np.concatenate(rad) if rad else np.zeros(0)
     if points.shape[0] == 0:
