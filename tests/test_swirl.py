@@ -136,3 +136,20 @@ def test_structure_function_follows_kolmogorov_two_thirds():
         s2 += [np.mean(np.sum((f.velocity(x + ri * e, 0.4) - u0) ** 2, axis=1)) for ri in r]
     slope = np.polyfit(np.log(r), np.log(s2), 1)[0]
     assert abs(slope - 2.0 / 3.0) < 0.1, slope
+
+
+def test_small_eddies_change_on_their_own_turnover_time():
+    # Kolmogorov 1941 (Pope, *Turbulent Flows*, 2000, sec. 6.1): an eddy of
+    # size l and speed u(l) ~ l**(1/3) turns over in l / u(l) ~ l**(2/3), so
+    # its rate of change grows as |k|**(2/3).  Fitted over six octaves of one
+    # field from the wavevectors themselves (not the octave index), unsnapped.
+    f = build_swirl(SwirlSpec(strength=1.0, scale=1.0, octaves=6, evolve=2.0), seed=3, force_index=0)
+    kmag = np.linalg.norm(f.k, axis=1)
+    octave = np.tile(np.arange(6), f.q.shape[0])
+    mean_k = [kmag[octave == o].mean() for o in range(6)]
+    mean_w = [np.abs(f.w[octave == o]).mean() for o in range(6)]
+    slope = np.polyfit(np.log(mean_k), np.log(mean_w), 1)[0]
+    assert abs(slope - 2.0 / 3.0) < 0.05, slope
+    # The largest eddies keep `evolve`: frequencies 2 pi [0.5, 1.5] / evolve.
+    w0 = np.abs(f.w[octave == 0])
+    assert w0.min() >= 2 * np.pi * 0.5 / 2.0 and w0.max() <= 2 * np.pi * 1.5 / 2.0

@@ -252,7 +252,8 @@ def write_board(out_dir: str, cells: Sequence[BoardCell], *, fps: float) -> dict
     still = base_codes.copy()
     for n, (cell, (x, y, w, h)) in enumerate(zip(cells, layout.cells)):
         cw, ch = size
-        frames = _cell_frames(cell, (cw, ch), gif_picks)
+        # The still's middle frame rides along with the GIF's picks: one listing, one decode per frame.
+        frames = _cell_frames(cell, (cw, ch), gif_picks + [len(files[n]) // 2])
         if frames is None:
             draw_missing = Image.fromarray(still)
             ImageDraw.Draw(draw_missing).text((x + _PAD, y + _PAD), "no frames", font=font, fill=_DIM_TEXT)
@@ -260,10 +261,9 @@ def write_board(out_dir: str, cells: Sequence[BoardCell], *, fps: float) -> dict
             for t in range(len(gif)):
                 gif[t, y:y + ch, x:x + cw] = still[y:y + ch, x:x + cw]
             continue
-        for t, codes in enumerate(frames):
+        for t, codes in enumerate(frames[:-1]):
             gif[t, y:y + ch, x:x + cw] = codes
-        middle = len(files[n]) // 2
-        still[y:y + ch, x:x + cw] = _cell_frames(cell, (cw, ch), [middle])[0]
+        still[y:y + ch, x:x + cw] = frames[-1]
 
     png_path = os.path.join(out_dir, BOARD_PNG)
     with atomic_path(png_path, suffix=".png") as tmp:

@@ -92,15 +92,23 @@ def encode_depth(z, near, far):
     return v.astype(np.float32)
 
 
-def encode_normal(n, *, y_down=False):
+def normal_convention(y_down: bool) -> str:
+    """What a normal map's stored y holds, as the metadata and EXR attribute say it.
+
+    >>> normal_convention(False), normal_convention(True)
+    ('+y up', '+y down')
+    """
+    return "+y down" if y_down else "+y up"
+
+
+def encode_normal(n):
     """Encode unit normals as colours.
 
     Parameters
     ----------
     n : (..., 3) float ndarray
-        Normals in image space: +X right, +Y up, +Z toward the viewer.
-    y_down : bool
-        Flip the green channel (the "+Y down" convention some engines use).
+        Normals as the map holds them: +X right, +Z toward the viewer, +Y in
+        the look's ``normal_y`` convention (the renderer flips y before this).
 
     Returns
     -------
@@ -112,8 +120,6 @@ def encode_normal(n, *, y_down=False):
     if n.ndim < 1 or n.shape[-1] != 3:
         raise ValueError(f"n: expected an (..., 3) array, got shape {n.shape}")
     n = np.nan_to_num(n, nan=0.0)
-    if y_down:
-        n = n * np.array([1.0, -1.0, 1.0])
     return np.clip(n * 0.5 + 0.5, 0.0, 1.0).astype(np.float32)
 
 

@@ -31,6 +31,7 @@ from splatter.deliver.map_encode import (
     encode_motion_rgb,
     encode_normal,
     motion_scale,
+    normal_convention,
 )
 from splatter.deliver.map_sheets import dilate_under, lightdir_entry
 from splatter.deliver.names import LIGHTDIR_SHEETS, map_frame_file
@@ -90,7 +91,7 @@ def write_map_frame(out_dir, name: str, frame: int, layers: Dict[str, np.ndarray
     if "normal.x" in layers:
         n = np.stack([layers[f"normal.{c}"] for c in "xyz"], -1)
         _write(out_dir, name, "normal", [frame], [encode_normal(n)],
-               {"encoding": "n*0.5+0.5", "channels": ["x", "y", "z"], "convention": "+y down" if y_down else "+y up"},
+               {"encoding": "n*0.5+0.5", "channels": ["x", "y", "z"], "convention": normal_convention(y_down)},
                png_bits, out)
     if f"{LIGHTDIR_SHEETS[0]}.x" in layers:
         common = lightdir_entry([])

@@ -29,6 +29,7 @@ from splatter.deliver.map_encode import (
     encode_motion_rgb,
     encode_normal,
     motion_scale,
+    normal_convention,
 )
 from splatter.deliver.names import LIGHTDIR_SHEETS, map_sheet_file
 from splatter.deliver.png import write_png_encoded
@@ -247,7 +248,7 @@ def write_normal_sheet(out_dir, name, layout, layers, alpha, common, *, y_down) 
         frames, enc = normals, "raw"
     return write_map_sheet(out_dir, name, "normal", frames, layout, encoding=enc,
                            channels=("x", "y", "z"), background=(0.5, 0.5, 1.0) if png else (0.0, 0.0, 1.0),
-                           convention="+y down" if y_down else "+y up", **common)
+                           convention=normal_convention(y_down), **common)
 
 
 def write_lightdirs_map(out_dir, name, layout, layers, alpha, *, png_bits) -> dict:

@@ -21,6 +21,7 @@ import numpy as np
 
 from splatter.core.sheet_grid import partial_grid
 from splatter.deliver.exr import rgba_channels, write_exr
+from splatter.deliver.map_encode import normal_convention
 from splatter.deliver.map_frames import is_ranged, write_map_frame, write_ranged_map_frames
 from splatter.deliver.map_sheets import (
     write_depth_sheet,
@@ -60,7 +61,7 @@ NORMAL_ATTRIBUTE = "splatter.normal_convention"
 
 
 def _convention(out) -> str:
-    return "+y down" if out.normal_y == "down" else "+y up"
+    return normal_convention(out.normal_y == "down")
 
 
 def check_outputs(look: LookSpec, n_frames: int, frames: Optional[Sequence[int]] = None):

@@ -28,9 +28,15 @@ Phys. Fluids 13, 1970):
   scales: fitted ``S2`` slope 1.15 instead of 2/3.)
 * ``octaves`` may be left to the plan (``None``, "auto"): :func:`auto_octaves`
   picks the count whose smallest eddy is 2-4 pixels at the final framing.
-* ``w_n = 2 pi f_n / evolve`` with ``f_n`` uniform in [0.5, 1.5].  When the
-  clip loops exactly, each ``w_n`` is snapped to a whole multiple (>= 1) of
-  ``2 pi / P`` so the field repeats with the loop period ``P``.
+* ``w_n = 2 pi f_n / evolve * (2**o) ** (2/3)`` with ``f_n`` uniform in
+  [0.5, 1.5]: ``evolve`` is the time the largest eddies take to change, and
+  smaller eddies change faster, as their turnover time ``l / u(l)`` scales
+  as ``l**(2/3)`` in the inertial range (Kolmogorov 1941; Pope, *Turbulent
+  Flows*, 2000, sec. 6.1).  Small eddies that change as slowly as the large
+  ones act as fixed cells that comb the smoke into fur; changing at their
+  own pace they fold it into wisps.  When the clip loops exactly, each
+  ``w_n`` is snapped to a whole multiple (>= 1) of ``2 pi / P`` so the field
+  repeats with the loop period ``P``.
 
 The velocity is **exactly** the central-difference curl of ``psi`` with the
 field's fixed step ``h = 1e-3 * scale``.  A central difference of
@@ -59,6 +65,7 @@ from splatter.sim.rng import force_generator
 
 MODES_PER_OCTAVE = 16  # base directions
 SPECTRUM_EXPONENT = -1.0 / 3.0  # mode speed ~ |k|**(-1/3): Kolmogorov with equal modes per octave (docstring)
+TURNOVER_EXPONENT = 2.0 / 3.0  # mode frequency ~ |k|**(2/3): an eddy's turnover time l / u(l) ~ l**(2/3)
 H_FRACTION = 1e-3  # h = H_FRACTION * scale
 GRADIENT_FLOOR = 1e-12  # a puff's octave weight below this is taken as 0 (its gradient terms are dropped)
 AUTO_MAX_OCTAVES = 8  # "auto" may go past the explicit 1..6; each octave costs 16 modes per puff and step
@@ -227,7 +234,7 @@ def build_swirl(spec, *, seed: int, force_index: int, period: Optional[float] = 
     phi = rng.uniform(0.0, 2.0 * np.pi, m)
     f = rng.uniform(0.5, 1.5, m)
     evolve = float(spec.evolve)
-    w = 2.0 * np.pi * f / evolve if evolve > 0 else np.zeros(m)
+    w = 2.0 * np.pi * f / evolve * (2.0 ** octave) ** TURNOVER_EXPONENT if evolve > 0 else np.zeros(m)
     if period is not None and evolve > 0:
         base = 2.0 * np.pi / period
         w = np.maximum(1.0, np.round(w / base)) * base
