@@ -21,7 +21,8 @@ from pathlib import Path
 import numpy as np
 
 from splatter.look.load import load_look
-from splatter.render import FIT_PUFFS, fit_frames, fit_look_camera, frame_images, look_plan, make_camera, unfitted
+from splatter.fit import FIT_PUFFS
+from splatter.render import fit_frames, fit_look_camera, frame_images, look_plan, make_camera, unfitted
 from splatter.sim.driver import simulate
 from splatter.view.framing import fit_camera, max_border_alpha
 from splatter.view.splats import seen_opacity

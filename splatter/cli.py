@@ -238,36 +238,32 @@ def _cmd_render(args) -> int:
     frames = parse_frames(args.frames, look.clip.frames)
     limit = _limit(args)
     _set_threads(args.threads)
-    from splatter.cost import estimate_cost, memory_limit, refuse_if_too_big
+    from splatter.cost import memory_limit
     from splatter.render import (
         announce_compile,
-        first_plan,
-        make_camera,
         output_dir,
-        pixel_size,
         plan_and_camera,
         prepare_kernels,
+        refuse_if_over_memory,
         render,
-        unfitted,
     )
 
     output_dir(look, args.out)  # a bad --out fails before the simulation
-    wanted = frames if frames is not None else range(look.clip.frames)
+    n_frames = len(frames if frames is not None else range(look.clip.frames))
     budget = memory_limit(limit)
     # Refused before anything is simulated or written (the sheet options are laid out here too): first
     # at the look's own camera, as framing simulates, then at the final framing.
-    refuse_if_too_big(look, estimate_cost(look, first_plan(look), pixel_size(make_camera(unfitted(look))),
-                                          len(wanted), limit=budget))
+    refuse_if_over_memory(look, n_frames, max_memory=budget, option_name="--max-memory")
     if not args.quiet:
         announce_compile()  # before the plan: fitting the camera simulates, which compiles too
     plan, camera = plan_and_camera(look)
     _say_plan(plan)
-    refuse_if_too_big(look, estimate_cost(look, plan, pixel_size(camera), len(wanted), limit=budget))
+    refuse_if_over_memory(look, n_frames, max_memory=budget, plan=plan, camera=camera, option_name="--max-memory")
     prepare_kernels(look, say=not args.quiet)
     # The bar only on a terminal: in a log or a pipe its redraws are noise.
     progress = not args.quiet and sys.stderr.isatty()
     result = render(look, out_dir=args.out, frames=frames, progress=progress, plan=plan, camera=camera,
-                    resume=args.resume)
+                    resume=args.resume, max_memory=budget)
     if not args.quiet:
         print(result.summary(), file=sys.stderr)
     return EXIT_OK

@@ -47,9 +47,9 @@ from typing import Dict, List, Optional
 
 from splatter.core.errors import LookError
 from splatter.deliver.sink import check_outputs
+from splatter.fit import FIT_PUFFS
 from splatter.look.records import LookSpec
 from splatter.raster.compositor import TABLE_BYTES
-from splatter.render import FIT_PUFFS
 from splatter.sim.plan import crossfade_frames
 from splatter.sim.driver import TWIN_MEMORY, SimPlan
 
@@ -301,6 +301,11 @@ def estimate_cost(look: LookSpec, plan: SimPlan, pixel_size: float, n_frames: in
                         hints=hints)
 
 
+def _limit_example(option_name: str, gib: int) -> str:
+    """``--max-memory 3G`` for the command line, ``max_memory="3G"`` for Python."""
+    return f"{option_name} {gib}G" if option_name.startswith("-") else f'{option_name}="{gib}G"'
+
+
 def refuse_if_too_big(look: LookSpec, est: CostEstimate, option_name: str = "--max-memory") -> None:
     """Raise :class:`LookError` when ``est`` does not fit its limit, naming the cost's driver and the cure."""
     if est.fits:
@@ -309,5 +314,5 @@ def refuse_if_too_big(look: LookSpec, est: CostEstimate, option_name: str = "--m
     raise LookError(
         look.path, _PART_KEYS[top],
         f"a render that fits in {format_bytes(est.limit)} of memory (raise the limit with {option_name}, "
-        f"for example {option_name} {math.ceil(est.peak / 2**30)}G)",
+        f"for example {_limit_example(option_name, math.ceil(est.peak / 2**30))})",
         f"about {format_bytes(est.peak)}, {format_bytes(est.parts[top])} of it for the {top}: {est.hints[top]}")

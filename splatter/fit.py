@@ -71,6 +71,15 @@ SHARPEN = 0.5
 """Pixels squared added to each coarse splat's covariance, its peak kept: a puff smaller than a
 coarse pixel is not missed between pixel centres (its footprint only grows, so the box does)."""
 
+FIT_PUFFS = 8000
+"""About how many live puffs ``camera.fit`` frames on.
+
+A dense look is framed on every ``n``-th spawn slot (an exact subset of its
+puffs, see :func:`~splatter.sim.driver.simulate`), so framing costs a fraction
+of the render; the outermost puffs of thousands are as good a bound as those
+of all of them, and ``camera.margin`` holds the rest.
+"""
+
 
 class _Cloud:
     """One frame's puffs as the fit needs them: centres, 3D covariances, composited peaks (float32)."""

@@ -7,6 +7,7 @@ Memory stays at one frame's puffs and image (plus what the sheet needs).
 
 from __future__ import annotations
 
+import os
 import sys
 import time
 import warnings
@@ -19,10 +20,11 @@ from splatter.core.args import check_choice
 from splatter.core.choices import MAPS
 from splatter.core.errors import LookError, LookWarning
 from splatter.core.thresholds import VISIBLE_ALPHA
+from splatter.cost import estimate_cost, memory_limit, refuse_if_too_big
 from splatter.deliver.folder import RenderFolder, check_folder
 from splatter.deliver.names import planned_files
 from splatter.deliver.sink import OutputSink
-from splatter.fit import fit_to_smoke
+from splatter.fit import FIT_PUFFS, fit_to_smoke
 from splatter.look.load import load_look
 from splatter.look.records import LookSpec
 from splatter.raster.compositor import composite_features, kernels_cached
@@ -47,14 +49,6 @@ count, the octaves are resolved from that framing, and the camera is fitted
 again on the flow with those octaves (what the render shows).
 """
 
-FIT_PUFFS = 8000
-"""About how many live puffs ``camera.fit`` frames on.
-
-A dense look is framed on every ``n``-th spawn slot (an exact subset of its
-puffs, see :func:`~splatter.sim.driver.simulate`), so framing costs a fraction
-of the render; the outermost puffs of thousands are as good a bound as those
-of all of them, and ``camera.margin`` holds the rest.
-"""
 
 
 @dataclass
@@ -179,6 +173,41 @@ def pixel_size(camera: Camera) -> float:
     """
     depth = float(np.linalg.norm(np.subtract(camera.target, camera.eye)))
     return float(1.0 / camera.pixels_per_unit(depth))
+
+
+def refuse_if_over_memory(look: LookSpec, n_frames: int, *, max_memory=None, plan: Optional[SimPlan] = None,
+                          camera: Optional[Camera] = None, option_name: str = "max_memory") -> None:
+    """Raise :class:`LookError` (nothing simulated or written) when the render would not fit in memory.
+
+    Without ``plan`` and ``camera`` the estimate is made at the look's own
+    camera with :func:`first_plan` (no simulation: framing itself simulates,
+    so this comes first); with them, at the final framing.  Every way in
+    (the command line, ``render``, ``render_frames``, ``vary``'s workers)
+    goes through here, so a legal look is refused rather than let exhaust
+    the machine's memory.
+
+    Parameters
+    ----------
+    look : LookSpec
+    n_frames : int
+        Frames to render.
+    max_memory : int, str or None
+        The limit: bytes, a size such as ``"8G"``, or None for a share of the
+        memory the machine has free (:func:`splatter.cost.memory_limit`).
+    plan, camera : optional
+        From :func:`plan_and_camera`.
+    option_name : str
+        How the caller sets the limit, named in the message.
+
+    Raises
+    ------
+    LookError
+        The estimate's largest part, its key and the limit to ask for.
+    """
+    limit = max_memory if isinstance(max_memory, int) else memory_limit(max_memory)
+    if plan is None or camera is None:
+        plan, camera = first_plan(look), make_camera(unfitted(look))
+    refuse_if_too_big(look, estimate_cost(look, plan, pixel_size(camera), n_frames, limit=limit), option_name)
 
 
 def plan_and_camera(look: LookSpec) -> "tuple[SimPlan, Camera]":
@@ -374,7 +403,7 @@ def _frame_layers(look: LookSpec, plan: SimPlan, camera: Camera, wanted: List[in
 
 def render(look, *, out_dir: Optional[str] = None, frames: Optional[Iterable[int]] = None,
            progress: bool = True, plan: Optional[SimPlan] = None, camera: Optional[Camera] = None,
-           resume: bool = False) -> RenderResult:
+           resume: bool = False, max_memory=None) -> RenderResult:
     """Render a look and write the files its ``[output]`` table asks for.
 
     Parameters
@@ -398,6 +427,10 @@ def render(look, *, out_dir: Optional[str] = None, frames: Optional[Iterable[int
         seed finished in this folder (its manifest lists them) and render
         only the rest; sheets and previews are written again and come out
         with the same bytes (see :mod:`splatter.deliver.folder`).
+    max_memory : int, str or None
+        Refuse (:class:`LookError`, nothing written) a render planned to need
+        more: bytes or a size such as ``"8G"``; default a share of the free
+        memory (see :func:`refuse_if_over_memory`).
 
     Returns
     -------
@@ -421,6 +454,9 @@ def render(look, *, out_dir: Optional[str] = None, frames: Optional[Iterable[int
     timings: Dict[str, float] = {}
     wanted = list(frames) if frames is not None else list(range(look.clip.frames))
     folder = output_dir(look, out_dir)
+    if plan is None:
+        refuse_if_over_memory(look, len(wanted), max_memory=max_memory)  # before framing simulates
+    made = not os.path.isdir(folder)
     # A folder that cannot be used fails now, before any work, naming the folder as given.
     check_folder(folder, folder, "--out" if out_dir is not None else look.path, planned_files(look, folder, wanted))
     if progress:
@@ -431,6 +467,12 @@ def render(look, *, out_dir: Optional[str] = None, frames: Optional[Iterable[int
     elif camera is None:
         camera = make_camera(look, plan)
     timings["fit"] = time.perf_counter() - t0
+    try:
+        refuse_if_over_memory(look, len(wanted), max_memory=max_memory, plan=plan, camera=camera)
+    except LookError:
+        if made:
+            os.rmdir(folder)  # refused at the final framing: leave no trace
+        raise
 
     record = RenderFolder(look, folder, wanted, resume=resume)
     todo = record.prepare()  # clears what an earlier render left; with resume, the frames still to render
@@ -539,8 +581,8 @@ def _group_layers(layers: Dict[str, np.ndarray]) -> Dict[str, np.ndarray]:
     return {k: (v[0] if len(v) == 1 else np.stack(v, axis=-1)) for k, v in groups.items()}
 
 
-def render_frames(look, frames: Optional[Iterable[int]] = None, *, maps: Optional[Iterable[str]] = None
-                  ) -> Iterator[Frame]:
+def render_frames(look, frames: Optional[Iterable[int]] = None, *, maps: Optional[Iterable[str]] = None,
+                  max_memory=None) -> Iterator[Frame]:
     """Render a look frame by frame and yield the arrays; nothing is written.
 
     The pixels are those :func:`render` writes (same simulation, framing and
@@ -554,6 +596,9 @@ def render_frames(look, frames: Optional[Iterable[int]] = None, *, maps: Optiona
         Frame numbers (default: the whole clip); yielded in increasing order.
     maps : iterable of str, optional
         Maps to compute (default: the look's ``output.maps``).
+    max_memory : int, str or None
+        As for :func:`render` (the estimate counts the look's outputs too, so
+        it errs on the safe side here).
 
     Yields
     ------
@@ -575,7 +620,9 @@ def render_frames(look, frames: Optional[Iterable[int]] = None, *, maps: Optiona
     for m in maps:
         check_choice(m, "maps", MAPS)
     wanted = list(frames) if frames is not None else list(range(look.clip.frames))
+    refuse_if_over_memory(look, len(wanted), max_memory=max_memory)
     plan, camera = plan_and_camera(look)
+    refuse_if_over_memory(look, len(wanted), max_memory=max_memory, plan=plan, camera=camera)
     for frame, rgba, layers in _frame_layers(look, plan, camera, wanted, {}, maps):
         yield Frame(frame, rgba, _group_layers(layers))
 

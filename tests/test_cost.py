@@ -258,3 +258,22 @@ def test_maximum_drag_and_grip_keep_a_render_finite(tmp_path):
     for state in simulate(look, plan, frames=range(12)):
         # Wind of 0.6 (gusting by 40 %) and lift of 1: no puff can outrun about 2 units a second.
         assert np.all(np.isfinite(state.vel)) and np.abs(state.vel).max() < 20.0
+
+
+def test_python_callers_and_batch_workers_are_refused_too(tmp_path):
+    # The refusal is the render's own, not the command line's: splatter.render,
+    # render_frames and a vary worker (which renders through splatter.render)
+    # refuse the same look with a LookError naming the limit as Python spells it.
+    from splatter.batch.worker import render_variation
+    from splatter.render import render, render_frames
+
+    look = load_look(write_look(tmp_path, HUGE))
+    out = tmp_path / "o"
+    with pytest.raises(LookError, match='max_memory="[0-9]+G"'):
+        render(look, out_dir=str(out), progress=False, max_memory="64G")
+    with pytest.raises(LookError, match='max_memory="'):  # one 8192 x 8192 frame with every map
+        next(render_frames(look, frames=[0], max_memory=2**30))
+    assert not out.exists()
+    done = render_variation({"look": look.path, "sets": [], "folder": str(out), "threads": None, "name": "huge"})
+    assert done["status"] == "failed" and "memory" in done["message"] and done["files"] == []
+    assert not out.exists()
