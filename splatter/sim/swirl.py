@@ -393,8 +393,14 @@ def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s, si
                 continue
             cp = cs[0, m]
             sp = cs[1, m]
-            _velocity_octave(n, c, s, cp, sp, b[m, 0], b[m, 1], b[m, 2], ux, uy, uz, False)
+            b0 = b[m, 0]
+            b1 = b[m, 1]
+            b2 = b[m, 2]
             for i in range(n):
+                ct = c[i] * cp - s[i] * sp  # cos(2**o a + phase)
+                ux[i] += ct * b0
+                uy[i] += ct * b1
+                uz[i] += ct * b2
                 st[i] = (s[i] * cp + c[i] * sp) * w[i]  # sin(2**o a + phase), seen by the whole puff
             # -b kt^T, the mode's gradient per unit sin(theta), a row of it per loop.
             for a in range(3):
