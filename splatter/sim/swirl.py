@@ -361,7 +361,7 @@ def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s, si
     transform of the puff's Gaussian, so eddies smaller than the puff mix
     its inside instead of stretching it (``sig = 0``: the point gradient).
     Octave ``o`` of a direction has ``|k| = 2**o |q|``, so its weight is the
-    previous octave's to the fourth power. ``w`` is scratch of ``n``. A
+    previous octave's to the fourth power. ``w`` and ``st`` are scratch of ``n``. A
     weight below :data:`GRADIENT_FLOOR` is taken as exactly 0 for that puff,
     so when every puff of the block weighs 0 the octave's gradient terms can
     be skipped without changing a bit: results never depend on which puffs
