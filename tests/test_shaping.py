@@ -255,3 +255,61 @@ def test_a_puff_drawn_out_across_the_view_thins_and_one_drawn_toward_it_does_not
     cam = Camera(eye=(0.0, 0.0, 10.0), target=(0.0, 0.0, 0.0), up=(0.0, 1.0, 0.0))
     out = thin_stretched(np.full(3, 0.75), State(), cam)
     np.testing.assert_allclose(out, [0.5, 0.75, 0.75], rtol=0, atol=1e-12)
+
+
+def _random_unit_det(rng, n, log_spread):
+    """Random F = Q1 diag(s) Q2 with det 1 and log stretches up to +-log_spread."""
+    q1 = np.linalg.qr(rng.normal(size=(n, 3, 3)))[0]
+    q2 = np.linalg.qr(rng.normal(size=(n, 3, 3)))[0]
+    s = np.exp(rng.uniform(-log_spread, log_spread, (n, 3)))
+    s /= np.cbrt(np.prod(s, axis=1))[:, None]
+    f = q1 @ (s[:, :, None] * q2)
+    f[np.linalg.det(f) < 0] *= -1.0
+    return np.ascontiguousarray(f)
+
+
+def test_the_relax_bound_skips_only_puffs_under_the_limit():
+    # For symmetric positive definite C = F^T F with eigenvalues l1 >= l2 >= l3:
+    # l1 <= tr C and 1/l3 <= tr C^-1 = ||cof F||_F^2 / det(F)^2 (C^-1 = F^-1 F^-T,
+    # F^-1 = cof(F)^T / det F; standard linear algebra, from memory), so the squared
+    # stretch ratio l1 / l3 is at most their product. The step skips the eigen work
+    # when that bound is under the limit; it must never skip a puff past it, and the
+    # relax itself must leave every skipped puff unchanged.
+    from splatter.sim.shaping import _may_exceed
+
+    rng = np.random.default_rng(7)
+    limit = 8.0
+    f = _random_unit_det(rng, 4000, 1.6)
+    ratio = stretch_ratio(f)
+    assert (ratio > limit).any() and (ratio < limit).any()
+    nrm2 = np.einsum("nij,nij->n", f, f)
+    skipped = np.array([not _may_exceed(f, i, float(nrm2[i]), limit) for i in range(f.shape[0])])
+    assert skipped.any() and not skipped.all()
+    assert np.all(ratio[skipped] < limit)
+    # Tighter than ||F||_F^3 >= ratio: it skips puffs the older bound sent to the eigen-decomposition.
+    assert np.any(skipped & (nrm2 ** 3 > limit * limit))
+    g = f[skipped].copy()
+    assert not relax_deform(g, limit).any()
+    assert np.array_equal(g, f[skipped])
+
+
+def test_footprint_ratio_matches_the_determinants_of_the_projected_covariances():
+    # sqrt(det(P S0 P^T) / det(P F S0 F^T P^T)) for the view plane P = (right, up),
+    # from the covariances puff_covariances builds (definition, exact to round-off).
+    from splatter.view.camera import footprint_ratio
+
+    rng = np.random.default_rng(3)
+    n = 300
+    size = rng.uniform(0.01, 0.2, n)
+    aspect = rng.uniform(0.3, 1.0, n)
+    quat = rng.normal(size=(n, 4))
+    f = _random_unit_det(rng, n, 1.5)
+    right = np.array([np.cos(0.4), 0.0, np.sin(0.4)])
+    up = np.array([-np.sin(0.4) * np.sin(0.3), np.cos(0.3), np.cos(0.4) * np.sin(0.3)])
+    rigid = puff_covariances(size, aspect, quat, np.zeros((n, 3)), np.zeros(n))
+    deformed = f @ rigid @ f.transpose(0, 2, 1)
+    plane = np.stack([right, up])
+    want = np.sqrt(np.linalg.det(plane @ rigid @ plane.T) / np.linalg.det(plane @ deformed @ plane.T))
+    got = footprint_ratio(size, aspect, quat, f, right, up)
+    np.testing.assert_allclose(got, want, rtol=1e-10)
+    assert (want < 0.5).any() and (want > 2.0).any()

@@ -59,7 +59,7 @@ def _air_block(buf, px, ux, n, sq, so, sb, cs, vortex, skt, gx):
 
     When ``gx > 0`` also the velocity gradient into ``buf[gx:gx+9]``
     (row ``gx + 3 a + b`` holds ``du_a/dx_b``), in the same pass over the modes,
-    as seen by puffs of the sigmas in ``buf[23]`` (row 24 scratch).
+    as seen by puffs of the sigmas in ``buf[23]`` (rows 24-25 scratch).
     """
     for j in range(n):
         buf[ux, j] = 0.0
@@ -73,7 +73,7 @@ def _air_block(buf, px, ux, n, sq, so, sb, cs, vortex, skt, gx):
     if sq.shape[0]:
         if gx > 0:
             _swirl_grad_block(buf[px], buf[px + 1], buf[px + 2], n, sq, so, sb, skt, cs, buf[ux], buf[ux + 1],
-                              buf[ux + 2], g, buf[12], buf[13], buf[23], buf[24])
+                              buf[ux + 2], g, buf[12], buf[13], buf[23], buf[24], buf[25])
         else:
             _swirl_block(buf[px], buf[px + 1], buf[px + 2], n, sq, so, sb, cs, buf[ux], buf[ux + 1], buf[ux + 2],
                          buf[12], buf[13])
@@ -113,14 +113,14 @@ def _add_flow(buf, ux, i0, n, flow, gradient):
 
 @numba.njit(**KERNEL)
 def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, lift, sq, so, sb, ph0, ph1,
-                vortex, planes, spheres, killed, buf, skt, deform, follow, elong, sigma, work, flow):
-    """Advance puffs ``i0 .. i0+n-1``; ``buf`` is (25, BLOCK) scratch, ``work`` (2, 3, 3).
+                vortex, planes, spheres, killed, buf, skt, deform, follow, elong, sigma, flow):
+    """Advance puffs ``i0 .. i0+n-1``; ``buf`` is (26, BLOCK) scratch.
 
     Rows: 0-2 position, 3-5 air velocity there, 6-8 midpoint position,
     9-11 air velocity at the midpoint, 12-13 swirl scratch, 14-22 the air
     velocity gradient (only when ``deform`` has rows: shapes follow the flow),
     23 the puffs' sigmas (the gradient is the one each puff feels as a whole),
-    24 scratch.
+    24-25 scratch.
     The gradient is taken where the step's air velocity is: at the start for
     Euler and symplectic Euler, at the midpoint for the midpoint rule.
     ``flow`` (N, 3) or (N, 12), or no rows: the convection flow's velocity
@@ -198,7 +198,7 @@ def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, li
         killed[i] = k
         if shaping:
             _advance_one(deform, i, buf[14, j], buf[15, j], buf[16, j], buf[17, j], buf[18, j], buf[19, j],
-                         buf[20, j], buf[21, j], buf[22, j], h, follow[i], elong[i], work)
+                         buf[20, j], buf[21, j], buf[22, j], h, follow[i], elong[i])
 
 
 @numba.njit(**PARALLEL)
@@ -209,10 +209,9 @@ def _step(pos, vel, age, h, method, gravity, drag, wind0, wind1, lift, sq, so, s
     for blk in numba.prange(nblocks):
         i0 = blk * BLOCK
         n = min(pos.shape[0], i0 + BLOCK) - i0
-        buf = np.empty((25, BLOCK))
-        work = np.empty((2, 3, 3))
+        buf = np.empty((26, BLOCK))
         _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, lift, sq, so, sb, ph0, ph1,
-                    vortex, planes, spheres, killed, buf, skt, deform, follow, elong, sigma, work, flow)
+                    vortex, planes, spheres, killed, buf, skt, deform, follow, elong, sigma, flow)
 
 
 @numba.njit(**PARALLEL)
@@ -237,7 +236,7 @@ def _air_gradient(pos, sq, so, sb, skt, cs, vortex, sigma, out):
     for blk in numba.prange(nblocks):
         i0 = blk * BLOCK
         n = min(pos.shape[0], i0 + BLOCK) - i0
-        buf = np.empty((25, BLOCK))
+        buf = np.empty((26, BLOCK))
         load_points(pos, i0, n, buf)
         for j in range(n):
             buf[23, j] = sigma[i0 + j]

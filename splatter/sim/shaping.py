@@ -49,64 +49,83 @@ _JACOBI_SWEEPS = 12  # cyclic Jacobi on 3x3 converges to round-off in about 5 sw
 
 
 @numba.njit(inline="always", **KERNEL)
-def _rotate(a, v, p, q):
-    """One Jacobi rotation zeroing ``a[p, q]`` of the symmetric ``a``; accumulates into ``v``."""
-    apq = a[p, q]
+def _rotate(app, apq, apr, aqp, aqq, aqr, arp, arq, arr, vp0, vp1, vp2, vq0, vq1, vq2):
+    """One Jacobi rotation zeroing ``a[p, q]`` of the symmetric 3 x 3 ``a``, on scalars.
+
+    Arguments: the entries of ``a`` in the order of indices ``(p, q, r)`` (``r``
+    the third), and columns ``p`` and ``q`` of the eigenvector matrix ``v``;
+    returns them rotated, in the same order (``arr`` and column ``r`` of ``v``
+    do not change).  Columns are rotated first, then rows, so every entry,
+    round-off included, is the one a rotation of the whole matrix in memory
+    gives; held in scalars, the sweeps stay in registers.
+    """
     if apq == 0.0:
-        return
-    theta = (a[q, q] - a[p, p]) / (2.0 * apq)
+        return app, apq, apr, aqp, aqq, aqr, arp, arq, vp0, vp1, vp2, vq0, vq1, vq2
+    theta = (aqq - app) / (2.0 * apq)
     t = (1.0 if theta >= 0.0 else -1.0) / (abs(theta) + math.sqrt(theta * theta + 1.0))
     c = 1.0 / math.sqrt(t * t + 1.0)
     s = t * c
-    for k in range(3):
-        akp = a[k, p]
-        akq = a[k, q]
-        a[k, p] = c * akp - s * akq
-        a[k, q] = s * akp + c * akq
-    for k in range(3):
-        apk = a[p, k]
-        aqk = a[q, k]
-        a[p, k] = c * apk - s * aqk
-        a[q, k] = s * apk + c * aqk
-    for k in range(3):
-        vkp = v[k, p]
-        vkq = v[k, q]
-        v[k, p] = c * vkp - s * vkq
-        v[k, q] = s * vkp + c * vkq
+    # Columns p and q.
+    app1 = c * app - s * apq
+    apq1 = s * app + c * apq
+    aqp1 = c * aqp - s * aqq
+    aqq1 = s * aqp + c * aqq
+    arp1 = c * arp - s * arq
+    arq1 = s * arp + c * arq
+    # Then rows p and q.
+    return (c * app1 - s * aqp1, c * apq1 - s * aqq1, c * apr - s * aqr,
+            s * app1 + c * aqp1, s * apq1 + c * aqq1, s * apr + c * aqr, arp1, arq1,
+            c * vp0 - s * vq0, c * vp1 - s * vq1, c * vp2 - s * vq2,
+            s * vp0 + c * vq0, s * vp1 + c * vq1, s * vp2 + c * vq2)
 
 
-@numba.njit(**KERNEL)
-def _sym_eig3(a, v):
-    """Eigen-decompose the symmetric (3, 3) ``a`` in place: its diagonal becomes the
-    eigenvalues, the columns of ``v`` (set here) the eigenvectors."""
-    for i in range(3):
-        for j in range(3):
-            v[i, j] = 1.0 if i == j else 0.0
+@numba.njit(inline="always", **KERNEL)
+def _sym_eig3(a00, a01, a02, a10, a11, a12, a20, a21, a22):
+    """Eigen-decompose the symmetric 3 x 3 ``a`` (given by its entries) by cyclic Jacobi.
+
+    Returns the eigenvalues ``(l0, l1, l2)`` and the eigenvector matrix ``v``
+    (the eigenvectors are its columns) as the tuple ``(l0, l1, l2, v00, v01,
+    ..., v22)``.
+    """
+    v00, v01, v02 = 1.0, 0.0, 0.0
+    v10, v11, v12 = 0.0, 1.0, 0.0
+    v20, v21, v22 = 0.0, 0.0, 1.0
     for _ in range(_JACOBI_SWEEPS):
-        off = a[0, 1] * a[0, 1] + a[0, 2] * a[0, 2] + a[1, 2] * a[1, 2]
-        diag = a[0, 0] * a[0, 0] + a[1, 1] * a[1, 1] + a[2, 2] * a[2, 2]
+        off = a01 * a01 + a02 * a02 + a12 * a12
+        diag = a00 * a00 + a11 * a11 + a22 * a22
         if off <= 1e-36 * diag:
             break
-        _rotate(a, v, 0, 1)
-        _rotate(a, v, 0, 2)
-        _rotate(a, v, 1, 2)
+        # (p, q, r) = (0, 1, 2), (0, 2, 1), (1, 2, 0).
+        a00, a01, a02, a10, a11, a12, a20, a21, v00, v10, v20, v01, v11, v21 = _rotate(
+            a00, a01, a02, a10, a11, a12, a20, a21, a22, v00, v10, v20, v01, v11, v21)
+        a00, a02, a01, a20, a22, a21, a10, a12, v00, v10, v20, v02, v12, v22 = _rotate(
+            a00, a02, a01, a20, a22, a21, a10, a12, a11, v00, v10, v20, v02, v12, v22)
+        a11, a12, a10, a21, a22, a20, a01, a02, v01, v11, v21, v02, v12, v22 = _rotate(
+            a11, a12, a10, a21, a22, a20, a01, a02, a00, v01, v11, v21, v02, v12, v22)
+    return a00, a11, a22, v00, v01, v02, v10, v11, v12, v20, v21, v22
 
 
 @numba.njit(**KERNEL)
-def _relax(f, i, elongation, work):
+def _relax(f, i, elongation):
     """Bound the stretch ratio of ``f[i]`` ((3, 3), det 1) at ``elongation``.
 
-    ``work`` is (2, 3, 3) float64 scratch.  Returns True when ``f[i]`` changed.
+    Returns True when ``f[i]`` changed.
     """
-    c = work[0]
-    v = work[1]
-    for p in range(3):
-        for q in range(3):
-            c[p, q] = f[i, 0, p] * f[i, 0, q] + f[i, 1, p] * f[i, 1, q] + f[i, 2, p] * f[i, 2, q]
-    _sym_eig3(c, v)  # F^T F = V diag(s^2) V^T
-    l0 = 0.5 * math.log(max(c[0, 0], 1e-300))
-    l1 = 0.5 * math.log(max(c[1, 1], 1e-300))
-    l2 = 0.5 * math.log(max(c[2, 2], 1e-300))
+    c00 = f[i, 0, 0] * f[i, 0, 0] + f[i, 1, 0] * f[i, 1, 0] + f[i, 2, 0] * f[i, 2, 0]
+    c01 = f[i, 0, 0] * f[i, 0, 1] + f[i, 1, 0] * f[i, 1, 1] + f[i, 2, 0] * f[i, 2, 1]
+    c02 = f[i, 0, 0] * f[i, 0, 2] + f[i, 1, 0] * f[i, 1, 2] + f[i, 2, 0] * f[i, 2, 2]
+    c10 = f[i, 0, 1] * f[i, 0, 0] + f[i, 1, 1] * f[i, 1, 0] + f[i, 2, 1] * f[i, 2, 0]
+    c11 = f[i, 0, 1] * f[i, 0, 1] + f[i, 1, 1] * f[i, 1, 1] + f[i, 2, 1] * f[i, 2, 1]
+    c12 = f[i, 0, 1] * f[i, 0, 2] + f[i, 1, 1] * f[i, 1, 2] + f[i, 2, 1] * f[i, 2, 2]
+    c20 = f[i, 0, 2] * f[i, 0, 0] + f[i, 1, 2] * f[i, 1, 0] + f[i, 2, 2] * f[i, 2, 0]
+    c21 = f[i, 0, 2] * f[i, 0, 1] + f[i, 1, 2] * f[i, 1, 1] + f[i, 2, 2] * f[i, 2, 1]
+    c22 = f[i, 0, 2] * f[i, 0, 2] + f[i, 1, 2] * f[i, 1, 2] + f[i, 2, 2] * f[i, 2, 2]
+    # F^T F = V diag(s^2) V^T
+    e0, e1, e2, v00, v01, v02, v10, v11, v12, v20, v21, v22 = _sym_eig3(c00, c01, c02, c10, c11, c12, c20, c21,
+                                                                        c22)
+    l0 = 0.5 * math.log(max(e0, 1e-300))
+    l1 = 0.5 * math.log(max(e1, 1e-300))
+    l2 = 0.5 * math.log(max(e2, 1e-300))
     width = math.log(elongation)
     if max(l0, l1, l2) - min(l0, l1, l2) <= width:
         return False
@@ -125,15 +144,22 @@ def _relax(f, i, elongation, work):
     g1 = math.exp(min(max(l1, m - half), m + half) - l1)
     g2 = math.exp(min(max(l2, m - half), m + half) - l2)
     # F <- F V diag(g) V^T: the rotation R = F U^-1 and the axes V are kept.
-    for p in range(3):
-        for q in range(3):
-            c[p, q] = v[p, 0] * g0 * v[q, 0] + v[p, 1] * g1 * v[q, 1] + v[p, 2] * g2 * v[q, 2]
+    u00 = v00 * g0 * v00 + v01 * g1 * v01 + v02 * g2 * v02
+    u01 = v00 * g0 * v10 + v01 * g1 * v11 + v02 * g2 * v12
+    u02 = v00 * g0 * v20 + v01 * g1 * v21 + v02 * g2 * v22
+    u10 = v10 * g0 * v00 + v11 * g1 * v01 + v12 * g2 * v02
+    u11 = v10 * g0 * v10 + v11 * g1 * v11 + v12 * g2 * v12
+    u12 = v10 * g0 * v20 + v11 * g1 * v21 + v12 * g2 * v22
+    u20 = v20 * g0 * v00 + v21 * g1 * v01 + v22 * g2 * v02
+    u21 = v20 * g0 * v10 + v21 * g1 * v11 + v22 * g2 * v12
+    u22 = v20 * g0 * v20 + v21 * g1 * v21 + v22 * g2 * v22
     for r in range(3):
         x0 = f[i, r, 0]
         x1 = f[i, r, 1]
         x2 = f[i, r, 2]
-        for q in range(3):
-            f[i, r, q] = x0 * c[0, q] + x1 * c[1, q] + x2 * c[2, q]
+        f[i, r, 0] = x0 * u00 + x1 * u10 + x2 * u20
+        f[i, r, 1] = x0 * u01 + x1 * u11 + x2 * u21
+        f[i, r, 2] = x0 * u02 + x1 * u12 + x2 * u22
     return True
 
 
@@ -144,8 +170,34 @@ def _det3(f, i):
             + f[i, 0, 2] * (f[i, 1, 0] * f[i, 2, 1] - f[i, 1, 1] * f[i, 2, 0]))
 
 
+@numba.njit(inline="always", **KERNEL)
+def _may_exceed(f, i, nrm2, elongation):
+    """False only when the stretch ratio of ``f[i]`` is surely below ``elongation``, so
+    :func:`_relax` would leave it as it is; ``nrm2`` is ``||F||_F^2``.
+
+    With ``C = F^T F`` (eigenvalues ``l1 >= l2 >= l3``), ``l1 <= tr C = ||F||_F^2``
+    and ``1 / l3 <= tr C^-1 = ||cof F||_F^2 / det(F)^2``, so
+    ``ratio^2 = l1 / l3 <= ||F||_F^2 ||cof F||_F^2 / det(F)^2``: within a factor
+    of about 1 of the ratio for a long puff, where ``||F||_F^3`` is a factor of
+    the ratio too large.  The margin of 1e-9 is far above the round-off of
+    either side (about 1e-14 relative), so the decision never differs from the
+    eigenvalues' own test in :func:`_relax`.
+    """
+    cof2 = 0.0
+    for r in range(3):
+        r1 = (r + 1) % 3
+        r2 = (r + 2) % 3
+        for q in range(3):
+            q1 = (q + 1) % 3
+            q2 = (q + 2) % 3
+            m = f[i, r1, q1] * f[i, r2, q2] - f[i, r1, q2] * f[i, r2, q1]
+            cof2 += m * m
+    d = _det3(f, i)
+    return not nrm2 * cof2 < (1.0 - 1e-9) * elongation * elongation * (d * d)
+
+
 @numba.njit(**KERNEL)
-def _advance_one(f, i, g00, g01, g02, g10, g11, g12, g20, g21, g22, h, follow, elongation, work):
+def _advance_one(f, i, g00, g01, g02, g10, g11, g12, g20, g21, g22, h, follow, elongation):
     """One Cayley step of ``f[i]`` ((3, 3) float64) with ``A = follow * G``, then the
     determinant rescale and, if the stretch may exceed ``elongation``, the relax."""
     if follow == 0.0:
@@ -189,8 +241,8 @@ def _advance_one(f, i, g00, g01, g02, g10, g11, g12, g20, g21, g22, h, follow, e
         for q in range(3):
             nrm2 += f[i, r, q] * f[i, r, q]
     # ratio <= ||F||_F^3 when det F = 1: skip the eigen work below that.
-    if nrm2 * nrm2 * nrm2 > elongation * elongation:
-        if _relax(f, i, elongation, work):
+    if nrm2 * nrm2 * nrm2 > elongation * elongation and _may_exceed(f, i, nrm2, elongation):
+        if _relax(f, i, elongation):
             _unit_det(f, i)
 
 
@@ -207,16 +259,14 @@ def _unit_det(f, i):
 @numba.njit(**PARALLEL)
 def _advance(f, grad, h, follow, elongation):
     for i in numba.prange(f.shape[0]):
-        work = np.empty((2, 3, 3))
         _advance_one(f, i, grad[i, 0, 0], grad[i, 0, 1], grad[i, 0, 2], grad[i, 1, 0], grad[i, 1, 1],
-                     grad[i, 1, 2], grad[i, 2, 0], grad[i, 2, 1], grad[i, 2, 2], h, follow[i], elongation[i], work)
+                     grad[i, 1, 2], grad[i, 2, 0], grad[i, 2, 1], grad[i, 2, 2], h, follow[i], elongation[i])
 
 
 @numba.njit(**PARALLEL)
 def _relax_all(f, elongation, changed):
     for i in numba.prange(f.shape[0]):
-        work = np.empty((2, 3, 3))
-        changed[i] = _relax(f, i, elongation[i], work)
+        changed[i] = _relax(f, i, elongation[i])
         if changed[i]:
             _unit_det(f, i)
 

@@ -355,7 +355,7 @@ def _swirl_velocity(pos, q, octaves, b, cs, out):
 
 
 @numba.njit(**KERNEL)
-def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s, sig, w):
+def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s, sig, w, st):
     """:func:`_swirl_block` plus the velocity gradient: ``g[3 a + b, i] += du_a/dx_b``.
 
     The gradient of ``cos(theta_n) b_n`` taken with the field's central
@@ -368,7 +368,7 @@ def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s, si
     transform of the puff's Gaussian, so eddies smaller than the puff mix
     its inside instead of stretching it (``sig = 0``: the point gradient).
     Octave ``o`` of a direction has ``|k| = 2**o |q|``, so its weight is the
-    previous octave's to the fourth power. ``w`` is scratch of ``n``. A
+    previous octave's to the fourth power. ``w`` and ``st`` are scratch of ``n``. A
     weight below :data:`GRADIENT_FLOOR` is taken as exactly 0 for that puff,
     so when every puff of the block weighs 0 the octave's gradient terms can
     be skipped without changing a bit: results never depend on which puffs
@@ -380,9 +380,13 @@ def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s, si
         q1 = q[d, 1]
         q2 = q[d, 2]
         qq = -0.5 * (q0 * q0 + q1 * q1 + q2 * q2)
-        wmax = 0.0
+        # Separate loops, each with few arrays: LLVM vectorises a loop only when it
+        # can check at run time that its arrays do not overlap, and gives up when
+        # there are many of them (or a library call such as exp is in it).
         for i in range(n):
             c[i], s[i] = _sincos(q0 * x[i] + q1 * y[i] + q2 * z[i])
+        wmax = 0.0
+        for i in range(n):
             w[i] = math.exp(qq * sig[i] * sig[i])
             if w[i] < GRADIENT_FLOOR:
                 w[i] = 0.0
@@ -399,46 +403,37 @@ def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s, si
             b0 = b[m, 0]
             b1 = b[m, 1]
             b2 = b[m, 2]
-            k0 = kt[m, 0]
-            k1 = kt[m, 1]
-            k2 = kt[m, 2]
-            # -b kt^T, the mode's gradient per unit sin(theta).
-            e00 = -b0 * k0
-            e01 = -b0 * k1
-            e02 = -b0 * k2
-            e10 = -b1 * k0
-            e11 = -b1 * k1
-            e12 = -b1 * k2
-            e20 = -b2 * k0
-            e21 = -b2 * k1
-            e22 = -b2 * k2
             for i in range(n):
                 ct = c[i] * cp - s[i] * sp  # cos(2**o a + phase)
-                st = (s[i] * cp + c[i] * sp) * w[i]  # sin(2**o a + phase), seen by the whole puff
                 ux[i] += ct * b0
                 uy[i] += ct * b1
                 uz[i] += ct * b2
-                g[0, i] += st * e00
-                g[1, i] += st * e01
-                g[2, i] += st * e02
-                g[3, i] += st * e10
-                g[4, i] += st * e11
-                g[5, i] += st * e12
-                g[6, i] += st * e20
-                g[7, i] += st * e21
-                g[8, i] += st * e22
+                st[i] = (s[i] * cp + c[i] * sp) * w[i]  # sin(2**o a + phase), seen by the whole puff
+            # -b kt^T, the mode's gradient per unit sin(theta), a row of it per loop.
+            for a in range(3):
+                _gradient_row(n, st, -b[m, a] * kt[m, 0], -b[m, a] * kt[m, 1], -b[m, a] * kt[m, 2],
+                              g[3 * a], g[3 * a + 1], g[3 * a + 2])
             if o + 1 < octaves[d]:
                 for i in range(n):
                     c2 = c[i] * c[i] - s[i] * s[i]
                     s[i] = 2.0 * s[i] * c[i]
                     c[i] = c2
+                wmax = 0.0
+                for i in range(n):
                     w2 = w[i] * w[i]
                     w2 = w2 * w2
                     w[i] = w2 if w2 >= GRADIENT_FLOOR else 0.0
-                wmax = 0.0
-                for i in range(n):
                     wmax = max(wmax, w[i])
             m += 1
+
+
+@numba.njit(inline="always", **KERNEL)
+def _gradient_row(n, st, e0, e1, e2, g0, g1, g2):
+    """``g0 += st e0``, ``g1 += st e1``, ``g2 += st e2`` at points ``0 .. n-1``."""
+    for i in range(n):
+        g0[i] += st[i] * e0
+        g1[i] += st[i] * e1
+        g2[i] += st[i] * e2
 
 
 def modified_wavenumbers(field: SwirlField) -> np.ndarray:

@@ -230,3 +230,33 @@ def _project_puffs(pos, size, aspect, quat, vel, stretch, deform, rot, eye, orth
         c00, c01, c02, c11, c12, c22 = _cov_one(i, size, aspect, quat, vel, stretch, deform)
         _project_one(i, pos, c00, c01, c02, c01, c11, c12, c02, c12, c22, rot, eye, ortho,
                      scale, width, height, near, low_pass, means, covs, depth, visible)
+
+
+@numba.njit(inline="always", **KERNEL)
+def _across_det(c00, c01, c02, c11, c12, c22, right, up):
+    """det of ``P C P^T`` for the symmetric 3 x 3 ``C`` and ``P`` = rows ``right``, ``up``."""
+    r0, r1, r2 = right[0], right[1], right[2]
+    u0, u1, u2 = up[0], up[1], up[2]
+    cr0 = c00 * r0 + c01 * r1 + c02 * r2
+    cr1 = c01 * r0 + c11 * r1 + c12 * r2
+    cr2 = c02 * r0 + c12 * r1 + c22 * r2
+    cu0 = c00 * u0 + c01 * u1 + c02 * u2
+    cu1 = c01 * u0 + c11 * u1 + c12 * u2
+    cu2 = c02 * u0 + c12 * u1 + c22 * u2
+    m00 = r0 * cr0 + r1 * cr1 + r2 * cr2
+    m01 = r0 * cu0 + r1 * cu1 + r2 * cu2
+    m11 = u0 * cu0 + u1 * cu1 + u2 * cu2
+    return m00 * m11 - m01 * m01
+
+
+@numba.njit(**PARALLEL)
+def _footprint_ratio(size, aspect, quat, vel, stretch, deform, right, up, out):
+    """out (N,): ``sqrt(det S2_rigid / det S2_deformed)`` across the plane (right, up); ``vel``
+    and ``stretch`` are zeros (no motion smear) and ``deform`` (N, 3, 3)."""
+    rigid = deform[:0]
+    for i in numba.prange(size.shape[0]):
+        c00, c01, c02, c11, c12, c22 = _cov_one(i, size, aspect, quat, vel, stretch, rigid)
+        d_rigid = _across_det(c00, c01, c02, c11, c12, c22, right, up)
+        c00, c01, c02, c11, c12, c22 = _cov_one(i, size, aspect, quat, vel, stretch, deform)
+        d_deformed = _across_det(c00, c01, c02, c11, c12, c22, right, up)
+        out[i] = math.sqrt(d_rigid / max(d_deformed, 1e-300))

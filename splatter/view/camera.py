@@ -286,6 +286,42 @@ def puff_covariances(size, aspect, quat, vel, stretch, deform=None):
     return out
 
 
+def footprint_ratio(size, aspect, quat, deform, right, up) -> np.ndarray:
+    """How much the flow's deformation widens each puff's footprint across a view plane.
+
+    ``sqrt(det S2_rigid / det S2_deformed)``, with ``S2 = P S P^T`` the 2 x 2
+    covariance across the plane spanned by the unit rows ``P = (right, up)``,
+    ``S0`` the rigid covariance and ``F S0 F^T`` the deformed one (no motion
+    smear): below 1 where the flow has spread the puff across the view.
+
+    Parameters
+    ----------
+    size, aspect : (N,) float64 array_like
+    quat : (N, 4) float64 array_like
+    deform : (N, 3, 3) float64 ndarray
+    right, up : (3,) float64 array_like
+
+    Returns
+    -------
+    (N,) float64 ndarray
+
+    Examples
+    --------
+    >>> f = np.diag([2.0, 0.5, 1.0])[None]  # stretched along x, squeezed along y: same area in xy
+    >>> float(footprint_ratio([1.0], [1.0], [[1.0, 0, 0, 0]], f, [1, 0, 0], [0, 1, 0])[0])
+    1.0
+    >>> float(footprint_ratio([1.0], [1.0], [[1.0, 0, 0, 0]], f, [1, 0, 0], [0, 0, 1])[0])
+    0.5
+    """
+    n = np.shape(size)[0]
+    size, aspect, quat, vel, stretch = _check_puffs(size, aspect, quat, np.zeros((n, 3)), np.zeros(n))
+    deform = _check_deform(deform, n)
+    out = np.empty(n)
+    _ck._footprint_ratio(size, aspect, quat, vel, stretch, deform, np.asarray(right, dtype=np.float64),
+                         np.asarray(up, dtype=np.float64), out)
+    return out
+
+
 def project_puffs(camera, pos, size, aspect, quat, vel, stretch, deform=None):
     """Puff covariances and their projection in one pass: ``camera.project(pos,
     puff_covariances(size, aspect, quat, vel, stretch, deform))`` without the (N, 3, 3)

@@ -26,7 +26,7 @@ from typing import Dict, Optional, Tuple
 import numpy as np
 
 from splatter.core.thresholds import MAX_OPACITY
-from splatter.view.camera import Camera, project_puffs, puff_covariances
+from splatter.view.camera import Camera, footprint_ratio, project_puffs
 
 __all__ = ["ScreenSplats", "make_splats", "effective_opacity", "feature_layout", "LIGHTDIR_CHANNELS"]
 
@@ -135,16 +135,8 @@ def thin_stretched(opacity, state, camera: Camera) -> np.ndarray:
     (M,) float64 ndarray
         Unchanged (bit for bit) where ``F`` does not widen the footprint.
     """
-    m = len(opacity)
-    zeros = np.zeros((m, 3))
-    rigid = puff_covariances(state.size, state.aspect, state.quat, zeros, np.zeros(m))
-    f = np.asarray(state.deform, dtype=np.float64)
-    deformed = f @ rigid @ f.transpose(0, 2, 1)
     right, up, _ = camera.axes
-    plane = np.stack([right, up])  # (2, 3)
-    d_rigid = np.linalg.det(plane @ rigid @ plane.T)
-    d_deformed = np.linalg.det(plane @ deformed @ plane.T)
-    ratio = np.sqrt(d_rigid / np.maximum(d_deformed, 1e-300))
+    ratio = footprint_ratio(state.size, state.aspect, state.quat, state.deform, right, up)
     thin = ratio < 1.0
     out = np.array(opacity, dtype=np.float64)
     out[thin] = 1.0 - np.power(1.0 - np.minimum(out[thin], MAX_OPACITY), ratio[thin])
