@@ -177,7 +177,9 @@ def _look_ab(args):
     if args.rate_scale != 1.0:
         from dataclasses import replace
         look = replace(look, sources=tuple(replace(s, rate=s.rate * args.rate_scale) for s in look.sources))
-    plan = plan_simulation(look)
+    from splatter.render import plan_and_camera
+
+    plan, _ = plan_and_camera(look)  # "auto" swirl octaves resolved at the final framing, as a render does
     list(simulate(look, plan, frames=[0]))  # compile
     _driver_ab(look, plan, list(range(look.clip.frames)), repeats=args.repeats_driver)
 
