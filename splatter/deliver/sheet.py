@@ -348,7 +348,8 @@ class CodeSheetStream:
         tops = [c.y - pad for c in layout.cells] + [layout.height]
         # Rows above every later cell's tile are final once cell k is in.
         self._final = [min(tops[k + 1 :]) for k in range(len(layout.cells))]
-        self._band = np.zeros((max(c.h for c in layout.cells) + 2 * pad, layout.width, 4), dtype=dtype)
+        # One cell row: every cell of a row has the same top and height.
+        self._band = np.zeros((layout.cell_height, layout.width, 4), dtype=dtype)
         self._base = 0  # sheet row of the band's first row
         self._next = 0  # the cell expected next
 
@@ -357,26 +358,21 @@ class CodeSheetStream:
         if k != self._next:
             raise RuntimeError(f"sheet cells must come in order: expected cell {self._next}, got {k}")
         cell, pad = self.layout.cells[k], self.layout.padding
-        y0 = cell.y - pad - self._base
-        if y0 < 0 or y0 + tile.shape[0] > self._band.shape[0]:
-            raise RuntimeError(f"cell {k} lies outside the rows still being assembled")
-        self._band[y0 : y0 + tile.shape[0], cell.x - pad : cell.x + cell.w + pad] = tile
+        if cell.y - pad != self._base or tile.shape[0] != self._band.shape[0]:
+            raise RuntimeError(f"cell {k} is not in the cell row being assembled")
+        self._band[:, cell.x - pad : cell.x + cell.w + pad] = tile
         self._next += 1
         self._flush(self._final[k])
 
     def _flush(self, upto):
-        """Encode the sheet's rows up to ``upto`` (exclusive); rows past the band are empty."""
+        """Encode the sheet's rows up to ``upto`` (exclusive): the band, then empty cell rows."""
         n = upto - self._base
         if n <= 0:
             return
         band = self._band
-        self._png.add_rows(band[: min(n, band.shape[0])])
-        for r in range(band.shape[0], n, band.shape[0]):  # empty cell rows below the last frame
-            band[:] = 0
+        for r in range(0, n, band.shape[0]):  # rows past the band are empty cell rows below the last frame
             self._png.add_rows(band[: min(n - r, band.shape[0])])
-        left = max(band.shape[0] - n, 0)
-        band[:left] = band[band.shape[0] - left :].copy()
-        band[left:] = 0
+            band[:] = 0
         self._base = upto
 
     def write(self, dir, name, *, fps=30, loop="none", maps=None):
