@@ -6,8 +6,9 @@ Four steps, all writing into arrays they are given:
    pixel rows, columns and screen tiles its Mahalanobis-radius-3 ellipse
    touches, and the length of its row-profile table.
 2. ``_fill_tables`` (parallel over splats): each splat's row-profile table.
-3. ``_count_pairs`` and ``_bin`` (serial): a counting sort of (tile, splat)
-   pairs, so every tile's list keeps the caller's back-to-front order.
+3. ``_count_pairs`` and ``_bin`` (parallel over runs of splats): a
+   counting sort of (tile, splat) pairs, so every tile's list keeps the
+   caller's back-to-front order.
 4. ``render_kernel(mode, three)`` (parallel over tiles): each tile
    composites its splats into a private planar float32 buffer and then
    writes only its own output pixels. No two threads touch one pixel and each
@@ -127,6 +128,55 @@ _R0, _R1, _TY0, _TY1, _TX0, _TX1, _KH, _TOFF = range(8)
 N_RANGES = 8
 
 
+# What _check_values found first, in the order the public functions report it.
+BAD_NONE, BAD_MEANS, BAD_COVS, BAD_FEATURES, BAD_OPACITIES, BAD_ASYMMETRIC, BAD_NOT_SPD, BAD_RANGE = range(8)
+
+
+@numba.njit(**KERNEL)
+def _check_values(means, covs, features, opacities, half, tol):
+    """One pass over every splat for what the public functions reject.
+
+    The arithmetic is in the inputs' dtype (``half`` = 0.5 and ``tol`` =
+    1e-6 of the covariances' dtype), as the checks it replaces did with
+    numpy, so the same input is accepted. Returns ``(kind, index)``: the
+    first failing check in the order non-finite means, covs, features,
+    opacities, asymmetric covs, covs not positive definite (``index`` is
+    the first such splat), opacities outside ``[0, 1]``; ``BAD_NONE`` when
+    all pass.
+    """
+    n = means.shape[0]
+    bad = np.zeros(8, dtype=np.int64)
+    first_spd = -1
+    for j in range(n):
+        if not (np.isfinite(means[j, 0]) and np.isfinite(means[j, 1])):
+            bad[BAD_MEANS] = 1
+        c00 = covs[j, 0, 0]
+        c01 = covs[j, 0, 1]
+        c10 = covs[j, 1, 0]
+        c11 = covs[j, 1, 1]
+        if not (np.isfinite(c00) and np.isfinite(c01) and np.isfinite(c10) and np.isfinite(c11)):
+            bad[BAD_COVS] = 1
+        for k in range(features.shape[1]):
+            if not np.isfinite(features[j, k]):
+                bad[BAD_FEATURES] = 1
+        o = opacities[j]
+        if not np.isfinite(o):
+            bad[BAD_OPACITIES] = 1
+        elif o < 0 or o > 1:
+            bad[BAD_RANGE] = 1
+        if abs(c01 - c10) > tol * max(abs(c00), abs(c11)):
+            bad[BAD_ASYMMETRIC] = 1
+        sxy = half * (c01 + c10)
+        if first_spd < 0 and not (c00 > 0 and c00 * c11 - sxy * sxy > 0):
+            first_spd = j
+    if first_spd >= 0:
+        bad[BAD_NOT_SPD] = 1
+    for kind in range(1, 8):
+        if bad[kind]:
+            return kind, first_spd if kind == BAD_NOT_SPD else 0
+    return BAD_NONE, 0
+
+
 @numba.njit(inline="always", **KERNEL)
 def _table_length(kh):
     """Entries of a table of half-length ``kh``: whole chunks plus one spare chunk."""
@@ -207,32 +257,56 @@ def _fill_tables(params, ranges, peaks, tables):
             k = vadd(k, eight)
 
 
-@numba.njit(**KERNEL)
-def _count_pairs(ranges, ntx, counts):
-    """counts (ntiles + 1,) int64 out: counts[t + 1] = splats touching tile t, summed."""
-    counts[:] = 0
-    for j in range(ranges.shape[0]):
-        for ty in range(ranges[j, _TY0], ranges[j, _TY1] + 1):
-            for tx in range(ranges[j, _TX0], ranges[j, _TX1] + 1):
-                counts[ty * ntx + tx + 1] += 1
-    for t in range(1, counts.shape[0]):
-        counts[t] += counts[t - 1]
+BIN_CHUNKS = 16
+"""Runs of splats binned in parallel; any number gives the same lists."""
 
 
-@numba.njit(**KERNEL)
-def _bin(ranges, ntx, offsets, fill, order):
+@numba.njit(**PARALLEL)
+def _count_pairs(ranges, ntx, counts, offsets):
+    """Count (tile, splat) pairs per run of splats and per tile.
+
+    counts : (BIN_CHUNKS, ntiles) int64 out: counts[c, t] = splats of run
+        ``c`` (splats ``c n / BIN_CHUNKS`` up to the next run's first)
+        touching tile t.
+    offsets : (ntiles + 1,) int64 out: offsets[t + 1] = pairs of tiles 0..t.
+    """
+    n = ranges.shape[0]
+    for c in numba.prange(BIN_CHUNKS):
+        counts[c, :] = 0
+        for j in range(c * n // BIN_CHUNKS, (c + 1) * n // BIN_CHUNKS):
+            for ty in range(ranges[j, _TY0], ranges[j, _TY1] + 1):
+                for tx in range(ranges[j, _TX0], ranges[j, _TX1] + 1):
+                    counts[c, ty * ntx + tx] += 1
+    offsets[0] = 0
+    for t in range(counts.shape[1]):
+        offsets[t + 1] = offsets[t]
+        for c in range(BIN_CHUNKS):
+            offsets[t + 1] += counts[c, t]
+
+
+@numba.njit(**PARALLEL)
+def _bin(ranges, ntx, offsets, counts, order):
     """Counting sort: order[offsets[t]:offsets[t+1]] = splats of tile t, in input order.
 
-    fill : (ntiles,) int64 scratch.
+    counts : (BIN_CHUNKS, ntiles) int64, from :func:`_count_pairs`; used
+        up as each run's write positions. Each run of splats writes its own
+        part of every tile's list, so the lists are the same for any thread
+        count.
     """
-    for t in range(fill.shape[0]):
-        fill[t] = offsets[t]
-    for j in range(ranges.shape[0]):
-        for ty in range(ranges[j, _TY0], ranges[j, _TY1] + 1):
-            for tx in range(ranges[j, _TX0], ranges[j, _TX1] + 1):
-                t = ty * ntx + tx
-                order[fill[t]] = j
-                fill[t] += 1
+    n = ranges.shape[0]
+    for t in range(counts.shape[1]):  # each run starts after the runs before it
+        at = offsets[t]
+        for c in range(BIN_CHUNKS):
+            k = counts[c, t]
+            counts[c, t] = at
+            at += k
+    for c in numba.prange(BIN_CHUNKS):
+        for j in range(c * n // BIN_CHUNKS, (c + 1) * n // BIN_CHUNKS):
+            for ty in range(ranges[j, _TY0], ranges[j, _TY1] + 1):
+                for tx in range(ranges[j, _TX0], ranges[j, _TX1] + 1):
+                    t = ty * ntx + tx
+                    order[counts[c, t]] = j
+                    counts[c, t] += 1
 
 
 @numba.njit(inline="always", **KERNEL)
