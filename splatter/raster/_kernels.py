@@ -128,55 +128,6 @@ _R0, _R1, _TY0, _TY1, _TX0, _TX1, _KH, _TOFF = range(8)
 N_RANGES = 8
 
 
-# What _check_values found first, in the order the public functions report it.
-BAD_NONE, BAD_MEANS, BAD_COVS, BAD_FEATURES, BAD_OPACITIES, BAD_ASYMMETRIC, BAD_NOT_SPD, BAD_RANGE = range(8)
-
-
-@numba.njit(**KERNEL)
-def _check_values(means, covs, features, opacities, half, tol):
-    """One pass over every splat for what the public functions reject.
-
-    The arithmetic is in the inputs' dtype (``half`` = 0.5 and ``tol`` =
-    1e-6 of the covariances' dtype), as the checks it replaces did with
-    numpy, so the same input is accepted. Returns ``(kind, index)``: the
-    first failing check in the order non-finite means, covs, features,
-    opacities, asymmetric covs, covs not positive definite (``index`` is
-    the first such splat), opacities outside ``[0, 1]``; ``BAD_NONE`` when
-    all pass.
-    """
-    n = means.shape[0]
-    bad = np.zeros(8, dtype=np.int64)
-    first_spd = -1
-    for j in range(n):
-        if not (np.isfinite(means[j, 0]) and np.isfinite(means[j, 1])):
-            bad[BAD_MEANS] = 1
-        c00 = covs[j, 0, 0]
-        c01 = covs[j, 0, 1]
-        c10 = covs[j, 1, 0]
-        c11 = covs[j, 1, 1]
-        if not (np.isfinite(c00) and np.isfinite(c01) and np.isfinite(c10) and np.isfinite(c11)):
-            bad[BAD_COVS] = 1
-        for k in range(features.shape[1]):
-            if not np.isfinite(features[j, k]):
-                bad[BAD_FEATURES] = 1
-        o = opacities[j]
-        if not np.isfinite(o):
-            bad[BAD_OPACITIES] = 1
-        elif o < 0 or o > 1:
-            bad[BAD_RANGE] = 1
-        if abs(c01 - c10) > tol * max(abs(c00), abs(c11)):
-            bad[BAD_ASYMMETRIC] = 1
-        sxy = half * (c01 + c10)
-        if first_spd < 0 and not (c00 > 0 and c00 * c11 - sxy * sxy > 0):
-            first_spd = j
-    if first_spd >= 0:
-        bad[BAD_NOT_SPD] = 1
-    for kind in range(1, 8):
-        if bad[kind]:
-            return kind, first_spd if kind == BAD_NOT_SPD else 0
-    return BAD_NONE, 0
-
-
 @numba.njit(inline="always", **KERNEL)
 def _table_length(kh):
     """Entries of a table of half-length ``kh``: whole chunks plus one spare chunk."""

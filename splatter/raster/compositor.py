@@ -186,26 +186,25 @@ def composite_features(means, covs, features, opacities, *, shape, blend="over")
         raise ValueError(f"features: expected shape ({n}, K) with K >= 1, got {features.shape}")
     if opacities.shape != (n,):
         raise ValueError(f"opacities: expected shape ({n},), got {opacities.shape}")
-    means, covs = _as_kernel_floats(means), _as_kernel_floats(covs)
-    features, opacities = _as_kernel_floats(features), _as_kernel_floats(opacities)
-    kind, bad = _k._check_values(means, covs, features, opacities, covs.dtype.type(0.5), covs.dtype.type(1e-6))
-    if kind != _k.BAD_NONE:
-        raise ValueError(_bad_value_message(kind, bad, covs))
+    for name, arr in (("means", means), ("covs", covs), ("features", features),
+                      ("opacities", opacities)):
+        if not np.all(np.isfinite(arr)):
+            raise ValueError(f"{name}: expected finite values, got NaN or infinity")
+    sxx = covs[:, 0, 0]
+    syy = covs[:, 1, 1]
+    sxy = 0.5 * (covs[:, 0, 1] + covs[:, 1, 0])
+    det = sxx * syy - sxy * sxy
+    asym = np.abs(covs[:, 0, 1] - covs[:, 1, 0])
+    if np.any(asym > 1e-6 * np.maximum(np.abs(sxx), np.abs(syy))):
+        raise ValueError("covs: expected symmetric matrices, got covs[:, 0, 1] != covs[:, 1, 0]")
+    if not (np.all(sxx > 0) and np.all(det > 0)):
+        bad = int(np.flatnonzero(~((sxx > 0) & (det > 0)))[0])
+        raise ValueError(f"covs: expected positive-definite matrices, got covs[{bad}] = "
+                         f"{covs[bad].tolist()}")
+    if np.any(opacities < 0) or np.any(opacities > 1):
+        raise ValueError("opacities: expected values in [0, 1], got values outside")
 
     return _render(means, covs, features, opacities, height, width, blend)
-
-
-def _bad_value_message(kind, bad, covs):
-    """The message for what :func:`splatter.raster._kernels._check_values` found."""
-    names = {_k.BAD_MEANS: "means", _k.BAD_COVS: "covs", _k.BAD_FEATURES: "features",
-             _k.BAD_OPACITIES: "opacities"}
-    if kind in names:
-        return f"{names[kind]}: expected finite values, got NaN or infinity"
-    if kind == _k.BAD_ASYMMETRIC:
-        return "covs: expected symmetric matrices, got covs[:, 0, 1] != covs[:, 1, 0]"
-    if kind == _k.BAD_NOT_SPD:
-        return f"covs: expected positive-definite matrices, got covs[{bad}] = {covs[bad].tolist()}"
-    return "opacities: expected values in [0, 1], got values outside"
 
 
 def _render(means, covs, features, opacities, height, width, blend, times=None):
