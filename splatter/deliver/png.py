@@ -160,7 +160,7 @@ class PngStream:
     >>> s.add_rows(np.zeros((1, 3, 4), np.uint8))
     >>> s.add_rows(np.full((1, 3, 4), 255, np.uint8))
     >>> path = s.write(os.path.join(tempfile.mkdtemp(), "two_rows.png"))
-    >>> read_png(path)[:, 0, 0].tolist()
+    >>> read_png(path)[0][:, 0, 0].tolist()
     [0, 255]
     """
 
