@@ -18,11 +18,13 @@ bytes):
 * **frames**: a frame's feature image, float32 with ``K + 1`` channels, in
   flight :data:`FRAMES_IN_FLIGHT` times (compositing, the crossfade tail,
   the writer's queue);
-* **sheets**: the colour sheet (8/16-bit codes for PNG, float32 RGBA for
-  EXR) and, with maps, every frame's map layers and alpha, kept until the
+* **sheets**: the colour sheet (PNG: its compressed bytes, at most about
+  its 8/16-bit codes, as cell rows are encoded; EXR: RGBA at the file's
+  pixel type) and, with maps, every frame's map layers and alpha, kept until the
   end because map encodings use clip-wide ranges;
-* **previews**: GIF/MP4 frames at most 512 px and contact thumbnails at most
-  256 px on a side, 3 bytes a pixel, every frame;
+* **previews**: GIF frames at most 512 px on a side as palette images (one
+  byte a pixel, twice while Pillow writes them), MP4 frames at 3 bytes a
+  pixel, and the contact sheet of thumbnails at most 256 px, every frame;
 * **framing**: ``camera.fit`` keeps the sampled puffs of every frame (centre, covariance, opacity).
 
 The time is a rough figure from this machine's measured rates
@@ -259,7 +261,7 @@ def estimate_cost(look: LookSpec, plan: SimPlan, pixel_size: float, n_frames: in
     sheets = 0.0
     if out.sheet is not None:
         layout = check_outputs(look, n_frames)
-        per = 4 * (out.png_bits // 8) if out.sheet.format == "png" else 16
+        per = 4 * (out.png_bits // 8) if out.sheet.format == "png" else (8 if out.exr_type == "half" else 16)
         sheets = float(layout.width * layout.height) * per
         map_ch = sum(_MAP_CHANNELS[m] for m in out.maps)
         if map_ch:
@@ -272,10 +274,13 @@ def estimate_cost(look: LookSpec, plan: SimPlan, pixel_size: float, n_frames: in
 
     prev = 0.0
     scale = lambda m: min(1.0, m / max(w, h)) ** 2  # noqa: E731 (shrunk by a whole factor, about this)
-    if set(out.preview) - {"contact"}:
-        prev += float(px) * scale(512) * 3 * n_frames * (2 if "mp4" in out.preview else 1)
+    anim = float(px) * scale(512) * n_frames
+    if "gif" in out.preview:
+        prev += anim * 2  # palette images, and Pillow's own copies while it writes the file
+    if "mp4" in out.preview:
+        prev += anim * 3
     if "contact" in out.preview:
-        prev += float(px) * scale(256) * 3 * n_frames * 2
+        prev += float(px) * scale(256) * 3 * n_frames
     parts["previews"] = prev
     hints["previews"] = f"preview frames of all {n_frames} frames; drop output.preview or render fewer frames"
 

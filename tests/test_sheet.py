@@ -273,3 +273,28 @@ def test_dilation_stays_in_each_cell_so_mip_levels_up_to_the_gutter_do_not_bleed
         mip = rgb.reshape(24 // f, f, 48 // f, f, 3).mean(axis=(1, 3))
         half = mip.shape[1] // 2
         assert (mip[:, :half, 2] == 0).all() and (mip[:, half:, 0] == 0).all()
+
+
+@pytest.mark.parametrize("rows", [3, 5])
+def test_streamed_png_sheet_decodes_with_pillow_to_its_cells(tmp_path, rows):
+    # The PNG sheet is encoded cell row by cell row as frames come; an
+    # independent decoder (Pillow's, not ours) must read back every cell's
+    # codes where the layout puts them (W3C PNG spec: filtered scanlines in one
+    # zlib stream) and transparent zeros elsewhere, including whole empty cell
+    # rows below the last frame (rows = 5 leaves two) and cell rows taller
+    # than the 128-row bands the encoder compresses at a time.
+    from PIL import Image
+
+    from splatter.deliver.sheet import encode_cell
+
+    frames = _puff_frames(5, 140, 60, seed=9)
+    lay = sheet_layout(5, 60, 140, columns=2, rows=rows, padding=3)
+    paths = write_sheet(tmp_path, "vent_steam", frames, lay, fps=24)
+    with Image.open(paths[0]) as im:
+        assert im.mode == "RGBA"
+        got = np.asarray(im)
+    want = np.zeros((lay.height, lay.width, 4), np.uint8)
+    for k, (c, f) in enumerate(zip(lay.cells, frames)):
+        want[c.y - 3 : c.y + c.h + 3, c.x - 3 : c.x + c.w + 3] = encode_cell(lay, k, f)
+    assert want[..., 3].any() and got.shape == want.shape
+    np.testing.assert_array_equal(got, want)

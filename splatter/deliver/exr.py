@@ -36,11 +36,13 @@ def rgba_channels(rgba):
     Returns
     -------
     dict of str to (H, W) float32 ndarray
+        float16 input stays float16 (a sheet held at the file's HALF type).
     """
     a = np.asarray(rgba)
     if a.ndim != 3 or a.shape[2] != 4:
         raise ValueError(f"rgba: expected an (H, W, 4) array, got shape {a.shape}")
-    a = a.astype(np.float32, copy=False)
+    if a.dtype != np.float16:
+        a = a.astype(np.float32, copy=False)
     return {c: np.ascontiguousarray(a[..., i]) for i, c in enumerate("RGBA")}
 
 

@@ -36,6 +36,7 @@ from splatter.deliver.fileio import atomic_path
 __all__ = [
     "write_png",
     "write_png_encoded",
+    "PngStream",
     "write_png_map",
     "read_png",
     "read_png_linear",
@@ -127,36 +128,100 @@ def write_png_encoded(path, array, *, srgb=True, text=None, compress_level=6):
         raise ValueError(f"array: expected (H, W) or (H, W, C) with C in 1..4, got shape {np.shape(array)}")
     if a.dtype not in (np.uint8, np.uint16):
         raise TypeError(f"array: expected uint8 or uint16, got {a.dtype}")
-    h, w, c = a.shape
-    if h == 0 or w == 0 or h >= 2**31 or w >= 2**31:
-        raise ValueError(f"array: bad image size {w} x {h}")
-    depth = 8 if a.dtype == np.uint8 else 16
-    raw = np.ascontiguousarray(a.astype(">u2") if depth == 16 else a).view(np.uint8).reshape(h, -1)
-    bpp = c * depth // 8
-    parts = [_SIGNATURE, _chunk(b"IHDR", struct.pack(">IIBBBBB", w, h, depth, _COLOR_TYPES[c], 0, 0, 0))]
-    if srgb:
-        parts.append(_chunk(b"sRGB", bytes([0])))  # rendering intent 0: perceptual
-        parts.append(_chunk(b"gAMA", struct.pack(">I", SRGB_GAMA)))
-        parts.append(_chunk(b"cHRM", struct.pack(">8I", *SRGB_CHRM)))
-    for key, value in (text or {}).items():
-        kb = key.encode("latin-1")
-        if not 1 <= len(kb) <= 79 or b"\x00" in kb:
-            raise ValueError(f"text: bad keyword {key!r}")
-        parts.append(_chunk(b"tEXt", kb + b"\x00" + str(value).encode("latin-1")))
-    comp = zlib.compressobj(compress_level)
-    idat = []
-    prev = np.zeros(raw.shape[1], dtype=np.uint8)
-    for r0 in range(0, h, _BAND_ROWS):
-        band = raw[r0 : r0 + _BAND_ROWS]
-        idat.append(comp.compress(_paeth_filter(band, prev, bpp).tobytes()))
-        prev = band[-1]
-    idat.append(comp.flush())
-    parts.append(_chunk(b"IDAT", b"".join(idat)))
-    parts.append(_chunk(b"IEND", b""))
-    with atomic_path(path, suffix=".png") as tmp:
-        with open(tmp, "wb") as f:
-            f.writelines(parts)
-    return os.fspath(path)
+    stream = PngStream(a.shape[1], a.shape[0], a.shape[2], a.dtype, srgb=srgb, text=text,
+                       compress_level=compress_level)
+    stream.add_rows(a)
+    return stream.write(path)
+
+
+class PngStream:
+    """A PNG encoded band by band: rows are filtered and compressed as they come.
+
+    Only the compressed bytes and the last row are kept, so an image made
+    piece by piece (a sprite sheet, cell row by cell row) never needs to
+    exist whole. The file is the same, byte for byte, as
+    :func:`write_png_encoded` of the whole array.
+
+    Parameters
+    ----------
+    width, height : int
+        Image size, 1 to 2**31 - 1.
+    channels : int
+        1 (grey), 2 (grey + alpha), 3 (RGB) or 4 (RGBA).
+    dtype : numpy dtype
+        uint8 or uint16 (a 16-bit PNG).
+    srgb, text, compress_level
+        As for :func:`write_png_encoded`.
+
+    Examples
+    --------
+    >>> import os, tempfile
+    >>> s = PngStream(3, 2, 4, np.uint8)
+    >>> s.add_rows(np.zeros((1, 3, 4), np.uint8))
+    >>> s.add_rows(np.full((1, 3, 4), 255, np.uint8))
+    >>> path = s.write(os.path.join(tempfile.mkdtemp(), "two_rows.png"))
+    >>> read_png(path)[0][:, 0, 0].tolist()
+    [0, 255]
+    """
+
+    def __init__(self, width, height, channels, dtype, *, srgb=True, text=None, compress_level=6):
+        width, height, dtype = int(width), int(height), np.dtype(dtype)
+        if channels not in _COLOR_TYPES:
+            raise ValueError(f"channels: expected 1 to 4, got {channels!r}")
+        if dtype not in (np.uint8, np.uint16):
+            raise TypeError(f"array: expected uint8 or uint16, got {dtype}")
+        if height <= 0 or width <= 0 or height >= 2**31 or width >= 2**31:
+            raise ValueError(f"array: bad image size {width} x {height}")
+        self.width, self.height, self.channels, self.dtype = width, height, channels, dtype
+        depth = 8 if dtype == np.uint8 else 16
+        self._bpp = channels * depth // 8
+        parts = [_SIGNATURE, _chunk(b"IHDR", struct.pack(">IIBBBBB", width, height, depth,
+                                                          _COLOR_TYPES[channels], 0, 0, 0))]
+        if srgb:
+            parts.append(_chunk(b"sRGB", bytes([0])))  # rendering intent 0: perceptual
+            parts.append(_chunk(b"gAMA", struct.pack(">I", SRGB_GAMA)))
+            parts.append(_chunk(b"cHRM", struct.pack(">8I", *SRGB_CHRM)))
+        for key, value in (text or {}).items():
+            kb = key.encode("latin-1")
+            if not 1 <= len(kb) <= 79 or b"\x00" in kb:
+                raise ValueError(f"text: bad keyword {key!r}")
+            parts.append(_chunk(b"tEXt", kb + b"\x00" + str(value).encode("latin-1")))
+        self._head = parts
+        self._comp = zlib.compressobj(compress_level)
+        self._idat = []
+        self._prev = np.zeros(width * self._bpp, dtype=np.uint8)
+        self.rows = 0
+        """Rows added so far."""
+
+    def add_rows(self, rows):
+        """Filter and compress the next rows: ``(n, width, channels)`` of the stream's dtype."""
+        rows = np.asarray(rows)
+        if rows.ndim == 2 and self.channels == 1:
+            rows = rows[..., None]
+        if rows.ndim != 3 or rows.shape[1:] != (self.width, self.channels) or rows.dtype != self.dtype:
+            raise ValueError(f"rows: expected (n, {self.width}, {self.channels}) {self.dtype}, "
+                             f"got {rows.shape} {rows.dtype}")
+        if self.rows + rows.shape[0] > self.height:
+            raise ValueError(f"rows: {self.rows + rows.shape[0]} rows, the image has {self.height}")
+        for r0 in range(0, rows.shape[0], _BAND_ROWS):
+            band = rows[r0 : r0 + _BAND_ROWS]
+            raw = np.ascontiguousarray(band.astype(">u2") if self.dtype == np.uint16 else band)
+            raw = raw.view(np.uint8).reshape(band.shape[0], -1)
+            self._idat.append(self._comp.compress(_paeth_filter(raw, self._prev, self._bpp).tobytes()))
+            self._prev = raw[-1].copy()
+        self.rows += rows.shape[0]
+
+    def write(self, path):
+        """Write the file atomically once every row is in; return ``path``."""
+        if self.rows != self.height:
+            raise ValueError(f"rows: {self.rows} of the image's {self.height} rows were added")
+        self._idat.append(self._comp.flush())
+        parts = [*self._head, _chunk(b"IDAT", b"".join(self._idat)), _chunk(b"IEND", b"")]
+        self._idat = []
+        with atomic_path(path, suffix=".png") as tmp:
+            with open(tmp, "wb") as f:
+                f.writelines(parts)
+        return os.fspath(path)
 
 
 def write_png(path, rgba_premult_linear, *, bits=8, alpha="straight", exposure=0.0, dilate=False):

@@ -20,7 +20,7 @@ from splatter.deliver.fileio import atomic_path
 from splatter.deliver.png import write_png_encoded
 from splatter.deliver.sheet import sheet_layout
 
-__all__ = ["gif_delays", "write_gif_codes", "write_mp4_codes", "write_contact_codes", "checker", "over_checker", "write_gif", "write_mp4", "write_contact_sheet"]
+__all__ = ["gif_delays", "gif_frame", "write_gif_codes", "ContactSheet", "write_mp4_codes", "write_contact_codes", "checker", "over_checker", "write_gif", "write_mp4", "write_contact_sheet"]
 
 # Two neutral greys, given as sRGB code values (102 and 153 of 255) so the
 # checker looks even on screen; composited in linear light.
@@ -147,16 +147,54 @@ def gif_delays(n_frames, fps):
     return [10 * min(65535, max(2, b - a)) for a, b in zip(starts, ends)]
 
 
-def write_gif_codes(path, codes, fps):
-    """:func:`write_gif` from frames already over the checker: a list of (H, W, 3) uint8 sRGB codes."""
-    import imageio.v3 as iio
+def gif_frame(codes):
+    """One GIF frame: ``(H, W, 3) uint8`` sRGB codes to a Pillow palette image.
 
-    codes = np.stack(codes)
-    delays = gif_delays(len(codes), fps)
+    The adaptive palette (up to 256 colours) Pillow's GIF writer would pick
+    for the frame itself, so a clip's frames can be kept at one byte a pixel
+    as they come and written later by :func:`write_gif_codes` to the same
+    bytes.
+
+    Returns
+    -------
+    PIL.Image.Image
+        Mode ``"P"``.
+    """
+    return Image.fromarray(np.asarray(codes, dtype=np.uint8)).convert("P", palette=Image.Palette.ADAPTIVE)
+
+
+def write_gif_codes(path, codes, fps, *, n_frames=None):
+    """:func:`write_gif` from frames already over the checker.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+    codes : sequence or iterator
+        ``(H, W, 3) uint8`` sRGB codes or palette images from
+        :func:`gif_frame`, one per frame. An iterator is consumed one frame at
+        a time (the writer then holds each frame once, as a palette image);
+        give ``n_frames`` with it.
+    fps : float
+    n_frames : int, optional
+        The number of frames; default ``len(codes)``.
+
+    Returns
+    -------
+    str
+        ``path``.
+    """
+    n = len(codes) if n_frames is None else int(n_frames)
+    if n < 1:
+        raise ValueError("frames: expected at least one frame")
+    delays = gif_delays(n, fps)
+    frames = (f if isinstance(f, Image.Image) else gif_frame(f) for f in codes)
+    first = next(frames)
+    # Pillow takes a list of delays for an animation, a number for a single frame.
+    options = dict(format="GIF", duration=delays if n > 1 else delays[0], loop=0)
+    if n > 1:
+        options.update(save_all=True, append_images=frames)
     with atomic_path(path, suffix=".gif") as tmp:
-        # Pillow takes a list of delays for an animation, a number for a single frame.
-        iio.imwrite(tmp, codes, plugin="pillow", extension=".gif", duration=delays if len(delays) > 1 else delays[0],
-                    loop=0)
+        first.save(tmp, **options)
     return os.fspath(path)
 
 
@@ -250,18 +288,75 @@ def write_contact_codes(path, codes, *, columns=None, label=True, numbers=None, 
     if len(numbers) != len(codes):
         raise ValueError(f"numbers: expected {len(codes)} frame numbers, got {len(numbers)}")
     h, w = codes[0].shape[:2]
-    lay = sheet_layout(len(codes), w, h, columns=columns, padding=gap)
-    img = np.full((lay.height, lay.width, 3), 128, dtype=np.uint8)
-    for cell, c in zip(lay.cells, codes):
-        img[cell.y : cell.y + h, cell.x : cell.x + w] = c
-    if label:
-        pil = Image.fromarray(img)
-        draw = ImageDraw.Draw(pil)
+    sheet = ContactSheet(numbers, h, w, columns=columns, label=label, gap=gap)
+    for k, c in enumerate(codes):
+        sheet.put(k, c)
+    return sheet.write(path)
+
+
+class ContactSheet:
+    """A contact sheet filled frame by frame: memory is the finished 8-bit image.
+
+    Parameters
+    ----------
+    numbers : sequence of int
+        The frame number drawn on each cell, one per frame.
+    height, width : int
+        Size of every frame's codes.
+    columns, label, gap
+        As for :func:`write_contact_sheet`.
+
+    Examples
+    --------
+    >>> import os, tempfile
+    >>> sheet = ContactSheet([7, 8], 16, 16)
+    >>> for k in range(2):
+    ...     sheet.put(k, np.zeros((16, 16, 3), np.uint8))
+    >>> os.path.basename(sheet.write(os.path.join(tempfile.mkdtemp(), "contact.png")))
+    'contact.png'
+    """
+
+    def __init__(self, numbers, height, width, *, columns=None, label=True, gap=2):
+        self.numbers = [int(k) for k in numbers]
+        self.label = label
+        self.layout = sheet_layout(len(self.numbers), width, height, columns=columns, padding=gap)
+        self.image = np.full((self.layout.height, self.layout.width, 3), 128, dtype=np.uint8)
+        self._placed = 0
+
+    def put(self, k, codes):
+        """Place frame ``k``'s ``(height, width, 3) uint8`` codes in its cell."""
+        cell = self.layout.cells[k]
+        self.image[cell.y : cell.y + cell.h, cell.x : cell.x + cell.w] = codes
+        self._placed += 1
+
+    def write(self, path):
+        """Label the cells (once every frame is in) and write the PNG atomically; return ``path``."""
+        if self._placed != len(self.numbers):
+            raise RuntimeError(f"the contact sheet has {len(self.numbers)} cells, {self._placed} came")
+        if self.label:
+            self._draw_labels()
+        return write_png_encoded(path, self.image, srgb=True, text={"Software": "splatter"})
+
+    def _draw_labels(self):
+        """Each frame number, white on a black box at its cell's top-left, drawn in frame order.
+
+        Drawn on a small copy of the box's pixels, not on a Pillow copy of
+        the whole sheet; a box that reaches into a neighbouring cell
+        (tiny frames) covers it exactly as a drawing on the whole sheet would.
+        """
         font = ImageFont.load_default()
-        for cell, number in zip(lay.cells, numbers):
-            text = str(number)
-            x0, y0, x1, y1 = draw.textbbox((cell.x + 2, cell.y + 1), text, font=font)
-            draw.rectangle((x0 - 1, y0 - 1, x1 + 1, y1 + 1), fill=(0, 0, 0))
-            draw.text((cell.x + 2, cell.y + 1), text, fill=(255, 255, 255), font=font)
-        img = np.asarray(pil)
-    return write_png_encoded(path, img, srgb=True, text={"Software": "splatter"})
+        measure = ImageDraw.Draw(Image.new("RGB", (1, 1)))
+        height, width = self.image.shape[:2]
+        for cell, number in zip(self.layout.cells, self.numbers):
+            text, at = str(number), (cell.x + 2, cell.y + 1)
+            x0, y0, x1, y1 = measure.textbbox(at, text, font=font)
+            box = (x0 - 1, y0 - 1, x1 + 1, y1 + 1)
+            left, top = max(box[0], 0), max(box[1], 0)
+            right, bottom = min(box[2] + 1, width), min(box[3] + 1, height)
+            if right <= left or bottom <= top:
+                continue
+            part = Image.fromarray(self.image[top:bottom, left:right])
+            draw = ImageDraw.Draw(part)
+            draw.rectangle((box[0] - left, box[1] - top, box[2] - left, box[3] - top), fill=(0, 0, 0))
+            draw.text((at[0] - left, at[1] - top), text, fill=(255, 255, 255), font=font)
+            self.image[top:bottom, left:right] = np.asarray(part)

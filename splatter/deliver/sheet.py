@@ -88,7 +88,7 @@ from splatter.deliver.display import quantize, to_display
 from splatter.deliver.exr import rgba_channels, write_exr
 from splatter.deliver.fileio import atomic_write_text
 from splatter.deliver.names import sheet_file, sheet_meta_file
-from splatter.deliver.png import write_png_encoded
+from splatter.deliver.png import PngStream
 
 __all__ = [
     "Cell",
@@ -96,6 +96,8 @@ __all__ = [
     "sheet_layout",
     "assemble_sheet",
     "write_sheet",
+    "CodeSheetStream",
+    "encode_cell",
     "SCHEMA_VERSION",
 ]
 
@@ -111,9 +113,9 @@ def _resample(frame, w, h):
     return out
 
 
-def empty_sheet(layout, channels, *, background=None):
-    """A ``(layout.height, layout.width, channels)`` float32 sheet filled with ``background`` (default 0)."""
-    sheet = np.zeros((layout.height, layout.width, channels), dtype=np.float32)
+def empty_sheet(layout, channels, *, background=None, dtype=np.float32):
+    """A ``(layout.height, layout.width, channels)`` sheet of ``dtype`` filled with ``background`` (default 0)."""
+    sheet = np.zeros((layout.height, layout.width, channels), dtype=dtype)
     if background is not None:
         sheet[...] = np.asarray(background, dtype=np.float32).reshape(-1)[:channels]
     return sheet
@@ -255,39 +257,33 @@ def write_sheet(
     if maps is not None and not isinstance(maps, dict):
         raise TypeError(f"maps: expected a dict of map entries, got {type(maps).__name__}")
     if format == "png":
-        codes = empty_codes(layout, png_bits)
+        codes = CodeSheetStream(layout, png_bits, alpha=alpha)
         k = -1
         for k, frame in enumerate(frames_premult_linear):
             if k >= layout.frames:
                 raise ValueError(f"frames: more than the layout's {layout.frames} frames")
-            put_cell_codes(codes, layout, k, frame, alpha=alpha, png_bits=png_bits, exposure=exposure)
+            codes.put(k, encode_cell(layout, k, frame, alpha=alpha, png_bits=png_bits, exposure=exposure))
         if k + 1 != layout.frames:
             raise ValueError(f"frames: got {k + 1} frames, the layout has {layout.frames}")
-        return write_sheet_codes(dir, name, codes, layout, alpha=alpha, fps=fps, loop=loop, maps=maps)
+        return codes.write(dir, name, fps=fps, loop=loop, maps=maps)
     return write_sheet_image(dir, name, assemble_sheet(frames_premult_linear, layout), layout, format=format,
                              alpha=alpha, png_bits=png_bits, exr_type=exr_type, fps=fps, loop=loop, maps=maps,
                              exposure=exposure)
 
 
-def empty_codes(layout, png_bits):
-    """A transparent ``(layout.height, layout.width, 4)`` sheet of uint8 or uint16 PNG codes."""
-    return np.zeros((layout.height, layout.width, 4), dtype=np.uint8 if png_bits == 8 else np.uint16)
+def encode_cell(layout, k, frame, *, alpha="straight", png_bits=8, exposure=0.0):
+    """The PNG codes of frame ``k``'s tile: its cell, gutter included, encoded on its own.
 
-
-def put_cell_codes(codes, layout, k, frame, *, alpha="straight", png_bits=8, exposure=0.0):
-    """Encode frame ``k`` into its cell of a PNG code sheet, gutter included.
-
-    The cell's whole tile (its content and the gutter around it) is encoded
-    on its own: display encoding (exposure, sRGB, ``alpha``), then, for
-    straight alpha, dilation within the tile, so a transparent texel takes the
-    colour of the nearest covered texel of the same frame, never of a
-    neighbouring cell, and mip levels up to the gutter's size stay clean
-    (common practice). Memory is one tile, not one float sheet.
+    Display encoding (exposure, sRGB, ``alpha``), then, for straight alpha,
+    dilation within the tile, so a transparent texel takes the colour of the
+    nearest covered texel of the same frame, never of a neighbouring cell,
+    and mip levels up to the gutter's size stay clean (common practice).
+    Memory is one tile, not one float sheet. The tile does not depend on
+    where the cell lies, so a render can keep it and place it later
+    (``render --resume``).
 
     Parameters
     ----------
-    codes : (layout.height, layout.width, 4) uint8 or uint16 ndarray
-        Written in place (from :func:`empty_codes`).
     layout : SheetLayout
     k : int
     frame : (layout.frame_height, layout.frame_width, 4) float ndarray
@@ -295,15 +291,6 @@ def put_cell_codes(codes, layout, k, frame, *, alpha="straight", png_bits=8, exp
     alpha : {"straight", "premultiplied"}
     png_bits : {8, 16}
     exposure : float
-    """
-    put_tile(codes, layout, k, encode_cell(layout, k, frame, alpha=alpha, png_bits=png_bits, exposure=exposure))
-
-
-def encode_cell(layout, k, frame, *, alpha="straight", png_bits=8, exposure=0.0):
-    """The PNG codes of frame ``k``'s tile (its cell, gutter included), as :func:`put_cell_codes` places them.
-
-    The tile does not depend on where the cell lies, so a render can keep it
-    and place it later (``render --resume``).
 
     Returns
     -------
@@ -319,10 +306,84 @@ def encode_cell(layout, k, frame, *, alpha="straight", png_bits=8, exposure=0.0)
     return _encode_tile(tile, alpha, png_bits, exposure)
 
 
-def put_tile(codes, layout, k, tile):
-    """Place a tile from :func:`encode_cell` into cell ``k`` of a code sheet."""
-    cell, pad = layout.cells[k], layout.padding
-    codes[cell.y - pad : cell.y + cell.h + pad, cell.x - pad : cell.x + cell.w + pad] = tile
+class CodeSheetStream:
+    """A PNG sheet encoded as its cells arrive, cell row by cell row.
+
+    Cells come in frame order (the layout fills the sheet row by row), so
+    once a cell row is complete its scanlines are final: they are filtered
+    and compressed (:class:`splatter.deliver.png.PngStream`) and dropped.
+    Memory is one cell row of 8- or 16-bit codes and the compressed bytes,
+    not the whole sheet; the file is the same, byte for byte, as the whole
+    sheet of codes written at once.
+
+    Parameters
+    ----------
+    layout : SheetLayout
+    png_bits : {8, 16}
+    alpha : {"straight", "premultiplied"}
+        Recorded in the file and the metadata (the tiles are encoded by
+        :func:`encode_cell` with the same ``alpha``).
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> lay = sheet_layout(2, 4, 4, columns=2, padding=1)
+    >>> s = CodeSheetStream(lay, 8)
+    >>> for k in range(2):
+    ...     s.put(k, encode_cell(lay, k, np.full((4, 4, 4), 0.5, np.float32)))
+    >>> [os.path.basename(p) for p in s.write(tempfile.mkdtemp(), "pair")]
+    ['pair.sheet.png', 'pair.sheet.json']
+    """
+
+    def __init__(self, layout, png_bits, *, alpha="straight"):
+        check_choice(png_bits, "png_bits", PNG_BITS)
+        check_choice(alpha, "alpha", PNG_ALPHAS)
+        self.layout, self.alpha = layout, alpha
+        text = {"Software": "splatter"}
+        if alpha == "premultiplied":
+            text["splatter.alpha"] = "premultiplied"
+        dtype = np.uint8 if png_bits == 8 else np.uint16
+        self._png = PngStream(layout.width, layout.height, 4, dtype, srgb=True, text=text)
+        pad = layout.padding
+        tops = [c.y - pad for c in layout.cells] + [layout.height]
+        # Rows above every later cell's tile are final once cell k is in.
+        self._final = [min(tops[k + 1 :]) for k in range(len(layout.cells))]
+        # One cell row: every cell of a row has the same top and height.
+        self._band = np.zeros((layout.cell_height, layout.width, 4), dtype=dtype)
+        self._base = 0  # sheet row of the band's first row
+        self._next = 0  # the cell expected next
+
+    def put(self, k, tile):
+        """Place cell ``k``'s tile (from :func:`encode_cell`); cells must come in order 0, 1, 2, ..."""
+        if k != self._next:
+            raise RuntimeError(f"sheet cells must come in order: expected cell {self._next}, got {k}")
+        cell, pad = self.layout.cells[k], self.layout.padding
+        if cell.y - pad != self._base or tile.shape[0] != self._band.shape[0]:
+            raise RuntimeError(f"cell {k} is not in the cell row being assembled")
+        self._band[:, cell.x - pad : cell.x + cell.w + pad] = tile
+        self._next += 1
+        self._flush(self._final[k])
+
+    def _flush(self, upto):
+        """Encode the sheet's rows up to ``upto`` (exclusive): the band, then empty cell rows."""
+        n = upto - self._base
+        if n <= 0:
+            return
+        band = self._band
+        for r in range(0, n, band.shape[0]):  # rows past the band are empty cell rows below the last frame
+            self._png.add_rows(band[: min(n - r, band.shape[0])])
+            band[:] = 0
+        self._base = upto
+
+    def write(self, dir, name, *, fps=30, loop="none", maps=None):
+        """Write ``{name}.sheet.png`` and ``{name}.sheet.json`` once every cell is in; return both paths."""
+        if self._next != len(self.layout.cells):
+            raise RuntimeError(f"the sheet has {len(self.layout.cells)} cells, {self._next} came")
+        dir = os.fspath(dir)
+        image = sheet_file(name, "png")
+        self._png.write(os.path.join(dir, image))
+        return [os.path.join(dir, image),
+                _write_sheet_meta(dir, name, image, "png", self.layout, fps, loop, self.alpha, "srgb", maps)]
 
 
 def _encode_tile(tile, alpha, png_bits, exposure):
@@ -331,18 +392,6 @@ def _encode_tile(tile, alpha, png_bits, exposure):
     if alpha == "straight":
         disp = dilate_colour(disp)
     return quantize(disp, png_bits)
-
-
-def write_sheet_codes(dir, name, codes, layout, *, alpha="straight", fps=30, loop="none", maps=None):
-    """Write a PNG sheet of codes already encoded (:func:`put_cell_codes`) and its JSON; return both paths."""
-    dir = os.fspath(dir)
-    image = sheet_file(name, "png")
-    path = os.path.join(dir, image)
-    text = {"Software": "splatter"}
-    if alpha == "premultiplied":
-        text["splatter.alpha"] = "premultiplied"
-    write_png_encoded(path, codes, srgb=True, text=text)
-    return [path, _write_sheet_meta(dir, name, image, "png", layout, fps, loop, alpha, "srgb", maps)]
 
 
 def write_sheet_image(dir, name, sheet, layout, *, format="png", alpha="straight", png_bits=8, exr_type="half",
@@ -355,13 +404,12 @@ def write_sheet_image(dir, name, sheet, layout, *, format="png", alpha="straight
     if sheet.shape[2] != 4:
         raise ValueError(f"frames_premult_linear: expected 4 channels (RGBA), got {sheet.shape[2]}")
     if format == "png":
-        codes = empty_codes(layout, png_bits)
+        codes = CodeSheetStream(layout, png_bits, alpha=alpha)
         pad = layout.padding
-        for cell in layout.cells:
-            ys = slice(cell.y - pad, cell.y + cell.h + pad)
-            xs = slice(cell.x - pad, cell.x + cell.w + pad)
-            codes[ys, xs] = _encode_tile(sheet[ys, xs], alpha, png_bits, exposure)
-        return write_sheet_codes(dir, name, codes, layout, alpha=alpha, fps=fps, loop=loop, maps=maps)
+        for k, cell in enumerate(layout.cells):
+            tile = sheet[cell.y - pad : cell.y + cell.h + pad, cell.x - pad : cell.x + cell.w + pad]
+            codes.put(k, _encode_tile(tile, alpha, png_bits, exposure))
+        return codes.write(dir, name, fps=fps, loop=loop, maps=maps)
     image = sheet_file(name, format)
     path = os.path.join(dir, image)
     write_exr(path, rgba_channels(sheet), pixel_type=exr_type)

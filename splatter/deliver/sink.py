@@ -4,8 +4,10 @@
 frame files on a background thread (so encoding and writing overlap the
 compositing of the next frame); at :meth:`OutputSink.finish` it writes the
 sheets and previews, which need the whole clip.  Frames kept for sheets cost
-about one sheet of memory (every frame is a cell of it); previews keep a copy
-no larger than 512 px on a side.
+little memory: PNG sheets are encoded cell row by cell row as frames come
+(:class:`~splatter.deliver.sheet.CodeSheetStream`), EXR sheets are held at
+their file's pixel type, GIF frames as palette images (one byte a pixel) and
+the contact sheet as its finished 8-bit image.
 """
 
 from __future__ import annotations
@@ -32,19 +34,18 @@ from splatter.deliver.map_sheets import (
 from splatter.deliver.names import file_stem, frame_file, preview_file
 from splatter.deliver.png import write_png
 from splatter.deliver.preview import (
+    ContactSheet,
+    gif_frame,
     over_checker,
-    write_contact_codes,
     write_gif_codes,
     write_mp4_codes,
 )
 from splatter.deliver.sheet import (
-    empty_codes,
+    CodeSheetStream,
     empty_sheet,
     encode_cell,
     place_frame,
-    put_tile,
     sheet_layout,
-    write_sheet_codes,
     write_sheet_image,
 )
 from splatter.core.errors import LookError
@@ -151,8 +152,9 @@ class OutputSink:
         self._sheet = None
         self._sheet_alpha: List[np.ndarray] = []
         self._sheet_layers: Dict[str, List[np.ndarray]] = {}
-        self._anim: List[np.ndarray] = []
-        self._thumbs: List[np.ndarray] = []
+        self._gif: List = []  # palette images (gif_frame)
+        self._mp4: List[np.ndarray] = []
+        self._contact: Optional[ContactSheet] = None
         self._frame_numbers: List[int] = []
         self.on_frame: Optional[Callable[[int, List[str], Dict[str, np.ndarray]], None]] = None
 
@@ -202,10 +204,10 @@ class OutputSink:
                 n, spec.columns, spec.rows, spec.pow2)
             self._layout = sheet_layout(n, w, h, columns=cols, rows=rows, padding=spec.padding, pow2=spec.pow2,
                                         cell=spec.cell, numbers=self.numbers[:n])
-            if spec.format == "png":  # encoded cell by cell as frames arrive: memory one 8/16-bit sheet
-                self._sheet = empty_codes(self._layout, out.png_bits)
-            else:
-                self._sheet = empty_sheet(self._layout, 4)
+            if spec.format == "png":  # encoded cell row by cell row as frames arrive
+                self._sheet = CodeSheetStream(self._layout, out.png_bits, alpha=out.png_alpha)
+            else:  # held at the file's pixel type: float16 rounds as the EXR writer would
+                self._sheet = empty_sheet(self._layout, 4, dtype=np.float16 if out.exr_type == "half" else np.float32)
         return index
 
     def _submit(self, fn, *args) -> None:
@@ -257,14 +259,19 @@ class OutputSink:
         """On the writer thread: put one frame's share into the sheet and previews (frames arrive in order)."""
         if self._sheet is not None:
             if self.look.output.sheet.format == "png":
-                put_tile(self._sheet, self._layout, index, part["tile"])
+                self._sheet.put(index, part["tile"])
             else:
                 c = self._layout.cells[index]
                 self._sheet[c.y : c.y + c.h, c.x : c.x + c.w] = part["tile"]
         if "anim" in part:
-            self._anim.append(part["anim"])
+            if "gif" in self.look.output.preview:
+                self._gif.append(gif_frame(part["anim"]))
+            if "mp4" in self.look.output.preview:
+                self._mp4.append(part["anim"])
         if "thumb" in part:
-            self._thumbs.append(part["thumb"])
+            if self._contact is None:
+                self._contact = ContactSheet(self.numbers[: self.n_frames], *part["thumb"].shape[:2])
+            self._contact.put(index, part["thumb"])
 
     def _write_frame(self, frame: int, rgba: np.ndarray, layers: Dict[str, np.ndarray]) -> List[str]:
         out, name = self.look.output, file_stem(self.look)
@@ -336,8 +343,7 @@ class OutputSink:
         sheet, self._sheet = self._sheet, None
         loop = self.loop if self.whole_clip else "none"  # a part of a loop does not loop
         if spec.format == "png":
-            self.files += write_sheet_codes(self.out_dir, name, sheet, layout, alpha=look.output.png_alpha,
-                                            fps=look.clip.fps, loop=loop, maps=maps)
+            self.files += sheet.write(self.out_dir, name, fps=look.clip.fps, loop=loop, maps=maps)
             return
         self.files += write_sheet_image(
             self.out_dir, name, sheet, layout, format=spec.format, alpha=look.output.png_alpha,
@@ -350,11 +356,13 @@ class OutputSink:
         for kind in look.output.preview:
             path = os.path.join(d, preview_file(name, kind))
             if kind == "gif":
-                write_gif_codes(path, self._anim, look.clip.fps)
+                frames, self._gif = self._gif, []
+                write_gif_codes(path, _drain(frames), look.clip.fps, n_frames=len(frames))
             elif kind == "mp4":
-                write_mp4_codes(path, self._anim, look.clip.fps)
+                write_mp4_codes(path, self._mp4, look.clip.fps)
             else:
-                write_contact_codes(path, self._thumbs, numbers=self._frame_numbers)
+                contact, self._contact = self._contact, None
+                contact.write(path)
             self.files.append(path)
 
 
@@ -366,3 +374,10 @@ def _shrink(rgba: np.ndarray, limit: int) -> np.ndarray:
         return rgba
     h2, w2 = h // f, w // f
     return rgba[: h2 * f, : w2 * f].reshape(h2, f, w2, f, 4).mean(axis=(1, 3)).astype(np.float32)
+
+
+def _drain(items: list):
+    """Yield the items of ``items`` first to last, dropping each from the list as it goes."""
+    items.reverse()
+    while items:
+        yield items.pop()

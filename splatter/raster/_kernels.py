@@ -6,8 +6,9 @@ Four steps, all writing into arrays they are given:
    pixel rows, columns and screen tiles its Mahalanobis-radius-3 ellipse
    touches, and the length of its row-profile table.
 2. ``_fill_tables`` (parallel over splats): each splat's row-profile table.
-3. ``_count_pairs`` and ``_bin`` (serial): a counting sort of (tile, splat)
-   pairs, so every tile's list keeps the caller's back-to-front order.
+3. ``_count_pairs`` and ``_bin`` (parallel over runs of splats): a
+   counting sort of (tile, splat) pairs, so every tile's list keeps the
+   caller's back-to-front order.
 4. ``render_kernel(mode, three)`` (parallel over tiles): each tile
    composites its splats into a private planar float32 buffer and then
    writes only its own output pixels. No two threads touch one pixel and each
@@ -207,32 +208,56 @@ def _fill_tables(params, ranges, peaks, tables):
             k = vadd(k, eight)
 
 
-@numba.njit(**KERNEL)
-def _count_pairs(ranges, ntx, counts):
-    """counts (ntiles + 1,) int64 out: counts[t + 1] = splats touching tile t, summed."""
-    counts[:] = 0
-    for j in range(ranges.shape[0]):
-        for ty in range(ranges[j, _TY0], ranges[j, _TY1] + 1):
-            for tx in range(ranges[j, _TX0], ranges[j, _TX1] + 1):
-                counts[ty * ntx + tx + 1] += 1
-    for t in range(1, counts.shape[0]):
-        counts[t] += counts[t - 1]
+BIN_CHUNKS = 16
+"""Runs of splats binned in parallel; any number gives the same lists."""
 
 
-@numba.njit(**KERNEL)
-def _bin(ranges, ntx, offsets, fill, order):
+@numba.njit(**PARALLEL)
+def _count_pairs(ranges, ntx, counts, offsets):
+    """Count (tile, splat) pairs per run of splats and per tile.
+
+    counts : (BIN_CHUNKS, ntiles) int64 out: counts[c, t] = splats of run
+        ``c`` (splats ``c n / BIN_CHUNKS`` up to the next run's first)
+        touching tile t.
+    offsets : (ntiles + 1,) int64 out: offsets[t + 1] = pairs of tiles 0..t.
+    """
+    n = ranges.shape[0]
+    for c in numba.prange(BIN_CHUNKS):
+        counts[c, :] = 0
+        for j in range(c * n // BIN_CHUNKS, (c + 1) * n // BIN_CHUNKS):
+            for ty in range(ranges[j, _TY0], ranges[j, _TY1] + 1):
+                for tx in range(ranges[j, _TX0], ranges[j, _TX1] + 1):
+                    counts[c, ty * ntx + tx] += 1
+    offsets[0] = 0
+    for t in range(counts.shape[1]):
+        offsets[t + 1] = offsets[t]
+        for c in range(BIN_CHUNKS):
+            offsets[t + 1] += counts[c, t]
+
+
+@numba.njit(**PARALLEL)
+def _bin(ranges, ntx, offsets, counts, order):
     """Counting sort: order[offsets[t]:offsets[t+1]] = splats of tile t, in input order.
 
-    fill : (ntiles,) int64 scratch.
+    counts : (BIN_CHUNKS, ntiles) int64, from :func:`_count_pairs`; used
+        up as each run's write positions. Each run of splats writes its own
+        part of every tile's list, so the lists are the same for any thread
+        count.
     """
-    for t in range(fill.shape[0]):
-        fill[t] = offsets[t]
-    for j in range(ranges.shape[0]):
-        for ty in range(ranges[j, _TY0], ranges[j, _TY1] + 1):
-            for tx in range(ranges[j, _TX0], ranges[j, _TX1] + 1):
-                t = ty * ntx + tx
-                order[fill[t]] = j
-                fill[t] += 1
+    n = ranges.shape[0]
+    for t in range(counts.shape[1]):  # each run starts after the runs before it
+        at = offsets[t]
+        for c in range(BIN_CHUNKS):
+            k = counts[c, t]
+            counts[c, t] = at
+            at += k
+    for c in numba.prange(BIN_CHUNKS):
+        for j in range(c * n // BIN_CHUNKS, (c + 1) * n // BIN_CHUNKS):
+            for ty in range(ranges[j, _TY0], ranges[j, _TY1] + 1):
+                for tx in range(ranges[j, _TX0], ranges[j, _TX1] + 1):
+                    t = ty * ntx + tx
+                    order[counts[c, t]] = j
+                    counts[c, t] += 1
 
 
 @numba.njit(inline="always", **KERNEL)

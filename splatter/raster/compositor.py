@@ -240,9 +240,10 @@ def _render(means, covs, features, opacities, height, width, blend, times=None):
     ntx = -(-width // _k.TILE_W)
     nty = -(-height // _k.TILE_H)
     offsets = np.empty(ntx * nty + 1, dtype=np.int64)
-    _k._count_pairs(ranges, ntx, offsets)
+    counts = np.empty((_k.BIN_CHUNKS, ntx * nty), dtype=np.int64)
+    _k._count_pairs(ranges, ntx, counts, offsets)
     order = _scratch("order", (int(offsets[-1]),), np.int64)
-    _k._bin(ranges, ntx, offsets, np.empty(ntx * nty, dtype=np.int64), order)
+    _k._bin(ranges, ntx, offsets, counts, order)
     # numba hands each thread one contiguous run of the loop; taking the tiles
     # in order of (tile row + tile column) mod threads (alternate bands of a
     # frame up to a tile wide, a checkerboard on wider ones) gives every
