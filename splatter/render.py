@@ -50,7 +50,6 @@ again on the flow with those octaves (what the render shows).
 """
 
 
-
 @dataclass
 class RenderResult:
     """What a render did.
