@@ -306,9 +306,14 @@ def estimate_cost(look: LookSpec, plan: SimPlan, pixel_size: float, n_frames: in
                         hints=hints)
 
 
-def _limit_example(option_name: str, gib: int) -> str:
-    """``--max-memory 3G`` for the command line, ``max_memory="3G"`` for Python."""
-    return f"{option_name} {gib}G" if option_name.startswith("-") else f'{option_name}="{gib}G"'
+def _cure(option_name: str, gib: int) -> str:
+    """How to raise the limit: ``--max-memory 3G`` on the command line, ``max_memory="3G"`` in
+    Python, or the caller's own words when the limit is not an option (``vary``'s share per worker)."""
+    if option_name.startswith("-"):
+        return f"raise the limit with {option_name}, for example {option_name} {gib}G"
+    if option_name.isidentifier():
+        return f'raise the limit with {option_name}, for example {option_name}="{gib}G"'
+    return option_name
 
 
 def refuse_if_too_big(look: LookSpec, est: CostEstimate, option_name: str = "--max-memory") -> None:
@@ -318,6 +323,5 @@ def refuse_if_too_big(look: LookSpec, est: CostEstimate, option_name: str = "--m
     top = est.driver()
     raise LookError(
         look.path, _PART_KEYS[top],
-        f"a render that fits in {format_bytes(est.limit)} of memory (raise the limit with {option_name}, "
-        f"for example {_limit_example(option_name, math.ceil(est.peak / 2**30))})",
+        f"a render that fits in {format_bytes(est.limit)} of memory ({_cure(option_name, math.ceil(est.peak / 2**30))})",
         f"about {format_bytes(est.peak)}, {format_bytes(est.parts[top])} of it for the {top}: {est.hints[top]}")

@@ -277,3 +277,16 @@ def test_python_callers_and_batch_workers_are_refused_too(tmp_path):
     done = render_variation({"look": look.path, "sets": [], "folder": str(out), "threads": None, "name": "huge"})
     assert done["status"] == "failed" and "memory" in done["message"] and done["files"] == []
     assert not out.exists()
+
+
+def test_vary_refuses_a_variation_too_big_for_its_worker_before_anything_is_written(tmp_path):
+    # Every variation is checked before the first renders (docs/batches.md):
+    # one estimated past its worker's share of memory is bad input, exit 2.
+    from splatter.batch.run import vary
+
+    look = write_look(tmp_path, HUGE)
+    out = tmp_path / "batch"
+    for dry_run in (True, False):
+        with pytest.raises(LookError, match=r"variation seed2[^:]*: .*output\.sheet.*fewer --jobs"):
+            vary(str(look), seeds="2:4", out=str(out), jobs=1, dry_run=dry_run, progress=False)
+        assert not out.exists()

@@ -211,6 +211,26 @@ def vary(look, *, seeds=None, sweep=None, zip: bool = False, sets: Iterable[str]
     return run_batch(batch, jobs=jobs, cluster=cluster, dry_run=dry_run, progress=progress)
 
 
+def _refuse_too_big(todo, jobs: int) -> None:
+    """Refuse, before anything is written, a variation that would not fit in its worker's share of memory.
+
+    The estimate is the one the command line makes before framing (no
+    simulation); each worker's render still checks again at its final
+    framing. Variations sent to a cluster are checked by their workers,
+    whose memory this machine cannot see.
+    """
+    from splatter.cost import memory_limit
+    from splatter.render import refuse_if_over_memory
+
+    share = memory_limit() // max(1, jobs)
+    for v in todo:
+        try:
+            refuse_if_over_memory(v.look, v.look.clip.frames, max_memory=share,
+                                  option_name="each worker's share of the free memory; run fewer --jobs")
+        except LookError as err:
+            raise LookError(f"variation {v.name}: {err.file}", err.key, err.expected, err.got, err.line) from None
+
+
 def _manifest(batch: Batch, entries: List[Dict[str, Any]]) -> Dict[str, Any]:
     return {
         "format": FORMAT,
@@ -241,6 +261,8 @@ def run_batch(batch: Batch, *, jobs: Optional[int] = None, cluster: Optional[str
             entries.append(entry_for(v))
             todo.append(v)
     manifest = _manifest(batch, entries)
+    if cluster is None:
+        _refuse_too_big(todo, jobs or default_jobs(len(todo)))
     if dry_run:
         return manifest
     client = _connect(cluster) if cluster else None  # an unreachable scheduler is bad input: nothing written yet
