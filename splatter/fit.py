@@ -43,6 +43,7 @@ from splatter.view.framing import (
     RIM_SHARE,
     deciding_spheres,
     fit_spheres,
+    max_border_alpha,
     pixel_points,
     puff_spheres,
     widened,
@@ -249,7 +250,7 @@ def _visible_spheres(coarse, clouds, alpha, mode, margin, camera, factor):
         mask = a >= alpha
         if not mask.any():
             continue
-        touched = touched or bool(mask[0].any() or mask[-1].any() or mask[:, 0].any() or mask[:, -1].any())
+        touched = touched or max_border_alpha(a) >= alpha
         rows, cols = np.nonzero(mask)
         p, px = pixel_points(coarse, rows, cols, depth[rows, cols])
         keep = deciding_spheres(camera, p, px, margin=margin)

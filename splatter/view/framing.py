@@ -31,6 +31,7 @@ from dataclasses import replace
 import numpy as np
 
 from splatter.core.thresholds import CUTOFF, VISIBLE_ALPHA
+from splatter.sim.shaping import largest_stretch
 from splatter.view.camera import _check_array
 
 __all__ = ["visible_reach", "fit_view", "fit_spheres", "deciding_spheres", "widened", "pixel_points",
@@ -306,19 +307,8 @@ def puff_spheres(state, peak, alpha):
     axis = state.size[visible]
     deform = getattr(state, "deform", None)
     if deform is not None:
-        axis = axis * _largest_stretch(deform[visible])
+        axis = axis * largest_stretch(deform[visible])
     return np.asarray(state.pos[visible], dtype=np.float64), np.maximum(axis, smear / CUTOFF) * reach
-
-
-def _largest_stretch(deform):
-    """Largest singular value of each ``F`` ((N, 3, 3)), as the root of ``F^T F``'s largest eigenvalue.
-
-    The same values as :func:`splatter.sim.shaping.largest_stretch` to
-    round-off, in half the time (no singular vectors); the fit takes it for
-    every sampled puff of every frame.
-    """
-    gram = np.einsum("nji,njk->nik", deform, deform)
-    return np.sqrt(np.maximum(np.linalg.eigvalsh(gram)[:, -1], 0.0))
 
 
 def fit_camera(camera, states, *, opacity_of, margin, alpha=VISIBLE_ALPHA):
