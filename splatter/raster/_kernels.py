@@ -27,7 +27,7 @@ tile's splats lie together and in input order, so a tile's list walks
 through memory in a few forward streams (for small splats: the records
 starting in this tile row and in the one above), which the processor
 prefetches. The pixels are the same bit for bit; for 200,000 splats of
-sigma 0.7-3 px the kernel took about 40 % less time
+sigma 0.7-3 px the kernel took a third to 40 % less time
 (``scripts/bench_composite.py``, DEVELOPERS.md).
 
 How a row is weighted. Along pixel row ``dy`` the squared Mahalanobis
