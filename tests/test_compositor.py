@@ -372,6 +372,37 @@ def test_tiny_and_large_splats_mixed_match_reference(blend):
     assert np.abs(got - want).max() <= 1e-5
 
 
+def test_depth_order_holds_for_splats_starting_in_different_tile_rows():
+    # The kernel keeps splats grouped by the first tile they touch, so the
+    # splats of one tile lie together in memory; a tile's list must still
+    # run in the caller's depth order. Wide splats centred just above the
+    # boundary between the first two tile rows (first tile: the upper row)
+    # reach well into the lower row; small splats wholly below the boundary
+    # (first tile: the lower row) sit under them. Interleaved in depth
+    # order, with opaque contrasting colours, "over" (not commutative) must
+    # match the float64 reference, which any reordering of the lower row's
+    # list would break.
+    from splatter.raster.compositor import TILE
+
+    rng = np.random.default_rng(41)
+    edge = TILE[0]
+    h, w = 2 * edge + 8, 48
+    n = 60
+    upper = np.arange(n) % 2 == 0
+    covs = np.where(upper[:, None, None], random_covs(rng, n, (3.0, 4.0), (0.8, 1.0)),
+                    random_covs(rng, n, (0.8, 1.5), (0.5, 1.0)))
+    # A lower splat's box starts 3 sigma_y (at most 4.5 px) above its centre: below the boundary.
+    y = np.where(upper, edge - rng.uniform(0.5, 2.0, n), edge + rng.uniform(4.6, 6.0, n))
+    means = np.stack([rng.uniform(12, w - 12, n), y], 1)
+    top = np.ceil(y - 3 * np.sqrt(covs[:, 1, 1]) - 0.5) // edge  # tile row of the first pixel row
+    assert (top == np.where(upper, 0, 1)).all()
+    feats = np.where(upper[:, None], [1.0, 0.1, 0.0], [0.0, 0.2, 1.0]) * rng.uniform(0.5, 1, (n, 1))
+    opac = rng.uniform(0.6, 0.95, n)
+    got = composite(means, covs, feats, opac, shape=(h, w))
+    want = reference(means, covs, feats, opac, (h, w), "over")
+    assert np.abs(got - want).max() <= 1e-5
+
+
 def test_thread_count_does_not_change_pixels_of_many_tiny_splats():
     # The benchmark's detailed-smoke workload, scaled down: many tiny splats,
     # most tiles holding hundreds, over blending.

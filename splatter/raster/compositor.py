@@ -225,25 +225,37 @@ def _render(means, covs, features, opacities, height, width, blend, times=None):
         peaks = opacities
     peaks = np.ascontiguousarray(peaks, dtype=np.float32)
     n = means.shape[0]
-    params = _scratch("params", (n, _k.N_PARAMS), np.float64)
-    ranges = _scratch("ranges", (n, _k.N_RANGES), np.int64)
-    tlen = _scratch("tlen", (n,), np.int64)
-    _k._prepare(_as_kernel_floats(means), _as_kernel_floats(covs),
-                peaks, height, width, params, ranges, tlen)
-    _direct_beyond(ranges, tlen, TABLE_BYTES // 4)
-    toff = np.cumsum(tlen, out=_scratch("toff", (n,), np.int64))
-    ranges[:, _k.N_RANGES - 1] = toff - tlen
-    clock.lap("prepare")
-    tables = _scratch("tables", (int(toff[-1]) if n else 0,), np.float32)
-    _k._fill_tables(params, ranges, peaks, tables)
-    clock.lap("tables")
     ntx = -(-width // _k.TILE_W)
     nty = -(-height // _k.TILE_H)
+    boxes = _scratch("boxes", (n, 4), np.int32)
+    _k._tile_boxes(_as_kernel_floats(means), _as_kernel_floats(covs), peaks, height, width,
+                   boxes)
     offsets = np.empty(ntx * nty + 1, dtype=np.int64)
+    starts = np.empty(ntx * nty + 1, dtype=np.int64)
     counts = np.empty((_k.BIN_CHUNKS, ntx * nty), dtype=np.int64)
-    _k._count_pairs(ranges, ntx, counts, offsets)
+    firsts = np.empty((_k.BIN_CHUNKS, ntx * nty), dtype=np.int64)
+    _k._count_pairs(boxes, ntx, counts, firsts, offsets, starts)
     order = _scratch("order", (int(offsets[-1]),), np.int64)
-    _k._bin(ranges, ntx, offsets, counts, order)
+    # Records: the splats that change a pixel, grouped by first tile.
+    m = int(starts[-1])
+    source = _scratch("source", (m,), np.int64)
+    _k._bin(boxes, ntx, offsets, counts, starts, firsts, source, order)
+    clock.lap("binning")
+    params = _scratch("params", (m, _k.N_PARAMS), np.float64)
+    ranges = _scratch("ranges", (m, _k.N_RANGES), np.int64)
+    tlen = _scratch("tlen", (m,), np.int64)
+    rec_peaks = _scratch("peaks", (m,), np.float32)
+    rec_feats = _scratch("feats", (m, nk), np.float32)
+    _k._prepare(_as_kernel_floats(means), _as_kernel_floats(covs), peaks,
+                np.ascontiguousarray(features, dtype=np.float32), source, starts, firsts,
+                height, width, params, ranges, tlen, rec_peaks, rec_feats)
+    _direct_beyond(ranges, tlen, TABLE_BYTES // 4)
+    toff = np.cumsum(tlen, out=_scratch("toff", (m,), np.int64))
+    ranges[:, _k.N_RANGES - 1] = toff - tlen
+    clock.lap("prepare")
+    tables = _scratch("tables", (int(toff[-1]) if m else 0,), np.float32)
+    _k._fill_tables(params, ranges, rec_peaks, tables)
+    clock.lap("tables")
     # numba hands each thread one contiguous run of the loop; taking the tiles
     # in order of (tile row + tile column) mod threads (alternate bands of a
     # frame up to a tile wide, a checkerboard on wider ones) gives every
@@ -251,10 +263,8 @@ def _render(means, covs, features, opacities, height, width, blend, times=None):
     # one corner still keeps every thread busy.
     ty, tx = np.divmod(np.arange(ntx * nty), ntx)
     tile_order = np.argsort((ty + tx) % numba.get_num_threads(), kind="stable")
-    clock.lap("binning")
     kernel = _k.render_kernel(mode, nk == 3)
-    kernel(params, ranges, tables, np.ascontiguousarray(features, dtype=np.float32),
-           peaks, offsets, order, tile_order, out)
+    kernel(params, ranges, tables, rec_feats, rec_peaks, offsets, order, tile_order, out)
     clock.lap("kernel")
     return out
 
