@@ -51,7 +51,7 @@ from splatter.core.errors import LookError
 from splatter.deliver.sink import check_outputs
 from splatter.fit import FIT_PUFFS
 from splatter.look.records import LookSpec
-from splatter.raster.compositor import TABLE_BYTES
+from splatter.raster.compositor import TABLE_BYTES, TILE
 from splatter.sim.plan import crossfade_frames
 from splatter.sim.driver import TWIN_MEMORY, SimPlan
 
@@ -245,10 +245,12 @@ def estimate_cost(look: LookSpec, plan: SimPlan, pixel_size: float, n_frames: in
     hints["simulation"] = (f"about {n:,.0f} live puffs (source rate times life, plus bursts); "
                            "lower source.rate or source.life")
 
-    # (tile, splat) pairs: the tiles the largest footprint touches, at most all of them.
+    # (tile, splat) pairs: the tiles the largest footprint touches, at most all of them
+    # (each splat's record is in BYTES_PER_PUFF).
+    tile_h, tile_w = TILE
     reach_px = min(6.0 * sigma_px, 4.0 * (w + h))
-    ntiles = math.ceil(w / 512) * math.ceil(h / 16)
-    tiles = min(float(ntiles), (reach_px / 16.0 + 2.0) * (reach_px / 512.0 + 2.0))
+    ntiles = math.ceil(w / tile_w) * math.ceil(h / tile_h)
+    tiles = min(float(ntiles), (reach_px / tile_h + 2.0) * (reach_px / tile_w + 2.0))
     tables = min(float(TABLE_BYTES), n * 4.0 * 2.0 * min(3.0 * sigma_px + 10.0, float(w)))
     parts["compositing"] = n * tiles * 16.0 + tables
     hints["compositing"] = (f"{n:,.0f} puffs whose footprints reach {sigma_px:.3g} px sigma; lower source.size or "
