@@ -166,3 +166,39 @@ def test_pack_ignores_frames_the_manifest_does_not_list(tmp_path):
     # the whole clip, rendered: pack calls it the exact loop it is
     quiet_render(look, folder)
     assert json.loads(open(pack_folder(folder, columns=6)[1]).read())["loop"] == "exact"
+
+
+def test_a_refusal_at_the_final_framing_removes_every_folder_level_it_made_and_nothing_else(tmp_path, monkeypatch):
+    # The final memory check runs after the output folder is made (check_folder
+    # makes it, parents and all, as os.makedirs does); a refusal there must
+    # leave the disk as it was: every level this render made goes, every
+    # folder that was there stays with what it holds. The refusal is planted
+    # (only the check given the final framing refuses), since a look whose
+    # framing alone tips the estimate over would be slow to simulate.
+    import importlib
+
+    from splatter.core.errors import LookError
+    from splatter.deliver.folder import missing_folders
+
+    render_module = importlib.import_module("splatter.render")
+    real = render_module.refuse_if_over_memory
+
+    def refuse_final(look, n_frames, *, plan=None, **kw):
+        if plan is not None:
+            raise LookError(look.path, "output.sheet", "a render that fits in memory", "more (planted)")
+        return real(look, n_frames, plan=plan, **kw)
+
+    monkeypatch.setattr(render_module, "refuse_if_over_memory", refuse_final)
+    look = _plume(tmp_path)
+    quay = tmp_path / "quay"
+    quay.mkdir()
+    (quay / "notes.txt").write_text("kept")
+    before = sorted(p.relative_to(tmp_path) for p in tmp_path.rglob("*"))
+    for out in (quay / "vents" / "take_2" / "frames", f"{quay}/a/../b/c/", quay, quay / "new"):
+        with pytest.raises(LookError, match="planted"):
+            render_module.render(look, out_dir=str(out), progress=False)
+        assert sorted(p.relative_to(tmp_path) for p in tmp_path.rglob("*")) == before, out
+    assert (quay / "notes.txt").read_text() == "kept"
+    # The walk mirrors os.makedirs: "a/../b" makes a, then b beside it.
+    levels = missing_folders(f"{quay}/a/../b/c")
+    assert [p.replace(str(quay), "") for p in levels] == ["/a/../b/c", "/a/../b", "/a/..", "/a"]
