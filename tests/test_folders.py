@@ -43,6 +43,10 @@ def test_partial_renders_number_cells_by_frame_size_the_grid_and_do_not_claim_a_
 
 FULL = ("[output]\nframes = ['png', 'exr']\nexr_type = 'float'\nmaps = ['motion', 'depth']\n"
         "preview = ['gif', 'contact']\nsheet = { columns = 4, padding = 1 }\n")
+# Every map and preview: the normal and light sheets and the MP4 are encoded as frames
+# arrive (their shares are kept for --resume; an interrupted MP4 must leave no file).
+FULL_STREAMED = FULL.replace("'motion', 'depth'", "'motion', 'depth', 'normal', 'lightdirs'").replace(
+    "'gif', 'contact'", "'gif', 'mp4', 'contact'")
 
 
 def _interrupt_after(monkeypatch, n):
@@ -61,9 +65,11 @@ def _interrupt_after(monkeypatch, n):
 
 def test_interrupted_then_resumed_render_has_the_bytes_of_an_uninterrupted_one(tmp_path, monkeypatch):
     text = SMALL_PLUME.replace('[output]\nframes = ["png", "exr"]\nexr_type = "float"\n', "")
-    look = load_look(write_look(tmp_path, text, extra=FULL))
+    look = load_look(write_look(tmp_path, text, extra=FULL_STREAMED))
     whole = digests(_render(look, tmp_path / "whole"), manifest=True)
-    assert {"small_plume.render.json", "small_plume.sheet.png", "small_plume.motion.sheet.png"} <= whole.keys()
+    assert {"small_plume.render.json", "small_plume.sheet.png", "small_plume.motion.sheet.png",
+            "small_plume.normal.sheet.png", "small_plume.lightdirs_neg.sheet.png",
+            "small_plume.preview.mp4"} <= whole.keys()
     folder = tmp_path / "resumed"
     with monkeypatch.context() as m:
         _interrupt_after(m, 5)
@@ -90,7 +96,7 @@ def test_interrupted_then_resumed_render_has_the_bytes_of_an_uninterrupted_one(t
 
 def test_another_seed_interrupted_leaves_nothing_of_the_old_render(tmp_path, monkeypatch):
     text = SMALL_PLUME.replace('[output]\nframes = ["png", "exr"]\nexr_type = "float"\n', "")
-    path = write_look(tmp_path, text, extra=FULL)
+    path = write_look(tmp_path, text, extra=FULL_STREAMED)
     folder = tmp_path / "out"
     _render(load_look(path), folder)
     old = {p.name: p.read_bytes() for p in folder.iterdir()}
