@@ -7,7 +7,6 @@ Memory stays at one frame's puffs and image (plus what the sheet needs).
 
 from __future__ import annotations
 
-import os
 import sys
 import time
 import warnings
