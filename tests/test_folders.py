@@ -208,3 +208,33 @@ def test_a_refusal_at_the_final_framing_removes_every_folder_level_it_made_and_n
     # The walk mirrors os.makedirs: "a/../b" makes a, then b beside it.
     levels = missing_folders(f"{quay}/a/../b/c")
     assert [p.replace(str(quay), "") for p in levels] == ["/a/../b/c", "/a/../b", "/a/..", "/a"]
+
+
+def test_shares_kept_by_another_version_are_rendered_again_not_trusted(tmp_path, monkeypatch):
+    # What a frame's kept share holds changes between versions (normal and light
+    # sheets keep encoded tiles now); a share without this version's mark is not
+    # used, so --resume renders that frame again and the files still come out whole.
+    import numpy as np
+
+    text = SMALL_PLUME.replace('[output]\nframes = ["png", "exr"]\nexr_type = "float"\n', "")
+    look = load_look(write_look(tmp_path, text, extra=FULL_STREAMED))
+    whole = digests(_render(look, tmp_path / "whole"), manifest=True)
+    folder = tmp_path / "resumed"
+    with monkeypatch.context() as m:
+        _interrupt_after(m, 5)
+        with pytest.raises(KeyboardInterrupt):
+            quiet_render(look, folder)
+    parts = sorted((folder / ".small_plume.resume").glob("*.npz"))
+    assert parts
+    with np.load(parts[0]) as z:  # the first frame's share, as an older version kept it
+        old = {k: z[k] for k in z.files if k != "parts_version" and not k.startswith("map:")}
+    np.savez(parts[0], **old)
+    with monkeypatch.context() as m:
+        rendered = []
+        from splatter.deliver import sink
+
+        real = sink.OutputSink.add
+        m.setattr(sink.OutputSink, "add", lambda self, f, *a: rendered.append(f) or real(self, f, *a))
+        quiet_render(look, folder, resume=True)
+    assert rendered[0] == 0 and rendered[1:] == list(range(len(parts), 12))
+    assert digests(folder, manifest=True) == whole

@@ -59,6 +59,10 @@ __all__ = ["MANIFEST_VERSION", "look_digest", "read_manifest", "note_files", "ch
 
 MANIFEST_VERSION = 1
 
+PARTS_VERSION = 2
+"""What a kept frame share (``.{stem}.resume/{frame}.npz``) holds; one of another version is not
+used (its frame is rendered again). 2: normal and light-direction sheet tiles, not their layers."""
+
 
 def look_digest(look: LookSpec) -> str:
     """sha-256 (hex) of what decides the bytes of a render's files: the look but its folder, and the version.
@@ -264,7 +268,9 @@ class RenderFolder:
     def _load_part(self, frame: int) -> bool:
         try:
             with np.load(self._part_path(frame)) as z:
-                self.kept[frame] = {k: z[k] for k in z.files}
+                if "parts_version" not in z.files or int(z["parts_version"]) != PARTS_VERSION:
+                    return False  # kept by another version of splatter: render the frame again
+                self.kept[frame] = {k: z[k] for k in z.files if k != "parts_version"}
         except (OSError, ValueError, EOFError):
             return False
         return True
@@ -273,7 +279,7 @@ class RenderFolder:
         """A frame's files are in place (called on the sink's writer thread): keep its share, list it."""
         if self.keeps_parts:
             with atomic_path(self._part_path(frame)) as tmp:
-                np.savez(tmp, **part)
+                np.savez(tmp, **part, parts_version=np.array(PARTS_VERSION))
         self._frames_done.add(frame)
         self._files.update(os.path.basename(p) for p in written)
         self._write("rendering")
