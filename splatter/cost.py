@@ -20,11 +20,14 @@ bytes):
   the writer's queue);
 * **sheets**: the colour sheet (PNG: its compressed bytes, at most about
   its 8/16-bit codes, as cell rows are encoded; EXR: RGBA at the file's
-  pixel type) and, with maps, every frame's map layers and alpha, kept until the
-  end because map encodings use clip-wide ranges;
+  pixel type), the map sheets the same way (normal and light-direction sheets
+  are encoded as frames arrive), and, with motion or depth maps, every frame's
+  motion and depth layers and alpha, kept until the end because their
+  encodings use clip-wide ranges;
 * **previews**: GIF frames at most 512 px on a side as palette images (one
-  byte a pixel, twice while Pillow writes them), MP4 frames at 3 bytes a
-  pixel, and the contact sheet of thumbnails at most 256 px, every frame;
+  byte a pixel, twice while Pillow writes them), and the contact sheet of
+  thumbnails at most 256 px, every frame (MP4 frames go to ffmpeg as they
+  come: nothing per frame is held);
 * **framing**: ``camera.fit`` keeps the sampled puffs of every frame (centre, covariance, opacity).
 
 The time is a rough figure from this machine's measured rates
@@ -87,6 +90,21 @@ LIMIT_SHARE = 0.8
 _PART_KEYS = {"simulation": "source.rate", "compositing": "source.size", "frames": "image",
               "sheets": "output.sheet", "previews": "output.preview", "framing": "clip.frames"}
 _MAP_CHANNELS = {"motion": 2, "depth": 1, "normal": 3, "lightdirs": 6}
+_RANGED_MAPS = ("motion", "depth")  # encoded with the clip's ranges, so kept to the end
+_FILE_CHANNELS = {"png": {"motion": 3, "depth": 1, "normal": 3, "lightdirs": 6},
+                  "exr": {"motion": 2, "depth": 1, "normal": 3}}
+
+
+def _map_sheet_bytes(out) -> float:
+    """Bytes a sheet texel costs across the map sheets: PNG ones as their compressed
+    data (at most about their codes), EXR ones at the file's pixel type, twice (the
+    writer's contiguous planes); light directions are always PNG."""
+    total = 0.0
+    for m in out.maps:
+        fmt = "png" if m == "lightdirs" else out.sheet.format
+        per = out.png_bits // 8 if fmt == "png" else (2 if out.exr_type == "half" else 4) * 2
+        total += _FILE_CHANNELS[fmt][m] * per
+    return total
 _SIZE = re.compile(r"^\s*([0-9]*\.?[0-9]+)\s*([kmgt]?)i?b?\s*$", re.IGNORECASE)
 
 
@@ -265,12 +283,15 @@ def estimate_cost(look: LookSpec, plan: SimPlan, pixel_size: float, n_frames: in
         layout = check_outputs(look, n_frames)
         per = 4 * (out.png_bits // 8) if out.sheet.format == "png" else (8 if out.exr_type == "half" else 16)
         sheets = float(layout.width * layout.height) * per
+        ranged = sum(_MAP_CHANNELS[m] for m in out.maps if m in _RANGED_MAPS)
+        if ranged:  # motion and depth wait for the clip's ranges: their layers and alpha of every frame
+            sheets += float(px) * (ranged + 1) * 4 * n_frames
+        sheets += float(layout.width * layout.height) * _map_sheet_bytes(out)
         map_ch = sum(_MAP_CHANNELS[m] for m in out.maps)
-        if map_ch:
-            sheets += float(px) * (map_ch + 1) * 4 * n_frames  # layers and alpha of every frame
-            sheets += float(layout.width * layout.height) * 4 * 4  # one map sheet being encoded
         hints["sheets"] = (f"a {layout.width} x {layout.height} px sheet"
-                           + (f" and {map_ch} map channels of every one of {n_frames} frames" if map_ch else "")
+                           + (f", {len(out.maps)} map sheets ({map_ch} channels)" if map_ch else "")
+                           + (f" and {ranged} motion and depth map channels of every one of {n_frames} frames"
+                              if ranged else "")
                            + "; set output.sheet.cell smaller, render fewer frames, or drop output.maps")
     parts["sheets"] = sheets
 
@@ -279,8 +300,6 @@ def estimate_cost(look: LookSpec, plan: SimPlan, pixel_size: float, n_frames: in
     anim = float(px) * scale(512) * n_frames
     if "gif" in out.preview:
         prev += anim * 2  # palette images, and Pillow's own copies while it writes the file
-    if "mp4" in out.preview:
-        prev += anim * 3
     if "contact" in out.preview:
         prev += float(px) * scale(256) * 3 * n_frames
     parts["previews"] = prev

@@ -7,7 +7,6 @@ Memory stays at one frame's puffs and image (plus what the sheet needs).
 
 from __future__ import annotations
 
-import os
 import sys
 import time
 import warnings
@@ -21,7 +20,7 @@ from splatter.core.choices import MAPS
 from splatter.core.errors import LookError, LookWarning
 from splatter.core.thresholds import VISIBLE_ALPHA
 from splatter.cost import estimate_cost, memory_limit, refuse_if_too_big
-from splatter.deliver.folder import RenderFolder, check_folder
+from splatter.deliver.folder import RenderFolder, check_folder, missing_folders, remove_folders
 from splatter.deliver.names import planned_files
 from splatter.deliver.sink import OutputSink
 from splatter.fit import FIT_PUFFS, fit_to_smoke
@@ -455,7 +454,7 @@ def render(look, *, out_dir: Optional[str] = None, frames: Optional[Iterable[int
     folder = output_dir(look, out_dir)
     if plan is None:
         refuse_if_over_memory(look, len(wanted), max_memory=max_memory)  # before framing simulates
-    made = not os.path.isdir(folder)
+    made = missing_folders(folder)  # every level check_folder makes, so a refusal can take them all back
     # A folder that cannot be used fails now, before any work, naming the folder as given.
     check_folder(folder, folder, "--out" if out_dir is not None else look.path, planned_files(look, folder, wanted))
     if progress:
@@ -469,8 +468,7 @@ def render(look, *, out_dir: Optional[str] = None, frames: Optional[Iterable[int
     try:
         refuse_if_over_memory(look, len(wanted), max_memory=max_memory, plan=plan, camera=camera)
     except LookError:
-        if made:
-            os.rmdir(folder)  # refused at the final framing: leave no trace
+        remove_folders(made)  # refused at the final framing: leave no trace, keep what was there before
         raise
 
     record = RenderFolder(look, folder, wanted, resume=resume)

@@ -72,8 +72,8 @@ sheet = { format = "exr", cell = 1024 }
 
 
 def test_a_render_that_cannot_fit_is_refused_before_anything_is_written(tmp_path):
-    # 8192 x 8192 with every map, sheet and preview: the map sheets alone keep
-    # 64 frames x 13 float32 channels x 8192^2 px (about 210 GiB) until the end.
+    # 8192 x 8192 with every map, sheet and preview: the motion and depth sheets alone
+    # keep 64 frames x 4 float32 channels (with alpha) x 8192^2 px (64 GiB) until the end.
     look = write_look(tmp_path, HUGE)
     out = tmp_path / "o"
     code, _, stderr, _ = run_measured("render", look, "--out", out, "--max-memory", "64G")
@@ -97,8 +97,9 @@ def test_the_estimate_counts_each_part_from_its_sizes():
     # Exact parts of the model (cost.py): a 512 x 256 frame with motion and depth
     # has 3 + 2 + 1 + 1 = 7 float32 channels, 7 frames in flight; an 8-bit PNG
     # sheet is 4 bytes a texel.
-    # Map sheets keep every frame's map channels and alpha (2 + 1 + 1) as float32,
-    # and one float32 RGBA map sheet is encoded at a time.
+    # Motion and depth sheets keep every frame's map channels and alpha (2 + 1 + 1)
+    # as float32 for their clip-wide ranges; the 8-bit map sheets cost their codes,
+    # motion RGB and depth grey (3 + 1 bytes a texel) at most.
     look = load_look_text(SMALL_PLUME.replace("width = 48", "width = 512").replace("height = 48", "height = 256")
                           + 'maps = ["motion", "depth"]\nsheet = { columns = 4 }\n')
     plan = first_plan(look)
@@ -107,7 +108,7 @@ def test_the_estimate_counts_each_part_from_its_sizes():
     layout = check_outputs(look, 12)
     assert (layout.columns, layout.rows) == (4, 3)
     texels = layout.width * layout.height
-    assert est.parts["sheets"] == texels * 4 + 512 * 256 * 4 * 4 * 12 + texels * 16
+    assert est.parts["sheets"] == texels * 4 + 512 * 256 * 4 * 4 * 12 + texels * 4
     assert est.puffs == pytest.approx(plan.steady_state_puffs)
     with pytest.raises(LookError, match="--max-memory"):
         refuse_if_too_big(look, estimate_cost(look, plan, 0.01, 12, limit=2**20))

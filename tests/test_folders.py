@@ -43,6 +43,10 @@ def test_partial_renders_number_cells_by_frame_size_the_grid_and_do_not_claim_a_
 
 FULL = ("[output]\nframes = ['png', 'exr']\nexr_type = 'float'\nmaps = ['motion', 'depth']\n"
         "preview = ['gif', 'contact']\nsheet = { columns = 4, padding = 1 }\n")
+# Every map and preview: the normal and light sheets and the MP4 are encoded as frames
+# arrive (their shares are kept for --resume; an interrupted MP4 must leave no file).
+FULL_STREAMED = FULL.replace("'motion', 'depth'", "'motion', 'depth', 'normal', 'lightdirs'").replace(
+    "'gif', 'contact'", "'gif', 'mp4', 'contact'")
 
 
 def _interrupt_after(monkeypatch, n):
@@ -61,9 +65,11 @@ def _interrupt_after(monkeypatch, n):
 
 def test_interrupted_then_resumed_render_has_the_bytes_of_an_uninterrupted_one(tmp_path, monkeypatch):
     text = SMALL_PLUME.replace('[output]\nframes = ["png", "exr"]\nexr_type = "float"\n', "")
-    look = load_look(write_look(tmp_path, text, extra=FULL))
+    look = load_look(write_look(tmp_path, text, extra=FULL_STREAMED))
     whole = digests(_render(look, tmp_path / "whole"), manifest=True)
-    assert {"small_plume.render.json", "small_plume.sheet.png", "small_plume.motion.sheet.png"} <= whole.keys()
+    assert {"small_plume.render.json", "small_plume.sheet.png", "small_plume.motion.sheet.png",
+            "small_plume.normal.sheet.png", "small_plume.lightdirs_neg.sheet.png",
+            "small_plume.preview.mp4"} <= whole.keys()
     folder = tmp_path / "resumed"
     with monkeypatch.context() as m:
         _interrupt_after(m, 5)
@@ -90,7 +96,7 @@ def test_interrupted_then_resumed_render_has_the_bytes_of_an_uninterrupted_one(t
 
 def test_another_seed_interrupted_leaves_nothing_of_the_old_render(tmp_path, monkeypatch):
     text = SMALL_PLUME.replace('[output]\nframes = ["png", "exr"]\nexr_type = "float"\n', "")
-    path = write_look(tmp_path, text, extra=FULL)
+    path = write_look(tmp_path, text, extra=FULL_STREAMED)
     folder = tmp_path / "out"
     _render(load_look(path), folder)
     old = {p.name: p.read_bytes() for p in folder.iterdir()}
@@ -166,3 +172,69 @@ def test_pack_ignores_frames_the_manifest_does_not_list(tmp_path):
     # the whole clip, rendered: pack calls it the exact loop it is
     quiet_render(look, folder)
     assert json.loads(open(pack_folder(folder, columns=6)[1]).read())["loop"] == "exact"
+
+
+def test_a_refusal_at_the_final_framing_removes_every_folder_level_it_made_and_nothing_else(tmp_path, monkeypatch):
+    # The final memory check runs after the output folder is made (check_folder
+    # makes it, parents and all, as os.makedirs does); a refusal there must
+    # leave the disk as it was: every level this render made goes, every
+    # folder that was there stays with what it holds. The refusal is planted
+    # (only the check given the final framing refuses), since a look whose
+    # framing alone tips the estimate over would be slow to simulate.
+    import importlib
+
+    from splatter.core.errors import LookError
+    from splatter.deliver.folder import missing_folders
+
+    render_module = importlib.import_module("splatter.render")
+    real = render_module.refuse_if_over_memory
+
+    def refuse_final(look, n_frames, *, plan=None, **kw):
+        if plan is not None:
+            raise LookError(look.path, "output.sheet", "a render that fits in memory", "more (planted)")
+        return real(look, n_frames, plan=plan, **kw)
+
+    monkeypatch.setattr(render_module, "refuse_if_over_memory", refuse_final)
+    look = _plume(tmp_path)
+    quay = tmp_path / "quay"
+    quay.mkdir()
+    (quay / "notes.txt").write_text("kept")
+    before = sorted(p.relative_to(tmp_path) for p in tmp_path.rglob("*"))
+    for out in (quay / "vents" / "take_2" / "frames", f"{quay}/a/../b/c/", quay, quay / "new"):
+        with pytest.raises(LookError, match="planted"):
+            render_module.render(look, out_dir=str(out), progress=False)
+        assert sorted(p.relative_to(tmp_path) for p in tmp_path.rglob("*")) == before, out
+    assert (quay / "notes.txt").read_text() == "kept"
+    # The walk mirrors os.makedirs: "a/../b" makes a, then b beside it.
+    levels = missing_folders(f"{quay}/a/../b/c")
+    assert [p.replace(str(quay), "") for p in levels] == ["/a/../b/c", "/a/../b", "/a/..", "/a"]
+
+
+def test_shares_kept_by_another_version_are_rendered_again_not_trusted(tmp_path, monkeypatch):
+    # What a frame's kept share holds changes between versions (normal and light
+    # sheets keep encoded tiles now); a share without this version's mark is not
+    # used, so --resume renders that frame again and the files still come out whole.
+    import numpy as np
+
+    text = SMALL_PLUME.replace('[output]\nframes = ["png", "exr"]\nexr_type = "float"\n', "")
+    look = load_look(write_look(tmp_path, text, extra=FULL_STREAMED))
+    whole = digests(_render(look, tmp_path / "whole"), manifest=True)
+    folder = tmp_path / "resumed"
+    with monkeypatch.context() as m:
+        _interrupt_after(m, 5)
+        with pytest.raises(KeyboardInterrupt):
+            quiet_render(look, folder)
+    parts = sorted((folder / ".small_plume.resume").glob("*.npz"))
+    assert parts
+    with np.load(parts[0]) as z:  # the first frame's share, as an older version kept it
+        old = {k: z[k] for k in z.files if k != "parts_version" and not k.startswith("map:")}
+    np.savez(parts[0], **old)
+    with monkeypatch.context() as m:
+        rendered = []
+        from splatter.deliver import sink
+
+        real = sink.OutputSink.add
+        m.setattr(sink.OutputSink, "add", lambda self, f, *a: rendered.append(f) or real(self, f, *a))
+        quiet_render(look, folder, resume=True)
+    assert rendered[0] == 0 and rendered[1:] == list(range(len(parts), 12))
+    assert digests(folder, manifest=True) == whole

@@ -38,6 +38,7 @@ the same bytes as a render that was never interrupted.
 
 from __future__ import annotations
 
+import contextlib
 import dataclasses
 import hashlib
 import json
@@ -53,9 +54,14 @@ from splatter.deliver.fileio import atomic_path, atomic_write_text
 from splatter.deliver.names import FRAME_FILE, file_stem, frame_file, manifest_file, planned_files
 from splatter.look.records import LookSpec
 
-__all__ = ["MANIFEST_VERSION", "look_digest", "read_manifest", "note_files", "check_folder", "RenderFolder"]
+__all__ = ["MANIFEST_VERSION", "look_digest", "read_manifest", "note_files", "check_folder", "missing_folders",
+           "remove_folders", "RenderFolder"]
 
 MANIFEST_VERSION = 1
+
+PARTS_VERSION = 2
+"""What a kept frame share (``.{stem}.resume/{frame}.npz``) holds; one of another version is not
+used (its frame is rendered again). 2: normal and light-direction sheet tiles, not their layers."""
 
 
 def look_digest(look: LookSpec) -> str:
@@ -97,6 +103,40 @@ def note_files(folder, stem: str, *, added: Iterable[str] = (), removed: Iterabl
     names = (set(data["files"]) | {os.path.basename(p) for p in added}) - {os.path.basename(p) for p in removed}
     data["files"] = sorted(names)
     atomic_write_text(os.path.join(os.fspath(folder), manifest_file(stem)), json.dumps(data, indent=1) + "\n")
+
+
+def missing_folders(folder) -> List[str]:
+    """The folders ``os.makedirs(folder)`` would make, deepest first (it walks the path the same way).
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> root = tempfile.mkdtemp()
+    >>> [os.path.relpath(p, root) for p in missing_folders(os.path.join(root, "quay", "vents", "take_2"))]
+    ['quay/vents/take_2', 'quay/vents', 'quay']
+    >>> missing_folders(root)
+    []
+    """
+    out: List[str] = []
+    p = os.fspath(folder)
+    while p and not os.path.exists(p):
+        head, tail = os.path.split(p)
+        if not tail:  # a trailing separator: makedirs splits once more
+            head, tail = os.path.split(head)
+        out.append(p)
+        p = head if tail else ""
+    return out
+
+
+def remove_folders(folders: Iterable[str]) -> None:
+    """Remove ``folders`` (from :func:`missing_folders`, deepest first) that are empty; leave any other.
+
+    ``os.rmdir`` removes only an empty folder, so a folder that holds
+    anything (or that is another name of a folder kept, as ``a/b/..``) stays.
+    """
+    for p in folders:
+        with contextlib.suppress(OSError):
+            os.rmdir(p)
 
 
 def check_folder(folder: str, given: str, source: str, paths: Iterable[str]) -> None:
@@ -228,7 +268,9 @@ class RenderFolder:
     def _load_part(self, frame: int) -> bool:
         try:
             with np.load(self._part_path(frame)) as z:
-                self.kept[frame] = {k: z[k] for k in z.files}
+                if "parts_version" not in z.files or int(z["parts_version"]) != PARTS_VERSION:
+                    return False  # kept by another version of splatter: render the frame again
+                self.kept[frame] = {k: z[k] for k in z.files if k != "parts_version"}
         except (OSError, ValueError, EOFError):
             return False
         return True
@@ -237,7 +279,7 @@ class RenderFolder:
         """A frame's files are in place (called on the sink's writer thread): keep its share, list it."""
         if self.keeps_parts:
             with atomic_path(self._part_path(frame)) as tmp:
-                np.savez(tmp, **part)
+                np.savez(tmp, **part, parts_version=np.array(PARTS_VERSION))
         self._frames_done.add(frame)
         self._files.update(os.path.basename(p) for p in written)
         self._write("rendering")

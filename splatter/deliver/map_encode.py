@@ -190,9 +190,13 @@ def depth_range(depths, alphas):
     >>> depth_range([np.array([[3.0, 9.0]])], [np.array([[1.0, 0.0]])])
     (3.0, 4.0)
     """
-    zs = [z[a > MAP_COVERED] for z, a in zip(depths, alphas)]
-    near = min((float(z.min()) for z in zs if z.size), default=0.0)
-    far = max((float(z.max()) for z in zs if z.size), default=1.0)
+    near, far = math.inf, -math.inf
+    for z, a in zip(depths, alphas):  # one frame at a time: depths may be a generator
+        covered = np.asarray(z)[np.asarray(a) > MAP_COVERED]
+        if covered.size:
+            near, far = min(near, float(covered.min())), max(far, float(covered.max()))
+    if near == math.inf:
+        near, far = 0.0, 1.0
     return near, (far if far > near else near + 1.0)
 
 

@@ -20,7 +20,7 @@ from splatter.deliver.fileio import atomic_path
 from splatter.deliver.png import write_png_encoded
 from splatter.deliver.sheet import sheet_layout
 
-__all__ = ["gif_delays", "gif_frame", "write_gif_codes", "ContactSheet", "write_mp4_codes", "write_contact_codes", "checker", "over_checker", "write_gif", "write_mp4", "write_contact_sheet"]
+__all__ = ["gif_delays", "gif_frame", "write_gif_codes", "ContactSheet", "Mp4Stream", "write_mp4_codes", "write_contact_codes", "checker", "over_checker", "write_gif", "write_mp4", "write_contact_sheet"]
 
 # Two neutral greys, given as sRGB code values (102 and 153 of 255) so the
 # checker looks even on screen; composited in linear light.
@@ -234,19 +234,81 @@ def write_mp4(path, frames_premult_linear, fps, *, exposure=0.0, quality=8, repe
 
 
 def write_mp4_codes(path, codes, fps, *, quality=8, repeat=1):
-    """:func:`write_mp4` from frames already over the checker: a list of (H, W, 3) uint8 codes of even size."""
-    import imageio.v2 as iio2
+    """:func:`write_mp4` from frames already over the checker: an iterable of (H, W, 3) uint8 codes of even size."""
+    stream = Mp4Stream(path, fps, quality=quality)
+    try:
+        for _ in range(repeat):
+            for c in codes:
+                stream.add(c)
+        return stream.write()
+    except BaseException:
+        stream.abort()
+        raise
 
-    with atomic_path(path, suffix=".mp4") as tmp:
-        writer = iio2.get_writer(tmp, format="FFMPEG", mode="I", fps=fps, codec="libx264", quality=quality,
-                                 pixelformat="yuv420p", macro_block_size=1, ffmpeg_log_level="error")
+
+class Mp4Stream:
+    """An H.264 MP4 (yuv420p) encoded as its frames come: each one is piped to ffmpeg at once.
+
+    Nothing but ffmpeg's own look-ahead is held, so a long clip costs no more
+    memory than a short one. The file is written under a hidden temporary
+    name in the target's folder and renamed over ``path`` by :meth:`write`;
+    :meth:`abort` stops ffmpeg and removes it, leaving no half-written file.
+    The bytes are those of :func:`write_mp4_codes` with the same frames.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        Target ``.mp4`` file; its folder must exist.
+    fps : float
+    quality : float
+        imageio-ffmpeg quality, 0 (worst) to 10 (best).
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> s = Mp4Stream(os.path.join(tempfile.mkdtemp(), "lamp.mp4"), 24)
+    >>> for k in range(3):
+    ...     s.add(np.full((16, 16, 3), 40 * k, np.uint8))
+    >>> os.path.basename(s.write())
+    'lamp.mp4'
+    """
+
+    def __init__(self, path, fps, *, quality=8):
+        import imageio.v2 as iio2
+
+        self.path = os.fspath(path)
+        self._file = atomic_path(self.path, suffix=".mp4")
+        tmp = self._file.__enter__()
         try:
-            for _ in range(repeat):
-                for c in codes:
-                    writer.append_data(c)
-        finally:
-            writer.close()
-    return os.fspath(path)
+            self._writer = iio2.get_writer(tmp, format="FFMPEG", mode="I", fps=fps, codec="libx264",
+                                           quality=quality, pixelformat="yuv420p", macro_block_size=1,
+                                           ffmpeg_log_level="error")
+        except BaseException as err:
+            self._file.__exit__(type(err), err, err.__traceback__)
+            raise
+
+    def add(self, code):
+        """Encode the next frame: (H, W, 3) uint8 codes, every frame the same even size."""
+        self._writer.append_data(code)
+
+    def write(self):
+        """Finish the file and put it in place; return its path."""
+        try:
+            self._writer.close()
+        except BaseException as err:
+            self._file.__exit__(type(err), err, err.__traceback__)
+            raise
+        self._file.__exit__(None, None, None)
+        return self.path
+
+    def abort(self):
+        """Stop ffmpeg and remove the unfinished file (the target is left as it was)."""
+        err = RuntimeError("MP4 preview aborted")
+        try:
+            self._writer.close()
+        except Exception:  # ffmpeg may already be gone; the file goes either way
+            pass
+        self._file.__exit__(RuntimeError, err, None)
 
 
 def write_contact_sheet(path, frames_premult_linear, *, columns=None, label=True, numbers=None, exposure=0.0,

@@ -97,7 +97,9 @@ __all__ = [
     "assemble_sheet",
     "write_sheet",
     "CodeSheetStream",
+    "TileSheetStream",
     "encode_cell",
+    "cell_tile",
     "SCHEMA_VERSION",
 ]
 
@@ -135,6 +137,15 @@ def place_frame(sheet, layout, k, frame, *, clip_alpha=True):
     clip_alpha : bool
         See :func:`assemble_sheet`.
     """
+    f = _frame_3d(layout, k, frame)
+    if f.shape[2] != sheet.shape[2]:
+        raise ValueError(f"frames[{k}]: {f.shape[2]} channels, frame 0 has {sheet.shape[2]}")
+    cell = layout.cells[k]
+    sheet[cell.y : cell.y + cell.h, cell.x : cell.x + cell.w] = _cell_content(f, cell, clip_alpha)
+
+
+def _frame_3d(layout, k, frame):
+    """``frame`` as an (H, W, C) array of the layout's frame size (a 2-D frame gets one channel)."""
     f = np.asarray(frame)
     if f.ndim == 2:
         f = f[..., None]
@@ -142,10 +153,7 @@ def place_frame(sheet, layout, k, frame, *, clip_alpha=True):
         raise ValueError(
             f"frames[{k}]: expected shape ({layout.frame_height}, {layout.frame_width}, C), got {np.shape(frame)}"
         )
-    if f.shape[2] != sheet.shape[2]:
-        raise ValueError(f"frames[{k}]: {f.shape[2]} channels, frame 0 has {sheet.shape[2]}")
-    cell = layout.cells[k]
-    sheet[cell.y : cell.y + cell.h, cell.x : cell.x + cell.w] = _cell_content(f, cell, clip_alpha)
+    return f
 
 
 def _cell_content(f, cell, clip_alpha=True):
@@ -300,21 +308,123 @@ def encode_cell(layout, k, frame, *, alpha="straight", png_bits=8, exposure=0.0)
     if f.ndim != 3 or f.shape[:2] != (layout.frame_height, layout.frame_width) or f.shape[2] != 4:
         raise ValueError(f"frames[{k}]: expected shape ({layout.frame_height}, {layout.frame_width}, 4), "
                          f"got {np.shape(frame)}")
+    return _encode_tile(cell_tile(layout, k, f), alpha, png_bits, exposure)
+
+
+def cell_tile(layout, k, frame, *, background=None, clip_alpha=True):
+    """Frame ``k``'s tile: its cell, gutter included, as float32, as the whole sheet would hold it there.
+
+    Parameters
+    ----------
+    layout : SheetLayout
+    k : int
+        Frame index (its cell).
+    frame : (layout.frame_height, layout.frame_width, C) float ndarray
+        Resampled to the cell's content size when it differs (see :func:`place_frame`).
+    background : sequence of float, optional
+        The gutter's value per channel (see :func:`assemble_sheet`); default 0.
+    clip_alpha : bool
+        See :func:`assemble_sheet`.
+
+    Returns
+    -------
+    (cell.h + 2 padding, cell.w + 2 padding, C) float32 ndarray
+
+    Examples
+    --------
+    >>> lay = sheet_layout(1, 2, 2, columns=1, padding=1)
+    >>> cell_tile(lay, 0, np.ones((2, 2, 1)), background=[0.5])[..., 0].tolist()
+    [[0.5, 0.5, 0.5, 0.5], [0.5, 1.0, 1.0, 0.5], [0.5, 1.0, 1.0, 0.5], [0.5, 0.5, 0.5, 0.5]]
+    """
+    f = _frame_3d(layout, k, frame)
     cell, pad = layout.cells[k], layout.padding
-    tile = np.zeros((cell.h + 2 * pad, cell.w + 2 * pad, 4), dtype=np.float32)
-    tile[pad : pad + cell.h, pad : pad + cell.w] = _cell_content(f, cell)
-    return _encode_tile(tile, alpha, png_bits, exposure)
+    tile = np.empty((cell.h + 2 * pad, cell.w + 2 * pad, f.shape[2]), dtype=np.float32)
+    tile[...] = 0.0 if background is None else np.asarray(background, dtype=np.float32).reshape(-1)[: f.shape[2]]
+    tile[pad : pad + cell.h, pad : pad + cell.w] = _cell_content(f, cell, clip_alpha)
+    return tile
 
 
-class CodeSheetStream:
-    """A PNG sheet encoded as its cells arrive, cell row by cell row.
+class TileSheetStream:
+    """A sheet of integer codes encoded as its cells' tiles arrive, cell row by cell row.
 
     Cells come in frame order (the layout fills the sheet row by row), so
     once a cell row is complete its scanlines are final: they are filtered
     and compressed (:class:`splatter.deliver.png.PngStream`) and dropped.
     Memory is one cell row of 8- or 16-bit codes and the compressed bytes,
     not the whole sheet; the file is the same, byte for byte, as the whole
-    sheet of codes written at once.
+    sheet of codes written at once. Texels no tile covers (cells past the
+    last frame, gaps beside resampled cells) hold ``fill``.
+
+    Parameters
+    ----------
+    layout : SheetLayout
+    channels : int
+        1 to 4 (grey, grey + alpha, RGB, RGBA).
+    dtype : {numpy.uint8, numpy.uint16}
+    srgb : bool
+        Colour chunks (colour sheets) or none (data maps).
+    text : dict of str to str, optional
+        ``tEXt`` chunks.
+    fill : int or sequence of int
+        The codes of texels outside every tile, one per channel or one for all.
+
+    Examples
+    --------
+    >>> import tempfile
+    >>> from splatter.deliver.png import read_png
+    >>> lay = sheet_layout(3, 2, 2, columns=2)
+    >>> s = TileSheetStream(lay, 1, np.uint8, srgb=False, fill=255)
+    >>> for k in range(3):
+    ...     s.put(k, np.full((2, 2, 1), 10 * k, np.uint8))
+    >>> read_png(s.write_image(os.path.join(tempfile.mkdtemp(), "grey.png")))[0][..., 0].tolist()
+    [[0, 0, 10, 10], [0, 0, 10, 10], [20, 20, 255, 255], [20, 20, 255, 255]]
+    """
+
+    def __init__(self, layout, channels, dtype, *, srgb, text=None, fill=0):
+        self.layout = layout
+        self._png = PngStream(layout.width, layout.height, channels, dtype, srgb=srgb, text=text)
+        pad = layout.padding
+        tops = [c.y - pad for c in layout.cells] + [layout.height]
+        # Rows above every later cell's tile are final once cell k is in.
+        self._final = [min(tops[k + 1 :]) for k in range(len(layout.cells))]
+        self._fill = np.broadcast_to(np.asarray(fill, dtype=dtype).reshape(-1), (channels,)).copy()
+        # One cell row: every cell of a row has the same top and height.
+        self._band = np.empty((layout.cell_height, layout.width, channels), dtype=dtype)
+        self._band[:] = self._fill
+        self._base = 0  # sheet row of the band's first row
+        self._next = 0  # the cell expected next
+
+    def put(self, k, tile):
+        """Place cell ``k``'s tile (its cell, gutter included, as codes); cells must come in order 0, 1, 2, ..."""
+        if k != self._next:
+            raise RuntimeError(f"sheet cells must come in order: expected cell {self._next}, got {k}")
+        cell, pad = self.layout.cells[k], self.layout.padding
+        if cell.y - pad != self._base or tile.shape[0] != self._band.shape[0]:
+            raise RuntimeError(f"cell {k} is not in the cell row being assembled")
+        self._band[:, cell.x - pad : cell.x + cell.w + pad] = tile
+        self._next += 1
+        self._flush(self._final[k])
+
+    def _flush(self, upto):
+        """Encode the sheet's rows up to ``upto`` (exclusive): the band, then empty cell rows."""
+        n = upto - self._base
+        if n <= 0:
+            return
+        band = self._band
+        for r in range(0, n, band.shape[0]):  # rows past the band are empty cell rows below the last frame
+            self._png.add_rows(band[: min(n - r, band.shape[0])])
+            band[:] = self._fill
+        self._base = upto
+
+    def write_image(self, path):
+        """Write the PNG once every cell is in; return ``path``."""
+        if self._next != len(self.layout.cells):
+            raise RuntimeError(f"the sheet has {len(self.layout.cells)} cells, {self._next} came")
+        return self._png.write(path)
+
+
+class CodeSheetStream(TileSheetStream):
+    """The colour sheet as a :class:`TileSheetStream`: RGBA sRGB codes, written with its JSON.
 
     Parameters
     ----------
@@ -338,50 +448,17 @@ class CodeSheetStream:
     def __init__(self, layout, png_bits, *, alpha="straight"):
         check_choice(png_bits, "png_bits", PNG_BITS)
         check_choice(alpha, "alpha", PNG_ALPHAS)
-        self.layout, self.alpha = layout, alpha
+        self.alpha = alpha
         text = {"Software": "splatter"}
         if alpha == "premultiplied":
             text["splatter.alpha"] = "premultiplied"
-        dtype = np.uint8 if png_bits == 8 else np.uint16
-        self._png = PngStream(layout.width, layout.height, 4, dtype, srgb=True, text=text)
-        pad = layout.padding
-        tops = [c.y - pad for c in layout.cells] + [layout.height]
-        # Rows above every later cell's tile are final once cell k is in.
-        self._final = [min(tops[k + 1 :]) for k in range(len(layout.cells))]
-        # One cell row: every cell of a row has the same top and height.
-        self._band = np.zeros((layout.cell_height, layout.width, 4), dtype=dtype)
-        self._base = 0  # sheet row of the band's first row
-        self._next = 0  # the cell expected next
-
-    def put(self, k, tile):
-        """Place cell ``k``'s tile (from :func:`encode_cell`); cells must come in order 0, 1, 2, ..."""
-        if k != self._next:
-            raise RuntimeError(f"sheet cells must come in order: expected cell {self._next}, got {k}")
-        cell, pad = self.layout.cells[k], self.layout.padding
-        if cell.y - pad != self._base or tile.shape[0] != self._band.shape[0]:
-            raise RuntimeError(f"cell {k} is not in the cell row being assembled")
-        self._band[:, cell.x - pad : cell.x + cell.w + pad] = tile
-        self._next += 1
-        self._flush(self._final[k])
-
-    def _flush(self, upto):
-        """Encode the sheet's rows up to ``upto`` (exclusive): the band, then empty cell rows."""
-        n = upto - self._base
-        if n <= 0:
-            return
-        band = self._band
-        for r in range(0, n, band.shape[0]):  # rows past the band are empty cell rows below the last frame
-            self._png.add_rows(band[: min(n - r, band.shape[0])])
-            band[:] = 0
-        self._base = upto
+        super().__init__(layout, 4, np.uint8 if png_bits == 8 else np.uint16, srgb=True, text=text)
 
     def write(self, dir, name, *, fps=30, loop="none", maps=None):
         """Write ``{name}.sheet.png`` and ``{name}.sheet.json`` once every cell is in; return both paths."""
-        if self._next != len(self.layout.cells):
-            raise RuntimeError(f"the sheet has {len(self.layout.cells)} cells, {self._next} came")
         dir = os.fspath(dir)
         image = sheet_file(name, "png")
-        self._png.write(os.path.join(dir, image))
+        self.write_image(os.path.join(dir, image))
         return [os.path.join(dir, image),
                 _write_sheet_meta(dir, name, image, "png", self.layout, fps, loop, self.alpha, "srgb", maps)]
 

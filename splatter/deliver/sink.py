@@ -6,8 +6,13 @@ compositing of the next frame); at :meth:`OutputSink.finish` it writes the
 sheets and previews, which need the whole clip.  Frames kept for sheets cost
 little memory: PNG sheets are encoded cell row by cell row as frames come
 (:class:`~splatter.deliver.sheet.CodeSheetStream`), EXR sheets are held at
-their file's pixel type, GIF frames as palette images (one byte a pixel) and
-the contact sheet as its finished 8-bit image.
+their file's pixel type, the normal and light-direction map sheets are
+encoded like the colour sheet
+(:class:`~splatter.deliver.map_sheets.ArrivalMapSheets`), GIF frames kept as
+palette images (one byte a pixel), MP4 frames encoded as they come and the
+contact sheet kept as its finished 8-bit image. Only the motion and depth
+layers (and alpha) of every frame wait for the end, for their clip-wide
+ranges.
 """
 
 from __future__ import annotations
@@ -25,12 +30,7 @@ from splatter.core.sheet_grid import partial_grid
 from splatter.deliver.exr import rgba_channels, write_exr
 from splatter.deliver.map_encode import normal_convention
 from splatter.deliver.map_frames import is_ranged, write_map_frame, write_ranged_map_frames
-from splatter.deliver.map_sheets import (
-    write_depth_sheet,
-    write_lightdirs_map,
-    write_motion_sheet,
-    write_normal_sheet,
-)
+from splatter.deliver.map_sheets import ArrivalMapSheets, write_depth_sheet, write_motion_sheet
 from splatter.deliver.names import file_stem, frame_file, preview_file
 from splatter.deliver.png import write_png
 from splatter.deliver.preview import (
@@ -38,7 +38,7 @@ from splatter.deliver.preview import (
     gif_frame,
     over_checker,
     write_gif_codes,
-    write_mp4_codes,
+    Mp4Stream,
 )
 from splatter.deliver.sheet import (
     CodeSheetStream,
@@ -122,10 +122,11 @@ class OutputSink:
     arrive, overlapping the compositing of the next: frame files, the frame's
     sheet cell (PNG sheets are encoded cell by cell, so memory is one 8/16-bit
     sheet, not every frame), the preview frames over the checker, and the normal and
-    light-direction map PNGs of ``output.map_frames``. Map sheets, and the motion
-    and depth map PNGs, keep their layers and the frames' alpha until the end,
-    since their encodings use clip-wide ranges (without a sheet only motion and
-    depth layers are kept).
+    light-direction map PNGs of ``output.map_frames``, and the frame's tiles of the
+    normal and light-direction sheets (encoded on their own, like the colour
+    sheet's cells). The motion and depth sheets and map PNGs keep their layers
+    and the frames' alpha until the end, since their encodings use clip-wide
+    ranges; they are then written one cell row at a time.
 
     :attr:`on_frame`, when set, is called on the writer thread once a
     frame's files are in place, with the frame number, the paths written
@@ -150,10 +151,11 @@ class OutputSink:
         self._pending: List[Future] = []
         self._layout = None
         self._sheet = None
+        self._arrival: Optional[ArrivalMapSheets] = None  # normal and light-direction sheets
         self._sheet_alpha: List[np.ndarray] = []
         self._sheet_layers: Dict[str, List[np.ndarray]] = {}
         self._gif: List = []  # palette images (gif_frame)
-        self._mp4: List[np.ndarray] = []
+        self._mp4: Optional[Mp4Stream] = None  # opened at the first frame, frames piped to ffmpeg as they come
         self._contact: Optional[ContactSheet] = None
         self._frame_numbers: List[int] = []
         self.on_frame: Optional[Callable[[int, List[str], Dict[str, np.ndarray]], None]] = None
@@ -165,7 +167,7 @@ class OutputSink:
         index = self._start(frame, rgba.shape[:2])
         keep = self._kept_layers(layers)
         if keep:
-            self._sheet_alpha.append(rgba[..., 3])
+            self._sheet_alpha.append(rgba[..., 3].copy())  # a view would keep the whole RGBA frame alive
             for k, v in keep.items():
                 self._sheet_layers.setdefault(k, []).append(v)
         self._submit(self._take_frame, index, frame, rgba, layers)
@@ -186,10 +188,11 @@ class OutputSink:
         self._submit(self._merge, index, kept)
 
     def _kept_layers(self, layers: Dict[str, np.ndarray]) -> Dict[str, np.ndarray]:
-        """The map layers kept to the end: all for map sheets; without a sheet the motion
-        and depth layers of ``map_frames``, whose encodings use clip-wide ranges."""
+        """The map layers kept to the end: the motion and depth layers of the map sheets and
+        ``map_frames``, whose encodings use clip-wide ranges (normal and light-direction
+        sheets are encoded as frames arrive)."""
         out = self.look.output
-        return {k: v for k, v in layers.items() if out.sheet is not None or (out.map_frames and is_ranged(k))}
+        return {k: v for k, v in layers.items() if (out.sheet is not None or out.map_frames) and is_ranged(k)}
 
     def _start(self, frame: int, shape) -> int:
         """Record ``frame``; lay the sheet out on the first one. Returns its index (its cell)."""
@@ -208,6 +211,8 @@ class OutputSink:
                 self._sheet = CodeSheetStream(self._layout, out.png_bits, alpha=out.png_alpha)
             else:  # held at the file's pixel type: float16 rounds as the EXR writer would
                 self._sheet = empty_sheet(self._layout, 4, dtype=np.float16 if out.exr_type == "half" else np.float32)
+            self._arrival = ArrivalMapSheets(self._layout, out.maps, format=spec.format, png_bits=out.png_bits,
+                                             exr_type=out.exr_type, y_down=out.normal_y == "down") or None
         return index
 
     def _submit(self, fn, *args) -> None:
@@ -235,6 +240,8 @@ class OutputSink:
                 place_frame(self._sheet, self._layout, index, rgba)
                 c = self._layout.cells[index]
                 part["tile"] = self._sheet[c.y : c.y + c.h, c.x : c.x + c.w].copy()
+        if self._arrival is not None:
+            part.update(self._arrival.tiles(index, layers, rgba[..., 3]))
         if out.preview:
             exp = self.look.shading.exposure
             if set(out.preview) - {"contact"}:
@@ -263,11 +270,16 @@ class OutputSink:
             else:
                 c = self._layout.cells[index]
                 self._sheet[c.y : c.y + c.h, c.x : c.x + c.w] = part["tile"]
+        if self._arrival is not None:
+            self._arrival.put(index, part)
         if "anim" in part:
             if "gif" in self.look.output.preview:
                 self._gif.append(gif_frame(part["anim"]))
             if "mp4" in self.look.output.preview:
-                self._mp4.append(part["anim"])
+                if self._mp4 is None:
+                    self._mp4 = Mp4Stream(os.path.join(self.out_dir, preview_file(file_stem(self.look), "mp4")),
+                                          self.look.clip.fps)
+                self._mp4.add(part["anim"])
         if "thumb" in part:
             if self._contact is None:
                 self._contact = ContactSheet(self.numbers[: self.n_frames], *part["thumb"].shape[:2])
@@ -312,10 +324,13 @@ class OutputSink:
         return sorted(self.files)
 
     def abort(self) -> None:
-        """Stop the writer thread without writing sheets or previews."""
+        """Stop the writer thread without writing sheets or previews (the unfinished MP4 is removed)."""
         for fut in self._pending:
             fut.cancel()
         self._pool.shutdown(wait=True, cancel_futures=True)
+        mp4, self._mp4 = self._mp4, None
+        if mp4 is not None:
+            mp4.abort()
 
     def _write_sheets(self) -> None:
         look, spec, layout = self.look, self.look.output.sheet, self._layout
@@ -332,11 +347,9 @@ class OutputSink:
             maps["motion"] = write_motion_sheet(d, name, layout, layers, alpha, w, h, common)
         if "depth.z" in layers:
             maps["depth"] = write_depth_sheet(d, name, layout, layers["depth.z"], alpha, common)
-        if "normal.x" in layers:
-            maps["normal"] = write_normal_sheet(d, name, layout, layers, alpha, common,
-                                                y_down=look.output.normal_y == "down")
-        if "lightdirs_pos.x" in layers:
-            maps["lightdirs"] = write_lightdirs_map(d, name, layout, layers, alpha, png_bits=look.output.png_bits)
+        if self._arrival is not None:
+            maps.update(self._arrival.write(d, name))
+            self._arrival = None
         for entry in maps.values():
             for f in entry.get("files", [entry.get("file")]):
                 self.files.append(os.path.join(self.out_dir, f))
@@ -359,7 +372,8 @@ class OutputSink:
                 frames, self._gif = self._gif, []
                 write_gif_codes(path, _drain(frames), look.clip.fps, n_frames=len(frames))
             elif kind == "mp4":
-                write_mp4_codes(path, self._mp4, look.clip.fps)
+                mp4, self._mp4 = self._mp4, None
+                mp4.write()
             else:
                 contact, self._contact = self._contact, None
                 contact.write(path)
