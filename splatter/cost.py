@@ -51,6 +51,7 @@ from dataclasses import dataclass, field
 from typing import Dict, List, Optional
 
 from splatter.core.errors import LookError
+from splatter.deliver.map_frames import RANGED_MAPS
 from splatter.deliver.sink import check_outputs
 from splatter.fit import FIT_PUFFS
 from splatter.look.records import LookSpec
@@ -90,7 +91,6 @@ LIMIT_SHARE = 0.8
 _PART_KEYS = {"simulation": "source.rate", "compositing": "source.size", "frames": "image",
               "sheets": "output.sheet", "previews": "output.preview", "framing": "clip.frames"}
 _MAP_CHANNELS = {"motion": 2, "depth": 1, "normal": 3, "lightdirs": 6}
-_RANGED_MAPS = ("motion", "depth")  # encoded with the clip's ranges, so kept to the end
 _FILE_CHANNELS = {"png": {"motion": 3, "depth": 1, "normal": 3, "lightdirs": 6},
                   "exr": {"motion": 2, "depth": 1, "normal": 3}}
 
@@ -283,7 +283,7 @@ def estimate_cost(look: LookSpec, plan: SimPlan, pixel_size: float, n_frames: in
         layout = check_outputs(look, n_frames)
         per = 4 * (out.png_bits // 8) if out.sheet.format == "png" else (8 if out.exr_type == "half" else 16)
         sheets = float(layout.width * layout.height) * per
-        ranged = sum(_MAP_CHANNELS[m] for m in out.maps if m in _RANGED_MAPS)
+        ranged = sum(_MAP_CHANNELS[m] for m in out.maps if m in RANGED_MAPS)
         if ranged:  # motion and depth wait for the clip's ranges: their layers and alpha of every frame
             sheets += float(px) * (ranged + 1) * 4 * n_frames
         sheets += float(layout.width * layout.height) * _map_sheet_bytes(out)

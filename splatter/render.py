@@ -477,6 +477,7 @@ def render(look, *, out_dir: Optional[str] = None, frames: Optional[Iterable[int
         timings["total"] = time.perf_counter() - t_start
         return RenderResult(name=look.name, out_dir=folder, frames=wanted, seconds=timings)
     fresh = _frame_layers(look, plan, camera, todo, timings)
+    pending = set(todo)
     sink = OutputSink(look, folder, len(wanted), frames=wanted, loop=plan.effective_loop)
     borders: Dict[int, tuple] = {}
 
@@ -500,6 +501,10 @@ def render(look, *, out_dir: Optional[str] = None, frames: Optional[Iterable[int
                 if border > worst[0]:
                     worst = (border, want, share)
                 sink.add_kept(want, kept)
+                if bar is not None:
+                    bar.update(1)
+                continue
+            if want not in pending:  # finished by an earlier run, and nothing of it needs keeping
                 if bar is not None:
                     bar.update(1)
                 continue

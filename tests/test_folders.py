@@ -238,3 +238,20 @@ def test_shares_kept_by_another_version_are_rendered_again_not_trusted(tmp_path,
         quiet_render(look, folder, resume=True)
     assert rendered[0] == 0 and rendered[1:] == list(range(len(parts), 12))
     assert digests(folder, manifest=True) == whole
+
+
+@pytest.mark.parametrize("extra", [
+    "[output]\nframes = ['png']\n",  # frames only: nothing of a finished frame needs keeping
+    "[output]\nframes = ['png']\nmaps = ['motion']\nmap_frames = true\n",  # per-frame maps with the clip's range
+])
+def test_resume_without_a_sheet_or_preview_has_the_bytes_of_an_uninterrupted_render(tmp_path, monkeypatch, extra):
+    text = SMALL_PLUME.replace('[output]\nframes = ["png", "exr"]\nexr_type = "float"\n', "")
+    look = load_look(write_look(tmp_path, text, extra=extra))
+    whole = digests(_render(look, tmp_path / "whole"), manifest=True)
+    folder = tmp_path / "resumed"
+    with monkeypatch.context() as m:
+        _interrupt_after(m, 5)
+        with pytest.raises(KeyboardInterrupt):
+            quiet_render(look, folder)
+    quiet_render(look, folder, resume=True)
+    assert digests(folder, manifest=True) == whole

@@ -51,6 +51,7 @@ import numpy as np
 
 from splatter.core.errors import LookError, LookWarning
 from splatter.deliver.fileio import atomic_path, atomic_write_text
+from splatter.deliver.map_frames import RANGED_MAPS
 from splatter.deliver.names import FRAME_FILE, file_stem, frame_file, manifest_file, planned_files
 from splatter.look.records import LookSpec
 
@@ -185,7 +186,10 @@ class RenderFolder:
         self.digest = look_digest(look)
         self.resume = resume
         out = look.output
-        self.keeps_parts = bool(out.sheet is not None or out.preview)  # whole-clip outputs need every frame
+        # Whole-clip outputs need every frame: sheets, previews, and per-frame motion or depth
+        # PNGs, whose encoding takes its range from the whole clip.
+        self.keeps_parts = bool(out.sheet is not None or out.preview
+                                or (out.map_frames and any(m in RANGED_MAPS for m in out.maps)))
         self.parts_dir = os.path.join(folder, f".{self.stem}.resume")
         self.kept: Dict[int, Dict[str, np.ndarray]] = {}
         self.complete_already = False

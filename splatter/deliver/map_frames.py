@@ -37,7 +37,10 @@ from splatter.deliver.map_sheets import dilate_under, lightdir_entry
 from splatter.deliver.names import LIGHTDIR_SHEETS, map_frame_file
 from splatter.deliver.png import write_png_encoded
 
-__all__ = ["write_map_frame", "write_ranged_map_frames", "is_ranged", "MAP_TEXT_KEY"]
+__all__ = ["write_map_frame", "write_ranged_map_frames", "is_ranged", "RANGED_MAPS", "MAP_TEXT_KEY"]
+
+RANGED_MAPS = ("motion", "depth")
+"""Maps encoded with the clip's ranges (motion scale, depth near and far), so kept to the end."""
 
 MAP_TEXT_KEY = "splatter.map"
 """``tEXt`` keyword of the JSON entry that describes a per-frame map PNG."""
@@ -51,7 +54,7 @@ def is_ranged(layer: str) -> bool:
     >>> is_ranged("motion.x"), is_ranged("normal.y")
     (True, False)
     """
-    return layer.startswith(("motion.", "depth."))
+    return layer.split(".", 1)[0] in RANGED_MAPS
 
 
 def _write(out_dir, name, map_name, frame_numbers, frames, entry, png_bits, out):
