@@ -35,8 +35,8 @@ from splatter.sim.shaping import largest_stretch
 from splatter.view.camera import _check_array
 
 __all__ = ["visible_reach", "fit_view", "fit_spheres", "deciding_spheres", "widened", "pixel_points",
-           "puff_spheres", "deciding_puff_spheres", "fit_camera", "border_alpha_share", "max_border_alpha", "cut_by_border",
-           "RIM_VISIBLE_OPACITY"]
+           "puff_spheres", "deciding_puff_spheres", "fit_camera", "border_alpha_share", "max_border_alpha",
+           "cut_by_border", "RIM_VISIBLE_OPACITY"]
 
 RIM_SHARE = 0.25
 """Share of ``camera.fit_alpha`` each puff is framed out to: overlapping rims of steam
