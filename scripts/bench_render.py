@@ -21,13 +21,24 @@ and once with its 8 x 8 sheet, GIF and contact sheet, and prints the time per
 stage, how much the sheet and previews add, and each process's peak memory
 beside the finished sheet's 8-bit size.
 
+With ``--rate-scale X`` (beside ``--demo``) every source's rate is multiplied
+by ``X`` (the chimney at ``--rate-scale 3.2`` holds about 200,000 live
+puffs) and only the frames-only case runs; the script prints the mean
+number of live puffs the rendered frames hold, counted as they are
+simulated.
+
 With ``--flow`` it renders the flow demo (``looks/beach_bonfire.toml``, 64
 frames with its sheet and previews, ``--size`` px) twice in separate
 processes: with its convection flow, and with a lift force in the flow's
 place (the same look without the flow), and prints the time per stage and
 their ratio (goal: the flow at most 2x).
 
-Usage: python scripts/bench_render.py [--frames N] [--keep DIR] [--demo] [--flow [--size PX]]
+To time another checkout's code with this script, run it with that checkout's
+interpreter from outside either tree (the timed renders run in child
+processes that import ``splatter`` from the interpreter's installation):
+``cd /tmp && /other/.venv/bin/python /this/scripts/bench_render.py --demo``.
+
+Usage: python scripts/bench_render.py [--frames N] [--keep DIR] [--demo [--rate-scale X]] [--flow [--size PX]]
 """
 
 from __future__ import annotations
@@ -121,36 +132,66 @@ def run(look_path, out_dir, overrides=()):
 
 DEMO_CHILD = """
 import json, resource, sys, time
+import splatter.render as render_module
 from splatter.look.load import load_look
-from splatter.render import render
+live = []
+simulate = render_module.simulate
+def counting(look, plan=None, **kw):  # the rendered frames' live puffs (the fit's sampled frames are not counted)
+    for state in simulate(look, plan, **kw):
+        if kw.get("sample", 1) == 1:
+            live.append(len(state.size))
+        yield state
+render_module.simulate = counting
 look = load_look(sys.argv[1], overrides=sys.argv[3:])
 t0 = time.perf_counter()
-res = render(look, out_dir=sys.argv[2], progress=False)
-sec = dict(res.seconds, wall=time.perf_counter() - t0, peak_kb=resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)
+res = render_module.render(look, out_dir=sys.argv[2], progress=False)
+sec = dict(res.seconds, wall=time.perf_counter() - t0, peak_kb=resource.getrusage(resource.RUSAGE_SELF).ru_maxrss,
+           live=sum(live) / max(1, len(live)))
 print(json.dumps(sec))
 """
 
 
-def demo(work: Path) -> int:
-    """Render the demo chimney with and without its sheet and previews, each in its own process."""
+def rate_overrides(look_path: Path, scale: float) -> list:
+    """``--set`` overrides multiplying every source's rate of ``look_path`` by ``scale``."""
+    from splatter.look.load import load_look
+
+    return [f"source.{i}.rate={src.rate * scale!r}" for i, src in enumerate(load_look(look_path).sources)]
+
+
+def demo(work: Path, rate_scale: float = 1.0) -> int:
+    """Render the demo chimney with and without its sheet and previews, each in its own process.
+
+    With ``rate_scale`` other than 1 every source's rate is scaled and only the frames-only case runs.
+    """
     import json
     import subprocess
 
     look = HERE.parent / "looks" / "harbour_chimney.toml"
+    scaled = rate_overrides(look, rate_scale) if rate_scale != 1.0 else []
     cases = [("frames only", ["output.sheet=false", "output.preview=[]"]), ("with sheet + previews", [])]
-    subprocess.run([sys.executable, "-c", DEMO_CHILD, str(look), str(work / "warm"), "clip.frames=2"],
+    if scaled:
+        cases = cases[:1]
+    subprocess.run([sys.executable, "-c", DEMO_CHILD, str(look), str(work / "warm"), "clip.frames=2", *scaled],
                    check=True, capture_output=True)  # fill the JIT cache
     stages = ["fit", "simulate", "light", "project", "composite", "queue", "write"]
-    print(f"{'case':<22} {'wall s':>7} {'peak GB':>8} " + " ".join(f"{s:>9}" for s in stages))
-    walls, peaks = {}, {}
+    if scaled:
+        print(f"source rates x {rate_scale:g}")
+    print(f"{'case':<22} {'wall s':>7} {'peak GB':>8} {'live':>8} " + " ".join(f"{s:>9}" for s in stages))
+    walls, peaks, staged = {}, {}, {}
     for label, over in cases:
-        run_ = subprocess.run([sys.executable, "-c", DEMO_CHILD, str(look), str(work / label[:5]), *over],
+        run_ = subprocess.run([sys.executable, "-c", DEMO_CHILD, str(look), str(work / label[:5]), *over, *scaled],
                               check=True, capture_output=True, text=True)
         sec = json.loads(run_.stdout.strip().splitlines()[-1])
         walls[label] = sec["wall"]
         peaks[label] = sec["peak_kb"] / 1e6
+        staged[label] = sum(sec.get(s, 0.0) for s in stages[:5])
         peak_txt = f"{peaks[label]:8.2f}"
-        print(f"{label:<22} {sec['wall']:7.2f} {peak_txt} " + " ".join(f"{sec.get(s, 0.0):9.2f}" for s in stages))
+        print(f"{label:<22} {sec['wall']:7.2f} {peak_txt} {sec.get('live', 0.0):8.0f} "
+              + " ".join(f"{sec.get(s, 0.0):9.2f}" for s in stages))
+    print("fit + simulate + light + project + composite: "
+          + ", ".join(f"{label} {sec_:.2f} s" for label, sec_ in staged.items()))
+    if scaled:
+        return 0
     extra = walls["with sheet + previews"] - walls["frames only"]
     print()
     print(f"sheet + previews add {extra:.2f} s = {extra / walls['frames only']:.2f} of the frames-only render "
@@ -209,6 +250,8 @@ def main() -> int:
     ap.add_argument("--flow", action="store_true",
                     help="time the flow demo (beach bonfire) against the same look with lift instead of the flow")
     ap.add_argument("--size", type=int, default=512, help="with --flow: image width and height, px")
+    ap.add_argument("--rate-scale", type=float, default=1.0,
+                    help="with --demo: multiply every source's rate (3.2: about 200,000 live puffs); frames only")
     args = ap.parse_args()
     if args.flow:
         work = Path(args.keep or tempfile.mkdtemp(prefix="splatter-bench-"))
@@ -220,7 +263,7 @@ def main() -> int:
     if args.demo:
         work = Path(args.keep or tempfile.mkdtemp(prefix="splatter-bench-"))
         try:
-            return demo(work)
+            return demo(work, args.rate_scale)
         finally:
             if not args.keep:
                 shutil.rmtree(work, ignore_errors=True)

@@ -41,11 +41,11 @@ from splatter.raster.compositor import composite_features
 from splatter.view.camera import LOW_PASS, Camera, puff_covariances
 from splatter.view.framing import (
     RIM_SHARE,
+    deciding_puff_spheres,
     deciding_spheres,
     fit_spheres,
     max_border_alpha,
     pixel_points,
-    puff_spheres,
     widened,
 )
 
@@ -191,13 +191,11 @@ def _gather(camera, states, opacity_of, alpha, sample) -> Tuple[List[_Cloud], Tu
         show = peak > 0
         if not show.any():
             continue
-        p, r = puff_spheres(state, peak, rim)
+        p, r = deciding_puff_spheres(camera, state, peak, rim, margin=0.0)
         if p.shape[0] == 0:
-            p, r = puff_spheres(state, peak, 0.5 * float(peak[show].min()))
-        r = r * CUTOFF  # sigmas to the cutoff sphere
-        keep = deciding_spheres(camera, p, r, margin=0.0)
-        pts.append(p[keep])
-        rho.append(r[keep])
+            p, r = deciding_puff_spheres(camera, state, peak, 0.5 * float(peak[show].min()), margin=0.0)
+        pts.append(p)
+        rho.append(r * CUTOFF)  # sigmas to the cutoff sphere
         deform = getattr(state, "deform", None)
         cov = puff_covariances(state.size[show], state.aspect[show], state.quat[show], state.vel[show],
                                state.stretch[show], None if deform is None else deform[show])

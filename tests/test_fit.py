@@ -210,3 +210,40 @@ def test_fit_frames_a_lone_puff_out_to_the_alpha_its_edge_may_show(tmp_path, fit
     pad = 1.5 * 6 * 0.25 / 192 + 0.5 * cam.view_width / 64
     assert exact <= cam.view_width <= exact + 2 * pad / 0.9
     assert cam.eye[:2] == pytest.approx((0.0, 0.0), abs=0.01 * exact)
+
+
+def _random_stretched(rng, n):
+    """``n`` deformation gradients ``R1 diag(s) R2`` with det 1 and stretch ratios up to about 30."""
+    q = np.linalg.qr(rng.normal(size=(2 * n, 3, 3)))[0]
+    logs = rng.uniform(-1.7, 1.7, (n, 3))
+    logs -= logs.mean(axis=1, keepdims=True)
+    return np.ascontiguousarray(q[:n] * np.exp(logs)[:, None, :] @ q[n:])
+
+
+@pytest.mark.parametrize("projection", ["orthographic", "perspective"])
+def test_the_deciding_puff_spheres_are_those_of_every_puffs_exact_sphere(projection):
+    # The fit finds the few deciding spheres from bounds on each puff's largest stretch and
+    # takes the exact stretch (numpy's eigvalsh) only for the puffs the bounds cannot rule out;
+    # the picks must be those of deciding_spheres on every puff's exact sphere, to the bit,
+    # puffs of one size included (equal spheres whose sides tie) and rigid ones mixed in.
+    from types import SimpleNamespace as NS
+
+    from splatter.core.thresholds import CUTOFF
+    from splatter.view.camera import Camera
+    from splatter.view.framing import deciding_puff_spheres, deciding_spheres, puff_spheres
+
+    rng = np.random.default_rng(5)
+    cam = Camera(projection=projection, eye=(0.3, 1.0, 6.0), target=(0.0, 0.8, 0.0), width=96, height=64)
+    n = 4000
+    deform = _random_stretched(rng, n)
+    deform[::7] = np.eye(3)
+    for trial in range(6):
+        state = NS(pos=rng.normal(0.0, 0.6, (n, 3)), vel=rng.normal(0.0, 0.3, (n, 3)),
+                   size=np.full(n, 0.02) if trial == 0 else rng.uniform(0.01, 0.03, n),
+                   stretch=np.where(rng.random(n) < 0.2, 0.05, 0.0), deform=deform)
+        peak = rng.uniform(0.0, 0.2, n)
+        for margin in (0.0, 0.1):
+            p, r = puff_spheres(state, peak, 0.01)
+            keep = deciding_spheres(cam, p, r * CUTOFF, margin=margin)
+            q, s = deciding_puff_spheres(cam, state, peak, 0.01, margin=margin)
+            assert np.array_equal(q, p[keep]) and np.array_equal(s, r[keep])
