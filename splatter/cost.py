@@ -11,7 +11,7 @@ bytes):
 * **simulation**: the live puffs (about :data:`BYTES_PER_PUFF` each: the
   driver's buffers, one frame's state, its splats and the compositor's
   per-splat layout), plus the twin driver's held frames for exact loops;
-* **compositing**: the (tile, splat) pairs, 8 bytes each, from the largest
+* **compositing**: the (tile, splat) pairs, 16 bytes each (with slack), from the largest
   footprint a puff can reach (``size`` times the largest ``grow``, in pixels
   at the camera's target), and the row tables (at most
   :data:`splatter.raster.compositor.TABLE_BYTES`);
@@ -105,6 +105,8 @@ def _map_sheet_bytes(out) -> float:
         per = out.png_bits // 8 if fmt == "png" else (2 if out.exr_type == "half" else 4) * 2
         total += _FILE_CHANNELS[fmt][m] * per
     return total
+
+
 _SIZE = re.compile(r"^\s*([0-9]*\.?[0-9]+)\s*([kmgt]?)i?b?\s*$", re.IGNORECASE)
 
 

@@ -255,3 +255,27 @@ def test_resume_without_a_sheet_or_preview_has_the_bytes_of_an_uninterrupted_ren
             quiet_render(look, folder)
     quiet_render(look, folder, resume=True)
     assert digests(folder, manifest=True) == whole
+
+
+def test_a_killed_renders_temporary_files_go_and_damaged_shares_are_rendered_again(tmp_path, monkeypatch):
+    # A render killed outright (no Python clean-up) leaves its hidden temporaries; the next render
+    # of the same files removes them, and leaves other hidden files alone. A damaged kept share
+    # (a truncated zip) is not a traceback: its frame is rendered again.
+    text = SMALL_PLUME.replace('[output]\nframes = ["png", "exr"]\nexr_type = "float"\n', "")
+    look = load_look(write_look(tmp_path, text, extra=FULL))
+    whole = digests(_render(look, tmp_path / "whole"), manifest=True)
+    folder = tmp_path / "resumed"
+    with monkeypatch.context() as m:
+        _interrupt_after(m, 5)
+        with pytest.raises(KeyboardInterrupt):
+            quiet_render(look, folder)
+    left = folder / ".small_plume.preview.gif.0a1b2c3d.tmp.gif"
+    left.write_bytes(b"half a gif")
+    other = folder / ".notes.0a1b2c3d.tmp"
+    other.write_bytes(b"someone else's")
+    share = sorted((folder / ".small_plume.resume").glob("*.npz"))[0]
+    share.write_bytes(share.read_bytes()[:40])
+    quiet_render(look, folder, resume=True)
+    assert not left.exists() and other.read_bytes() == b"someone else's"
+    other.unlink()
+    assert digests(folder, manifest=True) == whole

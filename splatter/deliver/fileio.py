@@ -11,9 +11,24 @@ from __future__ import annotations
 
 import contextlib
 import os
+import re
 import secrets
 
-__all__ = ["atomic_path", "atomic_write", "atomic_write_bytes", "atomic_write_text"]
+__all__ = ["atomic_path", "atomic_write", "atomic_write_bytes", "atomic_write_text", "temp_name_of"]
+
+_TEMP = re.compile(r"^\.(?P<name>.+)\.[0-9a-f]{8}\.tmp")
+
+
+def temp_name_of(entry: str):
+    """The file a temporary of :func:`atomic_path` was to become, or None.
+
+    Examples
+    --------
+    >>> temp_name_of(".plume.preview.mp4.0a1b2c3d.tmp.mp4"), temp_name_of("plume.0001.png")
+    ('plume.preview.mp4', None)
+    """
+    m = _TEMP.match(entry)
+    return m["name"] if m else None
 
 
 def _temp_name(path: str, suffix: str) -> str:

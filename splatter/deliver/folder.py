@@ -50,7 +50,7 @@ from typing import Dict, Iterable, List, Optional
 import numpy as np
 
 from splatter.core.errors import LookError, LookWarning
-from splatter.deliver.fileio import atomic_path, atomic_write_text
+from splatter.deliver.fileio import atomic_path, atomic_write_text, temp_name_of
 from splatter.deliver.map_frames import RANGED_MAPS
 from splatter.deliver.names import FRAME_FILE, file_stem, frame_file, manifest_file, planned_files
 from splatter.look.records import LookSpec
@@ -232,6 +232,11 @@ class RenderFolder:
         self._frames_done |= keep_frames - set(self.frames)
         self._files = {n for n in keep_files if FRAME_FILE.match(n) and int(FRAME_FILE.match(n)["frame"])
                        in self._frames_done}
+        for entry in os.listdir(self.folder):
+            if temp_name_of(entry) in planned | listed:
+                # Left by a render that was killed outright mid-write (the unfinished MP4 is
+                # written for the whole render): nothing else will ever take it away.
+                self._remove(entry)
         self._stale = self._strays(listed | planned)
         if self._stale:
             shown = ", ".join(self._stale[:5]) + (" ..." if len(self._stale) > 5 else "")
@@ -275,7 +280,7 @@ class RenderFolder:
                 if "parts_version" not in z.files or int(z["parts_version"]) != PARTS_VERSION:
                     return False  # kept by another version of splatter: render the frame again
                 self.kept[frame] = {k: z[k] for k in z.files if k != "parts_version"}
-        except (OSError, ValueError, EOFError):
+        except Exception:  # damaged or foreign (a bad zip, a field of another shape): render the frame again
             return False
         return True
 

@@ -235,6 +235,8 @@ def write_mp4(path, frames_premult_linear, fps, *, exposure=0.0, quality=8, repe
 
 def write_mp4_codes(path, codes, fps, *, quality=8, repeat=1):
     """:func:`write_mp4` from frames already over the checker: an iterable of (H, W, 3) uint8 codes of even size."""
+    if repeat > 1:
+        codes = list(codes)  # played more than once: a generator would run dry after the first
     stream = Mp4Stream(path, fps, quality=quality)
     try:
         for _ in range(repeat):

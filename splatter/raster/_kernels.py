@@ -523,9 +523,10 @@ def _rows_direct(buf, j, ra, nrows, tr0, tc0, tc1, params, peak, feat, fv0, fv1,
 def _prefetch_ahead(s, first, order, params, ranges, tables, feats):
     """Ask for the data of the splats two and one places further down the list.
 
-    Splats come in depth order, so their rows of ``params``, ``ranges`` and
-    ``feats`` and their tables lie all over memory; without this every splat
-    starts with a few cache misses.
+    A tile's splats come in depth order; their records are grouped by first
+    tile, so they lie in a few runs of memory rather than one, and a splat
+    that starts in an earlier tile row sits far from the rest: asking ahead
+    hides those misses.
     """
     if s - 2 >= first:
         j2 = order[s - 2]
