@@ -63,6 +63,19 @@ def _interrupt_after(monkeypatch, n):
     monkeypatch.setattr(sink.OutputSink, "add", add)
 
 
+def _whole_and_interrupted(tmp_path, monkeypatch, extra):
+    """The small plume with ``extra`` output keys: rendered whole (digests), and interrupted at frame 5."""
+    text = SMALL_PLUME.replace('[output]\nframes = ["png", "exr"]\nexr_type = "float"\n', "")
+    look = load_look(write_look(tmp_path, text, extra=extra))
+    whole = digests(_render(look, tmp_path / "whole"), manifest=True)
+    folder = tmp_path / "resumed"
+    with monkeypatch.context() as m:
+        _interrupt_after(m, 5)
+        with pytest.raises(KeyboardInterrupt):
+            quiet_render(look, folder)
+    return look, whole, folder
+
+
 def test_interrupted_then_resumed_render_has_the_bytes_of_an_uninterrupted_one(tmp_path, monkeypatch):
     text = SMALL_PLUME.replace('[output]\nframes = ["png", "exr"]\nexr_type = "float"\n', "")
     look = load_look(write_look(tmp_path, text, extra=FULL_STREAMED))
@@ -216,14 +229,7 @@ def test_shares_kept_by_another_version_are_rendered_again_not_trusted(tmp_path,
     # used, so --resume renders that frame again and the files still come out whole.
     import numpy as np
 
-    text = SMALL_PLUME.replace('[output]\nframes = ["png", "exr"]\nexr_type = "float"\n', "")
-    look = load_look(write_look(tmp_path, text, extra=FULL_STREAMED))
-    whole = digests(_render(look, tmp_path / "whole"), manifest=True)
-    folder = tmp_path / "resumed"
-    with monkeypatch.context() as m:
-        _interrupt_after(m, 5)
-        with pytest.raises(KeyboardInterrupt):
-            quiet_render(look, folder)
+    look, whole, folder = _whole_and_interrupted(tmp_path, monkeypatch, FULL_STREAMED)
     parts = sorted((folder / ".small_plume.resume").glob("*.npz"))
     assert parts
     with np.load(parts[0]) as z:  # the first frame's share, as an older version kept it
@@ -245,14 +251,7 @@ def test_shares_kept_by_another_version_are_rendered_again_not_trusted(tmp_path,
     "[output]\nframes = ['png']\nmaps = ['motion']\nmap_frames = true\n",  # per-frame maps with the clip's range
 ])
 def test_resume_without_a_sheet_or_preview_has_the_bytes_of_an_uninterrupted_render(tmp_path, monkeypatch, extra):
-    text = SMALL_PLUME.replace('[output]\nframes = ["png", "exr"]\nexr_type = "float"\n', "")
-    look = load_look(write_look(tmp_path, text, extra=extra))
-    whole = digests(_render(look, tmp_path / "whole"), manifest=True)
-    folder = tmp_path / "resumed"
-    with monkeypatch.context() as m:
-        _interrupt_after(m, 5)
-        with pytest.raises(KeyboardInterrupt):
-            quiet_render(look, folder)
+    look, whole, folder = _whole_and_interrupted(tmp_path, monkeypatch, extra)
     quiet_render(look, folder, resume=True)
     assert digests(folder, manifest=True) == whole
 
@@ -261,14 +260,7 @@ def test_a_killed_renders_temporary_files_go_and_damaged_shares_are_rendered_aga
     # A render killed outright (no Python clean-up) leaves its hidden temporaries; the next render
     # of the same files removes them, and leaves other hidden files alone. A damaged kept share
     # (a truncated zip) is not a traceback: its frame is rendered again.
-    text = SMALL_PLUME.replace('[output]\nframes = ["png", "exr"]\nexr_type = "float"\n', "")
-    look = load_look(write_look(tmp_path, text, extra=FULL))
-    whole = digests(_render(look, tmp_path / "whole"), manifest=True)
-    folder = tmp_path / "resumed"
-    with monkeypatch.context() as m:
-        _interrupt_after(m, 5)
-        with pytest.raises(KeyboardInterrupt):
-            quiet_render(look, folder)
+    look, whole, folder = _whole_and_interrupted(tmp_path, monkeypatch, FULL)
     left = folder / ".small_plume.preview.gif.0a1b2c3d.tmp.gif"
     left.write_bytes(b"half a gif")
     other = folder / ".notes.0a1b2c3d.tmp"
