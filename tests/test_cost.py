@@ -291,3 +291,29 @@ def test_vary_refuses_a_variation_too_big_for_its_worker_before_anything_is_writ
         with pytest.raises(LookError, match=r"variation seed2[^:]*: .*output\.sheet.*fewer --jobs"):
             vary(str(look), seeds="2:4", out=str(out), jobs=1, dry_run=dry_run, progress=False)
         assert not out.exists()
+
+
+def test_the_compositing_estimate_counts_the_tiles_the_compositor_bins_a_splat_into():
+    # The (tile, splat) pairs are what the compositor's binning makes
+    # (splatter.raster._kernels._tile_boxes, the tiles each footprint touches):
+    # the estimate's tiles per splat must never fall below the most a splat of
+    # the estimated sigma really touches, and should not be far above it, or
+    # safe looks are refused.
+    from splatter.raster import _kernels
+
+    sigma = 20.0
+    look = load_look_text(SMALL_PLUME.replace("width = 48", "width = 2048").replace("height = 48", "height = 512")
+                          + 'sheet = false\n')
+    plan = first_plan(look)
+    est = estimate_cost(look, plan, 0.01, 12, limit=2**40, sigma_px=sigma)
+    n = est.puffs
+    tables = min(64 * 2**20, n * 8.0 * min(3.0 * sigma + 10.0, 2048.0))
+    tiles_estimated = (est.parts["compositing"] - tables) / (16.0 * n)
+    # Splats of that sigma, opaque, centred on every 3 px of the frame.
+    ys, xs = np.mgrid[1.5:512:3.0, 1.5:2048:3.0]
+    means = np.stack([xs.ravel(), ys.ravel()], axis=1).astype(np.float32)
+    covs = np.tile(np.eye(2, dtype=np.float32) * sigma**2, (len(means), 1, 1))
+    boxes = np.empty((len(means), 4), np.int32)
+    _kernels._tile_boxes(means, covs, np.full(len(means), 0.9, np.float32), 512, 2048, boxes)
+    tiles_real = ((boxes[:, 1] - boxes[:, 0] + 1) * (boxes[:, 3] - boxes[:, 2] + 1)).max()
+    assert tiles_real <= tiles_estimated <= 1.6 * tiles_real, (tiles_real, tiles_estimated)
