@@ -39,6 +39,7 @@ __all__ = ["write_map_sheet", "write_lightdir_sheets", "write_motion_sheet", "wr
            "LIGHT_AXES"]
 
 LIGHT_AXES = "+x right, +y up, +z toward the viewer"
+_LIGHTDIR_CHANNELS = (("px", "py", "pz"), ("nx", "ny", "nz"))  # channel names of the two sheets, LIGHTDIR_SHEETS order
 """The camera axes of the light-direction maps and of the normal map."""
 
 
@@ -300,8 +301,7 @@ def write_lightdir_sheets(dir, name, frames_pos, frames_neg, layout, *, png_bits
         ``[["+x", "+y", "+z"], ["-x", "-y", "-z"]]``, ``axes``, ``relight``.
     """
     files = []
-    for frames, suffix, chans in ((frames_pos, LIGHTDIR_SHEETS[0], ("px", "py", "pz")),
-                                  (frames_neg, LIGHTDIR_SHEETS[1], ("nx", "ny", "nz"))):
+    for frames, suffix, chans in zip((frames_pos, frames_neg), LIGHTDIR_SHEETS, _LIGHTDIR_CHANNELS):
         e = write_map_sheet(dir, name, suffix, frames, layout, encoding="linear", png_bits=png_bits,
                             channels=chans, dilate_alpha=alphas)
         files.append(e["file"])
@@ -388,7 +388,7 @@ class ArrivalMapSheets:
                 exr_type=exr_type, channels=("x", "y", "z"), background=(0.5, 0.5, 1.0) if png else (0.0, 0.0, 1.0),
                 convention=normal_convention(y_down))
         if "lightdirs" in maps:
-            for suffix, chans in zip(LIGHTDIR_SHEETS, (("px", "py", "pz"), ("nx", "ny", "nz"))):
+            for suffix, chans in zip(LIGHTDIR_SHEETS, _LIGHTDIR_CHANNELS):
                 self._sheets[suffix] = MapSheetStream(layout, suffix, encoding="linear", png_bits=png_bits,
                                                       channels=chans)
 
