@@ -10,6 +10,9 @@ count):
   pass and visibility, from given world covariances;
 * ``_project_puffs``: both in one pass, the 3x3 covariance kept in registers.
 
+Beside them ``_gather_splats`` (for :mod:`splatter.view.splats`) picks the
+kept puffs' screen values in draw order and their lit colours in one pass.
+
 The arithmetic mirrors the numpy formulas in :mod:`splatter.view.camera` term by
 term, so values agree with them to float64 round-off. Helpers are defined in
 this module (numba's cache does not see edits to inlined helpers elsewhere).
@@ -260,3 +263,29 @@ def _footprint_ratio(size, aspect, quat, vel, stretch, deform, right, up, out):
         c00, c01, c02, c11, c12, c22 = _cov_one(i, size, aspect, quat, vel, stretch, deform)
         d_deformed = _across_det(c00, c01, c02, c11, c12, c22, right, up)
         out[i] = math.sqrt(d_rigid / max(d_deformed, 1e-300))
+
+
+@numba.njit(**PARALLEL)
+def _gather_splats(idx, means, covs, depth, opac, color, light, glow, out_means, out_covs, out_depth, out_opac,
+                   feats):
+    """Row ``j`` of each output from puff ``idx[j]``: means, covariances, depth, opacity and
+    ``r, g, b = colour * light + glow`` (``colour + glow`` when ``light`` has no rows) into
+    ``feats[:, 0:3]``.
+
+    The arithmetic is numpy's for the same formula (a float64 product, then the sum, rounded
+    once to float32), so the values are the same bits as gathering with fancy indexing.
+    """
+    lit = light.shape[0] > 0
+    for j in numba.prange(idx.shape[0]):
+        i = idx[j]
+        out_means[j, 0] = means[i, 0]
+        out_means[j, 1] = means[i, 1]
+        out_covs[j, 0, 0] = covs[i, 0, 0]
+        out_covs[j, 0, 1] = covs[i, 0, 1]
+        out_covs[j, 1, 0] = covs[i, 1, 0]
+        out_covs[j, 1, 1] = covs[i, 1, 1]
+        out_depth[j] = depth[i]
+        out_opac[j] = np.float32(opac[i])
+        for c in range(3):
+            col = color[i, c] * light[i, c] if lit else color[i, c]
+            feats[j, c] = np.float32(col + glow[i, c])

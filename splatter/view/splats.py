@@ -26,6 +26,7 @@ from typing import Dict, Optional, Tuple
 import numpy as np
 
 from splatter.core.thresholds import MAX_OPACITY
+from splatter.view._kernels import _gather_splats
 from splatter.view.camera import Camera, footprint_ratio, project_puffs
 
 __all__ = ["ScreenSplats", "make_splats", "effective_opacity", "feature_layout", "LIGHTDIR_CHANNELS"]
@@ -53,6 +54,8 @@ class ScreenSplats:
     depth: np.ndarray
     channels: Dict[str, int]
 
+
+_NO_LIGHT = np.zeros((0, 3))
 
 LIGHTDIR_CHANNELS = tuple(f"lightdirs_{sign}.{axis}" for sign in ("pos", "neg") for axis in "xyz")
 """Feature channels of the light-direction maps, in the column order of ``light_puffs``' factors."""
@@ -199,10 +202,15 @@ def make_splats(
         idx = idx[order]
         depth = depth[order]
     feats = np.empty((idx.size, k), dtype=np.float32)
-    colour = np.asarray(state.color, dtype=np.float64)[idx]
-    if light_factor is not None:
-        colour = colour * np.asarray(light_factor, dtype=np.float64)[idx]
-    feats[:, 0:3] = colour + np.asarray(state.glow, dtype=np.float64)[idx]
+    means = np.empty((idx.size, 2), dtype=np.float32)
+    covs = np.empty((idx.size, 2, 2), dtype=np.float32)
+    depth32 = np.empty(idx.size, dtype=np.float32)
+    opac32 = np.empty(idx.size, dtype=np.float32)
+    # One pass: the kept puffs' screen values in draw order, their lit colour plus glow.
+    _gather_splats(idx, screen.means, screen.covs, screen.depth, np.ascontiguousarray(opac, dtype=np.float64),
+                   np.ascontiguousarray(state.color, dtype=np.float64),
+                   _NO_LIGHT if light_factor is None else np.ascontiguousarray(light_factor, dtype=np.float64),
+                   np.ascontiguousarray(state.glow, dtype=np.float64), means, covs, depth32, opac32, feats)
     if "motion.x" in channels:
         vel_px = camera.project_velocity(state.pos[idx], state.vel[idx]) / fps
         feats[:, channels["motion.x"]] = vel_px[:, 0]
@@ -212,14 +220,7 @@ def make_splats(
     if LIGHTDIR_CHANNELS[0] in channels:
         c0 = channels[LIGHTDIR_CHANNELS[0]]
         feats[:, c0 : c0 + 6] = np.asarray(lightdir_factors, dtype=np.float32)[idx]
-    return ScreenSplats(
-        means=np.ascontiguousarray(np.asarray(screen.means, dtype=np.float32)[idx]),
-        covs=np.ascontiguousarray(np.asarray(screen.covs, dtype=np.float32)[idx]),
-        features=feats,
-        opacities=opac[idx].astype(np.float32),
-        depth=depth.astype(np.float32),
-        channels=channels,
-    )
+    return ScreenSplats(means=means, covs=covs, features=feats, opacities=opac32, depth=depth32, channels=channels)
 
 
 def _empty(k: int, channels) -> ScreenSplats:
