@@ -65,3 +65,21 @@ def test_make_splats_gathers_the_same_bits_as_numpy(blend, lit, maps):
                           (got.means, got.covs, got.features, got.opacities, got.depth), want):
         assert g.dtype == np.float32 and g.flags.c_contiguous, name
         assert np.array_equal(g, w), name
+
+
+@pytest.mark.parametrize("n", [0, 1, 7, 5000])
+def test_farthest_first_is_numpys_stable_argsort(n):
+    # Reference: numpy's stable argsort of the negated depths (ties keep the
+    # input order, -0 equals +0, NaN last), which the seam frames of an exact
+    # loop rely on.
+    from splatter.view.splats import farthest_first
+
+    rng = np.random.default_rng(n)
+    depth = rng.choice(np.array([0.5, 2.0, 2.25, 1e-3, 40.0], dtype=np.float32), n)  # many ties
+    depth[: n // 2] = rng.uniform(-3.0, 60.0, n // 2).astype(np.float32)
+    if n >= 7:
+        depth[[0, 1, 2, 3, 4, 5]] = [0.0, -0.0, np.inf, -np.inf, np.nan, 0.0]
+    depth = rng.permutation(depth)
+    got = farthest_first(depth)
+    assert got.dtype == np.int64
+    assert np.array_equal(got, np.argsort(-depth, kind="stable"))

@@ -10,8 +10,9 @@ count):
   pass and visibility, from given world covariances;
 * ``_project_puffs``: both in one pass, the 3x3 covariance kept in registers.
 
-Beside them ``_gather_splats`` (for :mod:`splatter.view.splats`) picks the
-kept puffs' screen values in draw order and their lit colours in one pass.
+Beside them, for :mod:`splatter.view.splats`: ``_gather_splats`` picks the
+kept puffs' screen values in draw order and their lit colours in one pass,
+and ``_radix_order`` is the stable sort that gives the draw order.
 
 The arithmetic mirrors the numpy formulas in :mod:`splatter.view.camera` term by
 term, so values agree with them to float64 round-off. Helpers are defined in
@@ -289,3 +290,32 @@ def _gather_splats(idx, means, covs, depth, opac, color, light, glow, out_means,
         for c in range(3):
             col = color[i, c] * light[i, c] if lit else color[i, c]
             feats[j, c] = np.float32(col + glow[i, c])
+
+
+@numba.njit(**KERNEL)
+def _radix_order(keys):
+    """The stable ascending order of ``keys`` ((N,) uint32): ``np.argsort(keys, kind="stable")``.
+
+    Least-significant-digit radix sort, four passes of 8 bits; each pass is a
+    stable counting sort, so equal keys keep their input order (Knuth, *The Art
+    of Computer Programming* vol. 3, 5.2.5, from memory).  (N,) int64.
+    """
+    n = keys.shape[0]
+    order = np.arange(n)
+    other = np.empty(n, dtype=np.int64)
+    count = np.empty(257, dtype=np.int64)
+    for shift in range(0, 32, 8):
+        count[:] = 0
+        for i in range(n):
+            count[((keys[i] >> shift) & 255) + 1] += 1
+        if count[1 + ((keys[0] >> shift) & 255)] == n:
+            continue  # every key has this digit: the pass would not move anything
+        for d in range(256):
+            count[d + 1] += count[d]
+        for j in range(n):
+            i = order[j]
+            d = (keys[i] >> shift) & 255
+            other[count[d]] = i
+            count[d] += 1
+        order, other = other, order
+    return order

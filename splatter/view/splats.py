@@ -26,7 +26,7 @@ from typing import Dict, Optional, Tuple
 import numpy as np
 
 from splatter.core.thresholds import MAX_OPACITY
-from splatter.view._kernels import _gather_splats
+from splatter.view._kernels import _gather_splats, _radix_order
 from splatter.view.camera import Camera, footprint_ratio, project_puffs
 
 __all__ = ["ScreenSplats", "make_splats", "effective_opacity", "feature_layout", "LIGHTDIR_CHANNELS"]
@@ -198,7 +198,7 @@ def make_splats(
     if blend == "over":
         # The simulation hands puffs over ordered by (source, slot, id), so a
         # stable sort on depth breaks ties the same way at an exact loop's seam.
-        order = np.argsort(-depth, kind="stable")
+        order = farthest_first(depth)
         idx = idx[order]
         depth = depth[order]
     feats = np.empty((idx.size, k), dtype=np.float32)
@@ -221,6 +221,36 @@ def make_splats(
         c0 = channels[LIGHTDIR_CHANNELS[0]]
         feats[:, c0 : c0 + 6] = np.asarray(lightdir_factors, dtype=np.float32)[idx]
     return ScreenSplats(means=means, covs=covs, features=feats, opacities=opac32, depth=depth32, channels=channels)
+
+
+def farthest_first(depth) -> np.ndarray:
+    """``np.argsort(-depth, kind="stable")``, by a radix sort of the float32 depths' bits.
+
+    IEEE 754 floats order like their bit patterns read as sign and magnitude:
+    flipping every bit of a negative one and the sign bit of a positive one
+    gives unsigned integers in the floats' order (a common practice of radix
+    sorting floats).  ``-0`` is taken as ``+0`` and NaN goes last, as in numpy.
+
+    Parameters
+    ----------
+    depth : (N,) float32 ndarray
+
+    Returns
+    -------
+    (N,) int64 ndarray
+
+    Examples
+    --------
+    >>> farthest_first(np.array([1.0, 3.0, 2.0, 3.0], dtype=np.float32)).tolist()
+    [1, 3, 2, 0]
+    """
+    key = -np.asarray(depth, dtype=np.float32) + np.float32(0.0)  # the sort key; -0 made +0
+    bits = key.view(np.uint32)
+    keys = np.where(bits >> np.uint32(31) != 0, ~bits, bits | np.uint32(0x80000000))
+    keys[np.isnan(key)] = np.uint32(0xFFFFFFFF)
+    if keys.size == 0:
+        return np.zeros(0, dtype=np.int64)
+    return _radix_order(np.ascontiguousarray(keys, dtype=np.uint32))
 
 
 def _empty(k: int, channels) -> ScreenSplats:
