@@ -61,3 +61,39 @@ def test_light_factor_ambient_and_shadow_limits():
     # ambient = 0, shadow = 1: light scales with transmittance exactly.
     f = light_factors(t, ambient=0.0, shadow=1.0, color=(1.0, 1.0, 1.0), intensity=1.0)
     assert np.allclose(f[:, 0], t)
+
+
+def test_empty_distance_is_scipys_chessboard_distance_transform():
+    # Reference: scipy.ndimage.distance_transform_cdt with the chessboard
+    # metric, the L-infinity distance from each zero cell to the nearest
+    # non-zero one (a general-purpose reference library).
+    from scipy import ndimage
+
+    from splatter.view.light import empty_distance
+
+    rng = np.random.default_rng(5)
+    density = np.zeros((23, 17, 29))
+    cells = rng.integers(0, [23, 17, 29], size=(6, 3))
+    density[tuple(cells.T)] = rng.uniform(0.1, 1.0, 6)
+    expected = ndimage.distance_transform_cdt(density == 0.0, metric="chessboard")
+    assert np.array_equal(empty_distance(density), expected)
+
+
+def test_leaping_over_empty_space_changes_no_bit():
+    # The march leaps over samples whose eight corners are surely empty
+    # (they add exactly 0); marching every sample (no cell known to be
+    # empty) must give the same bits, for clustered smoke with wide gaps,
+    # rays along the axes and slanted ones, from inside and outside the smoke.
+    rng = np.random.default_rng(7)
+    centres = np.array([[0.0, 0.0, 0.0], [3.0, 2.5, -1.5], [-2.0, 4.0, 2.0]])
+    pos = np.concatenate([c + 0.3 * rng.normal(size=(300, 3)) for c in centres])
+    size = rng.uniform(0.02, 0.08, len(pos))
+    grid = build_density_grid(pos, size, np.full(len(pos), 0.4))
+    assert (grid.clear >= 3).mean() > 0.5  # most of the box is empty: the leaps are exercised
+    dirs = np.array([[1.0, 0.0, 0.0], [0.0, -1.0, 0.0], [0.3, 1.0, 0.6], [-0.7, 0.2, -0.4], [1.0, 1.0, 1.0]])
+    probes = np.concatenate([pos, rng.uniform(-4.0, 6.0, size=(300, 3))])
+    leaping = transmittance(grid, probes, dirs)
+    grid.clear = np.zeros_like(grid.clear)
+    every = transmittance(grid, probes, dirs)
+    assert np.array_equal(leaping, every)
+    assert (every < 1.0).any() and (every < 1.0).mean() < 0.9  # shadowed and lit probes both

@@ -10,6 +10,10 @@ count):
   pass and visibility, from given world covariances;
 * ``_project_puffs``: both in one pass, the 3x3 covariance kept in registers.
 
+Beside them, for :mod:`splatter.view.splats`: ``_gather_splats`` picks the
+kept puffs' screen values in draw order and their lit colours in one pass,
+and ``_radix_order`` is the stable sort that gives the draw order.
+
 The arithmetic mirrors the numpy formulas in :mod:`splatter.view.camera` term by
 term, so values agree with them to float64 round-off. Helpers are defined in
 this module (numba's cache does not see edits to inlined helpers elsewhere).
@@ -260,3 +264,58 @@ def _footprint_ratio(size, aspect, quat, vel, stretch, deform, right, up, out):
         c00, c01, c02, c11, c12, c22 = _cov_one(i, size, aspect, quat, vel, stretch, deform)
         d_deformed = _across_det(c00, c01, c02, c11, c12, c22, right, up)
         out[i] = math.sqrt(d_rigid / max(d_deformed, 1e-300))
+
+
+@numba.njit(**PARALLEL)
+def _gather_splats(idx, means, covs, depth, opac, color, light, glow, out_means, out_covs, out_depth, out_opac,
+                   feats):
+    """Row ``j`` of each output from puff ``idx[j]``: means, covariances, depth, opacity and
+    ``r, g, b = colour * light + glow`` (``colour + glow`` when ``light`` has no rows) into
+    ``feats[:, 0:3]``.
+
+    The arithmetic is numpy's for the same formula (a float64 product, then the sum, rounded
+    once to float32), so the values are the same bits as gathering with fancy indexing.
+    """
+    lit = light.shape[0] > 0
+    for j in numba.prange(idx.shape[0]):
+        i = idx[j]
+        out_means[j, 0] = means[i, 0]
+        out_means[j, 1] = means[i, 1]
+        out_covs[j, 0, 0] = covs[i, 0, 0]
+        out_covs[j, 0, 1] = covs[i, 0, 1]
+        out_covs[j, 1, 0] = covs[i, 1, 0]
+        out_covs[j, 1, 1] = covs[i, 1, 1]
+        out_depth[j] = depth[i]
+        out_opac[j] = np.float32(opac[i])
+        for c in range(3):
+            col = color[i, c] * light[i, c] if lit else color[i, c]
+            feats[j, c] = np.float32(col + glow[i, c])
+
+
+@numba.njit(**KERNEL)
+def _radix_order(keys):
+    """The stable ascending order of ``keys`` ((N,) uint32): ``np.argsort(keys, kind="stable")``.
+
+    Least-significant-digit radix sort, four passes of 8 bits; each pass is a
+    stable counting sort, so equal keys keep their input order (Knuth, *The Art
+    of Computer Programming* vol. 3, 5.2.5, from memory).  (N,) int64.
+    """
+    n = keys.shape[0]
+    order = np.arange(n)
+    other = np.empty(n, dtype=np.int64)
+    count = np.empty(257, dtype=np.int64)
+    for shift in range(0, 32, 8):
+        count[:] = 0
+        for i in range(n):
+            count[((keys[i] >> shift) & 255) + 1] += 1
+        if count[1 + ((keys[0] >> shift) & 255)] == n:
+            continue  # every key has this digit: the pass would not move anything
+        for d in range(256):
+            count[d + 1] += count[d]
+        for j in range(n):
+            i = order[j]
+            d = (keys[i] >> shift) & 255
+            other[count[d]] = i
+            count[d] += 1
+        order, other = other, order
+    return order

@@ -11,7 +11,9 @@ Method (costs in ``docs/rendering.md``):
    the grid holds a smooth extinction field in 1/world-unit.
 3. From each puff's centre a ray is marched toward each light direction at
    half-cell steps with trilinear lookups; the optical depth ``tau`` gives
-   the transmittance ``T = exp(-tau)`` (Beer-Lambert).
+   the transmittance ``T = exp(-tau)`` (Beer-Lambert).  Samples that surely
+   read only empty cells add exactly 0 and are leapt over, guided by each
+   cell's distance to the nearest smoke (:func:`empty_distance`): same bits.
 
 The grid is built once per frame and shared by every direction, so the six
 light-direction maps cost one grid and six marches.  All kernels are serial
@@ -30,7 +32,7 @@ from splatter.core.jit import KERNEL, PARALLEL
 from splatter.core.thresholds import MAX_OPACITY
 from splatter.view.splats import effective_opacity
 
-__all__ = ["GRID", "build_density_grid", "transmittance", "DensityGrid", "light_factors", "light_puffs"]
+__all__ = ["GRID", "build_density_grid", "empty_distance", "transmittance", "DensityGrid", "light_factors", "light_puffs"]
 
 GRID = 64
 _TAU_MAX = 14.0  # exp(-14) < 1e-6
@@ -48,12 +50,17 @@ class DensityGrid:
         World position of cell ``[0, 0, 0]``'s centre.
     cell : float
         Cell edge in world units.
+    clear : (NX, NY, NZ) int32 ndarray
+        Chessboard distance, in cells, from each cell to the nearest cell
+        with non-zero density (0 on such a cell): the march leaps over the
+        empty space it measures (:func:`empty_distance`).
     """
 
     def __init__(self, density, origin, cell):
         self.density = density
         self.origin = origin
         self.cell = float(cell)
+        self.clear = empty_distance(density)
 
 
 @numba.njit(**KERNEL)
@@ -142,6 +149,71 @@ def _sample(density, fx, fy, fz):
 
 
 @numba.njit(**KERNEL)
+def _chessboard_pass(out, sign):
+    """One raster pass of the chessboard distance transform over ``out`` (in place).
+
+    ``sign = 1``: cells in C order, each taking the smallest of its 13
+    neighbours already visited plus 1; ``sign = -1``: the reverse order and
+    the other 13.
+    """
+    nx, ny, nz = out.shape
+    for a in range(nx):
+        x = a if sign > 0 else nx - 1 - a
+        for b in range(ny):
+            y = b if sign > 0 else ny - 1 - b
+            for c in range(nz):
+                z = c if sign > 0 else nz - 1 - c
+                best = out[x, y, z]
+                if best == 0:
+                    continue
+                for dx in range(-1, 2):
+                    for dy in range(-1, 2):
+                        for dz in range(-1, 2):
+                            # only the neighbours visited before (x, y, z) in this pass's order
+                            if dx * 9 + dy * 3 + dz >= 0:
+                                continue
+                            u = x + sign * dx
+                            v = y + sign * dy
+                            w = z + sign * dz
+                            if 0 <= u < nx and 0 <= v < ny and 0 <= w < nz:
+                                best = min(best, out[u, v, w] + 1)
+                out[x, y, z] = best
+
+
+def empty_distance(density) -> np.ndarray:
+    """Chessboard distance from each cell to the nearest cell of non-zero density.
+
+    Two raster passes with the 26-neighbourhood give the exact chessboard
+    (L-infinity) distance transform (Rosenfeld and Pfaltz, "Sequential
+    operations in digital picture processing", J. ACM 13, 1966; Borgefors,
+    "Distance transformations in arbitrary dimensions", CVGIP 27, 1984; both
+    references from memory).
+    Cells of non-zero density hold 0; with no such cell every cell holds a
+    number larger than the grid.
+
+    Parameters
+    ----------
+    density : (NX, NY, NZ) float64 ndarray
+
+    Returns
+    -------
+    (NX, NY, NZ) int32 ndarray
+
+    Examples
+    --------
+    >>> d = np.zeros((5, 1, 1)); d[1, 0, 0] = 2.0
+    >>> empty_distance(d)[:, 0, 0].tolist()
+    [1, 0, 1, 2, 3]
+    """
+    density = np.asarray(density, dtype=np.float64)
+    far = int(sum(density.shape)) + 1
+    out = np.where(density != 0.0, 0, far).astype(np.int32)
+    _chessboard_pass(out, 1)
+    _chessboard_pass(out, -1)
+    return out
+
+
+@numba.njit(**KERNEL)
 def _ray_span(f, d, lo, hi):
     """Parameter interval of the ray ``f + t d`` (t >= 0) inside ``[lo, hi]`` on every axis."""
     t0, t1 = 0.0, 1e300
@@ -160,27 +232,48 @@ def _ray_span(f, d, lo, hi):
 
 
 @numba.njit(inline="always", **KERNEL)
-def _optical_depth(density, cell, f, d, lo, hi):
-    """Optical depth from cell coordinates ``f`` (3,) along the unit direction ``d`` (3,) to the grid's edge."""
+def _optical_depth(density, clear, cell, f, d, lo, hi):
+    """Optical depth from cell coordinates ``f`` (3,) along the unit direction ``d`` (3,) to the grid's edge.
+
+    ``clear`` is the grid's :func:`empty_distance`. A sample whose cell is
+    ``D >= 3`` cells (chessboard) from any smoke reads eight empty corners,
+    and so does every later sample that moves less than ``D - 2`` cells along
+    every axis; those samples add exactly 0 to the sum, so they are leapt
+    over (with half a cell to spare against round-off) and the result is the
+    same bits as visiting them.
+    """
     step = 0.5  # in cells
     t0, t1 = _ray_span(f, d, lo, hi)
     tau = 0.0
     if t1 > t0:
+        nx, ny, nz = density.shape
         n = int(math.ceil((t1 - t0) / step))
+        reach = max(abs(d[0]), abs(d[1]), abs(d[2])) * step  # most cells a step moves along one axis
         # Trapezoid rule along the part of the ray inside the grid;
         # stop once the light is gone (T < 1e-6: no visible change).
         limit = _TAU_MAX / (step * cell)
-        for s in range(n + 1):
+        s = 0
+        while s <= n:
             t = t0 + s * step
+            fx = f[0] + d[0] * t
+            fy = f[1] + d[1] * t
+            fz = f[2] + d[2] * t
+            ix, iy, iz = int(math.floor(fx)), int(math.floor(fy)), int(math.floor(fz))
+            if 0 <= ix < nx and 0 <= iy < ny and 0 <= iz < nz:
+                gap = clear[ix, iy, iz]
+                if gap >= 3:
+                    s += 1 + int((gap - 2.5) / reach)
+                    continue
             w = 0.5 if s == 0 else 1.0
-            tau += w * _sample(density, f[0] + d[0] * t, f[1] + d[1] * t, f[2] + d[2] * t)
+            tau += w * _sample(density, fx, fy, fz)
             if tau > limit:
                 break
+            s += 1
     return tau * step * cell
 
 
 @numba.njit(**PARALLEL)
-def _march(density, origin, cell, pos, dirs, out):
+def _march(density, clear, origin, cell, pos, dirs, out):
     nx, ny, nz = density.shape
     lo = np.array([-1.0, -1.0, -1.0])
     hi = np.array([float(nx), float(ny), float(nz)])
@@ -192,7 +285,7 @@ def _march(density, origin, cell, pos, dirs, out):
                 f[0] = (pos[i, 0] - origin[0]) / cell
                 f[1] = (pos[i, 1] - origin[1]) / cell
                 f[2] = (pos[i, 2] - origin[2]) / cell
-                out[i, d] = _optical_depth(density, cell, f, dirs[d], lo, hi)
+                out[i, d] = _optical_depth(density, clear, cell, f, dirs[d], lo, hi)
 
 
 def _gaussian_weights(sigma_cells: float) -> np.ndarray:
@@ -266,7 +359,7 @@ def transmittance(grid: DensityGrid, pos, directions) -> np.ndarray:
     pos = np.ascontiguousarray(pos, dtype=np.float64)
     tau = np.zeros((pos.shape[0], dirs.shape[0]), dtype=np.float64)
     if pos.shape[0]:
-        _march(grid.density, grid.origin, grid.cell, pos, np.ascontiguousarray(dirs), tau)
+        _march(grid.density, grid.clear, grid.origin, grid.cell, pos, np.ascontiguousarray(dirs), tau)
     return np.exp(-tau)
 
 

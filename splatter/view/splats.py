@@ -26,6 +26,7 @@ from typing import Dict, Optional, Tuple
 import numpy as np
 
 from splatter.core.thresholds import MAX_OPACITY
+from splatter.view._kernels import _gather_splats, _radix_order
 from splatter.view.camera import Camera, footprint_ratio, project_puffs
 
 __all__ = ["ScreenSplats", "make_splats", "effective_opacity", "feature_layout", "LIGHTDIR_CHANNELS"]
@@ -53,6 +54,8 @@ class ScreenSplats:
     depth: np.ndarray
     channels: Dict[str, int]
 
+
+_NO_LIGHT = np.zeros((0, 3))
 
 LIGHTDIR_CHANNELS = tuple(f"lightdirs_{sign}.{axis}" for sign in ("pos", "neg") for axis in "xyz")
 """Feature channels of the light-direction maps, in the column order of ``light_puffs``' factors."""
@@ -195,14 +198,19 @@ def make_splats(
     if blend == "over":
         # The simulation hands puffs over ordered by (source, slot, id), so a
         # stable sort on depth breaks ties the same way at an exact loop's seam.
-        order = np.argsort(-depth, kind="stable")
+        order = farthest_first(depth)
         idx = idx[order]
         depth = depth[order]
     feats = np.empty((idx.size, k), dtype=np.float32)
-    colour = np.asarray(state.color, dtype=np.float64)[idx]
-    if light_factor is not None:
-        colour = colour * np.asarray(light_factor, dtype=np.float64)[idx]
-    feats[:, 0:3] = colour + np.asarray(state.glow, dtype=np.float64)[idx]
+    means = np.empty((idx.size, 2), dtype=np.float32)
+    covs = np.empty((idx.size, 2, 2), dtype=np.float32)
+    depth32 = np.empty(idx.size, dtype=np.float32)
+    opac32 = np.empty(idx.size, dtype=np.float32)
+    # One pass: the kept puffs' screen values in draw order, their lit colour plus glow.
+    _gather_splats(idx, screen.means, screen.covs, screen.depth, np.ascontiguousarray(opac, dtype=np.float64),
+                   np.ascontiguousarray(state.color, dtype=np.float64),
+                   _NO_LIGHT if light_factor is None else np.ascontiguousarray(light_factor, dtype=np.float64),
+                   np.ascontiguousarray(state.glow, dtype=np.float64), means, covs, depth32, opac32, feats)
     if "motion.x" in channels:
         vel_px = camera.project_velocity(state.pos[idx], state.vel[idx]) / fps
         feats[:, channels["motion.x"]] = vel_px[:, 0]
@@ -212,14 +220,37 @@ def make_splats(
     if LIGHTDIR_CHANNELS[0] in channels:
         c0 = channels[LIGHTDIR_CHANNELS[0]]
         feats[:, c0 : c0 + 6] = np.asarray(lightdir_factors, dtype=np.float32)[idx]
-    return ScreenSplats(
-        means=np.ascontiguousarray(np.asarray(screen.means, dtype=np.float32)[idx]),
-        covs=np.ascontiguousarray(np.asarray(screen.covs, dtype=np.float32)[idx]),
-        features=feats,
-        opacities=opac[idx].astype(np.float32),
-        depth=depth.astype(np.float32),
-        channels=channels,
-    )
+    return ScreenSplats(means=means, covs=covs, features=feats, opacities=opac32, depth=depth32, channels=channels)
+
+
+def farthest_first(depth) -> np.ndarray:
+    """``np.argsort(-depth, kind="stable")``, by a radix sort of the float32 depths' bits.
+
+    IEEE 754 floats order like their bit patterns read as sign and magnitude:
+    flipping every bit of a negative one and the sign bit of a positive one
+    gives unsigned integers in the floats' order (a common practice of radix
+    sorting floats).  ``-0`` is taken as ``+0`` and NaN goes last, as in numpy.
+
+    Parameters
+    ----------
+    depth : (N,) float32 ndarray
+
+    Returns
+    -------
+    (N,) int64 ndarray
+
+    Examples
+    --------
+    >>> farthest_first(np.array([1.0, 3.0, 2.0, 3.0], dtype=np.float32)).tolist()
+    [1, 3, 2, 0]
+    """
+    key = -np.asarray(depth, dtype=np.float32) + np.float32(0.0)  # the sort key; -0 made +0
+    bits = key.view(np.uint32)
+    keys = np.where(bits >> np.uint32(31) != 0, ~bits, bits | np.uint32(0x80000000))
+    keys[np.isnan(key)] = np.uint32(0xFFFFFFFF)
+    if keys.size == 0:
+        return np.zeros(0, dtype=np.int64)
+    return _radix_order(np.ascontiguousarray(keys, dtype=np.uint32))
 
 
 def _empty(k: int, channels) -> ScreenSplats:
