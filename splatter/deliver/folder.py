@@ -51,7 +51,7 @@ import numpy as np
 
 from splatter.core.errors import LookError, LookWarning
 from splatter.deliver.fileio import atomic_path, atomic_write_text, temp_name_of
-from splatter.deliver.map_frames import RANGED_MAPS
+from splatter.deliver.map_frames import keeps_ranged_layers
 from splatter.deliver.names import FRAME_FILE, file_stem, frame_file, manifest_file, planned_files
 from splatter.look.records import LookSpec
 
@@ -188,8 +188,7 @@ class RenderFolder:
         out = look.output
         # Whole-clip outputs need every frame: sheets, previews, and per-frame motion or depth
         # PNGs, whose encoding takes its range from the whole clip.
-        self.keeps_parts = bool(out.sheet is not None or out.preview
-                                or (out.map_frames and any(m in RANGED_MAPS for m in out.maps)))
+        self.keeps_parts = bool(out.sheet is not None or out.preview or keeps_ranged_layers(out))
         self.parts_dir = os.path.join(folder, f".{self.stem}.resume")
         self.kept: Dict[int, Dict[str, np.ndarray]] = {}
         self.complete_already = False

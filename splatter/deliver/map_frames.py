@@ -37,7 +37,8 @@ from splatter.deliver.map_sheets import dilate_under, lightdir_entry
 from splatter.deliver.names import LIGHTDIR_SHEETS, map_frame_file
 from splatter.deliver.png import write_png_encoded
 
-__all__ = ["write_map_frame", "write_ranged_map_frames", "is_ranged", "RANGED_MAPS", "MAP_TEXT_KEY"]
+__all__ = ["write_map_frame", "write_ranged_map_frames", "is_ranged", "keeps_ranged_layers", "RANGED_MAPS",
+           "MAP_TEXT_KEY"]
 
 RANGED_MAPS = ("motion", "depth")
 """Maps encoded with the clip's ranges (motion scale, depth near and far), so kept to the end."""
@@ -55,6 +56,31 @@ def is_ranged(layer: str) -> bool:
     (True, False)
     """
     return layer.split(".", 1)[0] in RANGED_MAPS
+
+
+def keeps_ranged_layers(output) -> bool:
+    """Whether a render must keep its ranged map layers to the end of the clip.
+
+    They are kept when a ranged map is asked for and something encodes it with the
+    clip's ranges: the map sheets (written with the colour sheet) or the per-frame map
+    PNGs. The sink keeps the layers and ``--resume`` keeps each finished frame's share of
+    them by this one rule.
+
+    Parameters
+    ----------
+    output : OutputSpec
+        The look's ``output`` record (``maps``, ``sheet``, ``map_frames``).
+
+    Examples
+    --------
+    >>> from types import SimpleNamespace as S
+    >>> keeps_ranged_layers(S(maps=("normal", "depth"), sheet=None, map_frames=True))
+    True
+    >>> keeps_ranged_layers(S(maps=("normal",), sheet=object(), map_frames=True))
+    False
+    """
+    wanted = any(m in RANGED_MAPS for m in output.maps)
+    return bool(wanted and (output.sheet is not None or output.map_frames))
 
 
 def _write(out_dir, name, map_name, frame_numbers, frames, entry, png_bits, out):

@@ -29,7 +29,7 @@ import numpy as np
 from splatter.core.sheet_grid import partial_grid
 from splatter.deliver.exr import rgba_channels, write_exr
 from splatter.deliver.map_encode import normal_convention
-from splatter.deliver.map_frames import is_ranged, write_map_frame, write_ranged_map_frames
+from splatter.deliver.map_frames import is_ranged, keeps_ranged_layers, write_map_frame, write_ranged_map_frames
 from splatter.deliver.map_sheets import ArrivalMapSheets, write_depth_sheet, write_motion_sheet
 from splatter.deliver.names import file_stem, frame_file, preview_file
 from splatter.deliver.png import write_png
@@ -191,8 +191,9 @@ class OutputSink:
         """The map layers kept to the end: the motion and depth layers of the map sheets and
         ``map_frames``, whose encodings use clip-wide ranges (normal and light-direction
         sheets are encoded as frames arrive)."""
-        out = self.look.output
-        return {k: v for k, v in layers.items() if (out.sheet is not None or out.map_frames) and is_ranged(k)}
+        if not keeps_ranged_layers(self.look.output):
+            return {}
+        return {k: v for k, v in layers.items() if is_ranged(k)}
 
     def _start(self, frame: int, shape) -> int:
         """Record ``frame``; lay the sheet out on the first one. Returns its index (its cell)."""
