@@ -10,7 +10,9 @@ bytes):
 
 * **simulation**: the live puffs (about :data:`BYTES_PER_PUFF` each: the
   driver's buffers, one frame's state, its splats and the compositor's
-  per-splat layout), plus the twin driver's held frames for exact loops;
+  per-splat layout), plus the twin driver's held frames for exact loops
+  when they fit (see :data:`HOLD_SHARE`; otherwise the warm-up driver runs
+  and holds none);
 * **compositing**: the (tile, splat) pairs, 16 bytes each (with slack), from the largest
   footprint a puff can reach (``size`` times the largest ``grow``, in pixels
   at the camera's target), and the row tables (at most
@@ -57,7 +59,7 @@ from splatter.fit import FIT_PUFFS
 from splatter.look.records import LookSpec
 from splatter.raster.compositor import TABLE_BYTES, TILE
 from splatter.sim.plan import crossfade_frames
-from splatter.sim.driver import TWIN_MEMORY, SimPlan
+from splatter.sim.driver import TWIN_MEMORY, SimPlan, twin_hold_bytes
 
 __all__ = ["CostEstimate", "estimate_cost", "births_per_step", "memory_limit", "parse_size", "format_bytes",
            "refuse_if_too_big"]
@@ -87,6 +89,18 @@ STEP_SECONDS = 2e-5
 
 LIMIT_SHARE = 0.8
 """Share of the machine's available memory a render may plan to use by default."""
+
+HOLD_SHARE = 0.5
+"""Share of the limit's headroom (the limit less every other part) an exact loop's twin driver may hold.
+
+The twin driver steps one period of births (no warm-up) but holds each
+frame's early puffs until its late ones arrive; the warm-up driver gives
+the same bits with more puff-steps and no held frames.  A render lets the
+twin driver hold at least :data:`splatter.sim.driver.TWIN_MEMORY` and at
+most this share of what its limit leaves, so the choice trades spare memory
+for time and never pushes a render past its limit (the chimney demo: about
+1 GB held, 0.76 of the warm-up driver's simulate time).
+"""
 
 _PART_KEYS = {"simulation": "source.rate", "compositing": "source.size", "frames": "image",
               "sheets": "output.sheet", "previews": "output.preview", "framing": "clip.frames"}
@@ -173,6 +187,9 @@ class CostEstimate:
         Largest footprint sigma in pixels the estimate assumed.
     hints : dict of str to str
         For each part, what drives it and how to cut it.
+    hold : float
+        Bytes the simulation's twin driver may hold (``simulate``'s
+        ``hold``; see :data:`HOLD_SHARE`), counted in ``parts`` when it runs.
     """
 
     parts: Dict[str, float]
@@ -181,6 +198,7 @@ class CostEstimate:
     puffs: float
     sigma_px: float
     hints: Dict[str, str] = field(default_factory=dict)
+    hold: float = float(TWIN_MEMORY)
 
     @property
     def peak(self) -> float:
@@ -258,10 +276,7 @@ def estimate_cost(look: LookSpec, plan: SimPlan, pixel_size: float, n_frames: in
     parts: Dict[str, float] = {"baseline": float(BASELINE)}
     hints: Dict[str, str] = {}
 
-    sim = n * BYTES_PER_PUFF
-    if plan.period_steps is not None:
-        sim += min(float(TWIN_MEMORY), 128.0 * n * n_frames)
-    parts["simulation"] = sim
+    parts["simulation"] = n * BYTES_PER_PUFF
     hints["simulation"] = (f"about {n:,.0f} live puffs (source rate times life, plus bursts); "
                            "lower source.rate or source.life")
 
@@ -316,7 +331,12 @@ def estimate_cost(look: LookSpec, plan: SimPlan, pixel_size: float, n_frames: in
     # and the puff steps of the warm-up and the frames.
     foot = min(math.pi * 9.0 * mean_sigma_px**2, float(px))
     frame_steps = n_frames * plan.substeps
-    if plan.period_steps is not None:
+    # From what the other parts leave: the exact loop's held frames, when the twin driver runs.
+    hold = max(float(TWIN_MEMORY), HOLD_SHARE * (limit - sum(parts.values())))
+    need = twin_hold_bytes(plan, n_frames)
+    twins = 0.0 < need <= hold
+    if twins:
+        parts["simulation"] += need
         # The twin driver steps one period's puffs from birth to death (lives may span many periods).
         life = max((s.life[1] for s in look.sources), default=0.0)
         steps = life / plan.dt + frame_steps
@@ -326,7 +346,7 @@ def estimate_cost(look: LookSpec, plan: SimPlan, pixel_size: float, n_frames: in
         puff_steps = n * steps
     seconds = n * foot * n_frames / PIXELS_PER_SECOND + puff_steps / PUFF_STEPS_PER_SECOND + steps * STEP_SECONDS
     return CostEstimate(parts=parts, seconds=seconds, limit=int(limit), puffs=n, sigma_px=float(sigma_px),
-                        hints=hints)
+                        hints=hints, hold=hold)
 
 
 def _cure(option_name: str, gib: int) -> str:

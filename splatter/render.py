@@ -174,7 +174,7 @@ def pixel_size(camera: Camera) -> float:
 
 
 def refuse_if_over_memory(look: LookSpec, n_frames: int, *, max_memory=None, plan: Optional[SimPlan] = None,
-                          camera: Optional[Camera] = None, option_name: str = "max_memory") -> None:
+                          camera: Optional[Camera] = None, option_name: str = "max_memory") -> float:
     """Raise :class:`LookError` (nothing simulated or written) when the render would not fit in memory.
 
     Without ``plan`` and ``camera`` the estimate is made at the look's own
@@ -197,6 +197,12 @@ def refuse_if_over_memory(look: LookSpec, n_frames: int, *, max_memory=None, pla
     option_name : str
         How the caller sets the limit, named in the message.
 
+    Returns
+    -------
+    float
+        Bytes the simulation's twin driver may hold within the limit
+        (:attr:`splatter.cost.CostEstimate.hold`), for ``simulate``'s ``hold``.
+
     Raises
     ------
     LookError
@@ -205,7 +211,9 @@ def refuse_if_over_memory(look: LookSpec, n_frames: int, *, max_memory=None, pla
     limit = max_memory if isinstance(max_memory, int) else memory_limit(max_memory)
     if plan is None or camera is None:
         plan, camera = first_plan(look), make_camera(unfitted(look))
-    refuse_if_too_big(look, estimate_cost(look, plan, pixel_size(camera), n_frames, limit=limit), option_name)
+    est = estimate_cost(look, plan, pixel_size(camera), n_frames, limit=limit)
+    refuse_if_too_big(look, est, option_name)
+    return est.hold
 
 
 def plan_and_camera(look: LookSpec) -> "tuple[SimPlan, Camera]":
@@ -354,12 +362,13 @@ def prepare_kernels(look: LookSpec, *, say: bool = True) -> float:
 
 
 def _frame_layers(look: LookSpec, plan: SimPlan, camera: Camera, wanted: List[int], timings: Dict[str, float],
-                  maps: Optional[Iterable[str]] = None):
+                  maps: Optional[Iterable[str]] = None, hold: Optional[float] = None):
     """Each wanted frame as ``(frame, rgba, layers)``: crossfade applied, normal map added.
 
     The one frame loop :func:`render` and :func:`render_frames` share, so the
     arrays a script gets are the ones the files are written from. ``wanted``
-    is ascending.
+    is ascending; ``hold`` is what the simulation may hold (see
+    :func:`refuse_if_over_memory`).
     """
     maps = tuple(look.output.maps if maps is None else maps)
     n = look.clip.frames
@@ -371,15 +380,15 @@ def _frame_layers(look: LookSpec, plan: SimPlan, camera: Camera, wanted: List[in
         lead_frames = sorted({f - n for f in wanted if n - fade <= f < n})
         tail_frames = []
         every = sorted(set(wanted) | set(lead_frames))
-        main = frame_images(look, camera, _timed(simulate(look, plan, frames=every, warmup_frames=True), timings,
-                                                  "simulate"), maps=maps, timings=timings)
+        states = simulate(look, plan, frames=every, warmup_frames=True, hold=hold)
+        main = frame_images(look, camera, _timed(states, timings, "simulate"), maps=maps, timings=timings)
     else:
         lead_frames = []
         tail_frames = [n + f for f in wanted if f < fade] if fade else []
-        main = frame_images(look, camera, _timed(simulate(look, plan, frames=wanted), timings, "simulate"),
+        main = frame_images(look, camera, _timed(simulate(look, plan, frames=wanted, hold=hold), timings, "simulate"),
                             maps=maps, timings=timings)
-    tail = iter(frame_images(look, camera, _timed(simulate(look, plan, frames=tail_frames), timings, "simulate"),
-                             maps=maps, timings=timings)) if tail_frames else None
+    tail = iter(frame_images(look, camera, _timed(simulate(look, plan, frames=tail_frames, hold=hold), timings,
+                                                 "simulate"), maps=maps, timings=timings)) if tail_frames else None
     for frame, image, channels, sigma in main:
         if frame < 0:  # a flow's frames before frame 0, for the crossfade
             lead[frame] = image
@@ -466,7 +475,7 @@ def render(look, *, out_dir: Optional[str] = None, frames: Optional[Iterable[int
         camera = make_camera(look, plan)
     timings["fit"] = time.perf_counter() - t0
     try:
-        refuse_if_over_memory(look, len(wanted), max_memory=max_memory, plan=plan, camera=camera)
+        hold = refuse_if_over_memory(look, len(wanted), max_memory=max_memory, plan=plan, camera=camera)
     except LookError:
         remove_folders(made)  # refused at the final framing: leave no trace, keep what was there before
         raise
@@ -476,7 +485,7 @@ def render(look, *, out_dir: Optional[str] = None, frames: Optional[Iterable[int
     if record.complete_already:
         timings["total"] = time.perf_counter() - t_start
         return RenderResult(name=look.name, out_dir=folder, frames=wanted, seconds=timings)
-    fresh = _frame_layers(look, plan, camera, todo, timings)
+    fresh = _frame_layers(look, plan, camera, todo, timings, hold=hold)
     pending = set(todo)
     sink = OutputSink(look, folder, len(wanted), frames=wanted, loop=plan.effective_loop)
     borders: Dict[int, tuple] = {}
@@ -624,8 +633,8 @@ def render_frames(look, frames: Optional[Iterable[int]] = None, *, maps: Optiona
     wanted = list(frames) if frames is not None else list(range(look.clip.frames))
     refuse_if_over_memory(look, len(wanted), max_memory=max_memory)
     plan, camera = plan_and_camera(look)
-    refuse_if_over_memory(look, len(wanted), max_memory=max_memory, plan=plan, camera=camera)
-    for frame, rgba, layers in _frame_layers(look, plan, camera, wanted, {}, maps):
+    hold = refuse_if_over_memory(look, len(wanted), max_memory=max_memory, plan=plan, camera=camera)
+    for frame, rgba, layers in _frame_layers(look, plan, camera, wanted, {}, maps, hold):
         yield Frame(frame, rgba, _group_layers(layers))
 
 

@@ -114,6 +114,43 @@ def test_the_estimate_counts_each_part_from_its_sizes():
         refuse_if_too_big(look, estimate_cost(look, plan, 0.01, 12, limit=2**20))
 
 
+def test_an_exact_loops_held_frames_are_counted_only_when_the_limit_leaves_room_for_them():
+    # The twin driver (no warm-up) holds about 128 bytes a live puff a frame; the
+    # estimate counts them, and lets them be held, only within HOLD_SHARE of the
+    # headroom the other parts leave (else the warm-up driver runs, holding none).
+    from splatter.cost import BYTES_PER_PUFF, HOLD_SHARE
+    from splatter.sim.driver import TWIN_MEMORY, twin_hold_bytes
+
+    look = load_look_text(SMALL_PLUME.replace("rate = 60", "rate = 100000"))  # an exact loop
+    plan = first_plan(look)
+    need = twin_hold_bytes(plan, 64)
+    assert need == pytest.approx(128 * plan.steady_state_puffs * 64) and need > TWIN_MEMORY
+    roomy = estimate_cost(look, plan, 0.01, 64, limit=2**40)
+    others = roomy.peak - need
+    assert roomy.hold == pytest.approx(HOLD_SHARE * (2**40 - others))
+    assert roomy.parts["simulation"] == pytest.approx(roomy.puffs * BYTES_PER_PUFF + need)
+    tight = estimate_cost(look, plan, 0.01, 64, limit=int(others + 1.5 * need))  # half the headroom < need
+    assert tight.hold == pytest.approx(max(TWIN_MEMORY, 0.75 * need))
+    assert tight.parts["simulation"] == pytest.approx(tight.puffs * BYTES_PER_PUFF)
+    assert tight.fits
+
+
+def test_render_lets_the_simulation_hold_what_its_limit_leaves(tmp_path, monkeypatch):
+    import splatter.render as render_module
+
+    seen = []
+    real = render_module.simulate
+    monkeypatch.setattr(render_module, "simulate", lambda *a, **k: (seen.append(k.get("hold")) if "sample" not in k else None,
+                                                                real(*a, **k))[1])  # the frames, not the fit
+    look = load_look_text(SMALL_PLUME, tmp_path)  # an exact loop
+    for limit in (2**34, 2**29):
+        seen.clear()
+        render_module.render(look, out_dir=str(tmp_path / str(limit)), progress=False, max_memory=limit)
+        plan, camera = plan_and_camera(look)
+        est = estimate_cost(look, plan, pixel_size(camera), look.clip.frames, limit=limit)
+        assert seen and all(h == est.hold for h in seen)
+
+
 def load_look_text(text, tmp=None):
     import pathlib
     import tempfile

@@ -292,6 +292,22 @@ def test_twins_that_would_hold_too_much_take_the_warm_up(monkeypatch):
     assert _puff_steps(monkeypatch, lambda: list(simulate(look, plan, frames=range(plan.frames)))) == old
 
 
+def test_a_caller_may_let_the_twins_hold_more(monkeypatch):
+    # ``hold`` moves the bound: at exactly what the twins would hold they run,
+    # one byte under it the warm-up driver does (the same bits either way, above).
+    look = _long_life_look()
+    plan = plan_simulation(look)
+    frames = list(range(plan.frames))
+    need = driver.twin_hold_bytes(plan, len(frames))
+    assert need > 0
+    monkeypatch.setattr(driver, "TWIN_MEMORY", 0)
+    old = _puff_steps(monkeypatch, lambda: list(driver._simulate_warmup(look, plan, frames)))
+    assert _puff_steps(monkeypatch, lambda: list(simulate(look, plan, frames=frames, hold=need - 1))) == old
+    assert _puff_steps(monkeypatch, lambda: list(simulate(look, plan, frames=frames, hold=need))) < 0.75 * old
+    with pytest.raises(ValueError, match="hold"):
+        list(simulate(look, plan, frames=frames, hold=-1))
+
+
 def test_looks_the_twins_cannot_serve_take_the_warm_up():
     assert not driver._twins_apply(plan_simulation(_busy_look("none")))
     assert not driver._twins_apply(plan_simulation(_busy_look("crossfade")))

@@ -60,7 +60,8 @@ from splatter.sim.plan import SimPlan, plan_simulation
 from splatter.sim.ramps import evaluate_color_ramp, evaluate_ramp
 from splatter.sim.rng import PuffDraws
 
-__all__ = ["SimPlan", "FrameState", "plan_simulation", "simulate", "PER_PUFF_FIELDS", "empty_field"]
+__all__ = ["SimPlan", "FrameState", "plan_simulation", "simulate", "twin_hold_bytes", "PER_PUFF_FIELDS",
+           "empty_field", "TWIN_MEMORY"]
 
 @dataclass(frozen=True, eq=False)
 class FrameState:
@@ -308,7 +309,7 @@ def _state_of(look, plan: SimPlan, pick: dict, frame: int, step: int, flow: Opti
 
 
 def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int], sample: int = 1,
-             warmup_frames: bool = False) -> Iterator[FrameState]:
+             warmup_frames: bool = False, hold: Optional[float] = None) -> Iterator[FrameState]:
     """Run the simulation and yield the requested frames.
 
     Exact loops whose sources emit on their whole lattice (no ``start`` or
@@ -336,6 +337,12 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int], sam
         Allow negative frames, states of the warm-up down to
         ``-warmup_steps // substeps`` (the crossfade of a flow look blends
         the clip's end into them).
+    hold : float, optional
+        Bytes the twin driver may hold (default :data:`TWIN_MEMORY`; a
+        render passes what its memory limit leaves, see
+        :func:`splatter.cost.estimate_cost`).  An exact loop whose held
+        frames (:func:`twin_hold_bytes`) would pass it runs from the warm-up
+        instead: the same bits, more puff-steps, less memory.
 
     Yields
     ------
@@ -364,7 +371,10 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int], sam
     if isinstance(sample, bool) or int(sample) != sample or sample < 1:
         raise ValueError(f"sample: expected an integer >= 1, got {sample!r}")
     sample = int(sample)
-    if _twins_apply(plan) and _twin_bytes(plan, len(wanted)) / sample <= TWIN_MEMORY:
+    hold = TWIN_MEMORY if hold is None else hold
+    if isinstance(hold, bool) or not isinstance(hold, (int, float)) or not hold >= 0:
+        raise ValueError(f"hold: expected a number of bytes >= 0, got {hold!r}")
+    if _twins_apply(plan) and twin_hold_bytes(plan, len(wanted), sample) <= hold:
         yield from _simulate_twins(look, plan, wanted, sample)
     else:
         yield from _simulate_warmup(look, plan, wanted, sample)
@@ -449,7 +459,8 @@ def _simulate_warmup(look, plan: SimPlan, wanted: list, sample: int = 1) -> Iter
 # Exact loops from twins.
 
 TWIN_MEMORY = 256 * 2**20
-"""Bytes the twin driver may hold; above it the warm-up driver (same bits, less memory) runs.
+"""Bytes the twin driver may hold unless the caller allows more (``simulate``'s ``hold``); above it the
+warm-up driver (same bits, less memory) runs.
 
 The twin driver finishes a frame only when the puffs that fill it reach it,
 so while puffs outlive a period it holds the moving state of nearly every
@@ -462,6 +473,35 @@ _TWIN_BYTES_PER_PUFF = 128  # position, velocity, deformation and bookkeeping of
 def _twin_bytes(plan: SimPlan, frames: int) -> float:
     """What the twin driver would hold for ``frames`` requested frames, estimated from the steady-state count."""
     return plan.steady_state_puffs * frames * _TWIN_BYTES_PER_PUFF
+
+
+def twin_hold_bytes(plan: SimPlan, frames: int, sample: int = 1) -> float:
+    """Bytes the twin driver would hold for ``frames`` requested frames; 0 where it does not apply.
+
+    Parameters
+    ----------
+    plan : SimPlan
+    frames : int
+        Requested frames.
+    sample : int
+        One puff in ``sample`` simulated (see :func:`simulate`).
+
+    Returns
+    -------
+    float
+        The estimate :func:`simulate` compares with its ``hold``: about
+        :data:`_TWIN_BYTES_PER_PUFF` per steady-state puff per frame (an upper
+        bound: a frame's share grows over the period).
+
+    Examples
+    --------
+    >>> from splatter.look.records import ClipSpec, LookSpec, SourceSpec
+    >>> look = LookSpec(name="doc", clip=ClipSpec(frames=4, fps=10, loop="exact"),
+    ...                 sources=(SourceSpec(rate=100.0, life=(1.0, 1.0)),))
+    >>> twin_hold_bytes(plan_simulation(look), 4)  # 100 puffs alive, 4 frames, 128 bytes each
+    51200.0
+    """
+    return _twin_bytes(plan, frames) / sample if _twins_apply(plan) else 0.0
 
 
 def _twins_apply(plan: SimPlan) -> bool:
