@@ -311,3 +311,24 @@ def test_a_killed_local_worker_loses_no_variation(tmp_path, look):
     assert [v["status"] for v in m["variations"]] == ["done"] * 3, [v["message"] for v in m["variations"]]
     for v in m["variations"]:
         assert files_of(tmp_path / "pool" / v["folder"]) == files_of(inline / v["folder"])
+
+
+def test_local_workers_render_within_their_share_of_the_memory(tmp_path, look, monkeypatch):
+    # Each local worker's render (its refusal and what its simulation may hold)
+    # gets the share of the machine's memory the batch checked it against; a
+    # cluster's workers judge their own machines (None: the render's default).
+    import splatter.batch.run as run
+    import splatter.cost as cost
+
+    monkeypatch.setattr(cost, "memory_limit", lambda option=None: 8 * 2**30)
+    seen = []
+    monkeypatch.setattr(run, "_run_local", lambda tasks, jobs, done: seen.extend(tasks))
+    splatter.vary(str(look), seeds="1:4", jobs=2, out=str(tmp_path / "out"), progress=False)
+    assert [t["max_memory"] for t in seen] == [4 * 2**30] * 3
+    from splatter.batch.worker import render_variation
+    import splatter.render as render_module
+
+    got = []
+    monkeypatch.setattr(render_module, "render", lambda look, **kw: got.append(kw["max_memory"]) or 1 / 0)
+    render_variation(dict(seen[0], folder=str(tmp_path / "w")))
+    assert got == [4 * 2**30]

@@ -45,10 +45,10 @@ def _threads_per_job(jobs: int) -> int:
     return max(1, (os.cpu_count() or 1) // jobs)
 
 
-def _task(batch: Batch, v, threads: Optional[int]) -> Dict[str, Any]:
+def _task(batch: Batch, v, threads: Optional[int], max_memory: Optional[int] = None) -> Dict[str, Any]:
     look = batch.look if isinstance(batch.look, dict) else os.path.abspath(batch.look)
     return {"look": look, "sets": list(v.sets), "folder": os.path.abspath(os.path.join(batch.out, v.name)),
-            "threads": threads, "name": v.name}
+            "threads": threads, "max_memory": max_memory, "name": v.name}
 
 
 def _run_inline(tasks: List[Dict], done: _Done) -> None:
@@ -273,7 +273,11 @@ def run_batch(batch: Batch, *, jobs: Optional[int] = None, cluster: Optional[str
         by_name = {e["folder"]: e for e in entries}
         jobs = jobs or default_jobs(len(todo))
         threads = _threads_per_job(jobs) if client is None and jobs > 1 else None
-        tasks = [_task(batch, v, threads) for v in todo]
+        # Local workers share this machine's memory (a cluster's workers judge their own).
+        from splatter.cost import memory_limit
+
+        share = memory_limit() // jobs if client is None else None
+        tasks = [_task(batch, v, threads, share) for v in todo]
         bar = None
         if progress and tasks:
             from tqdm import tqdm

@@ -2,7 +2,8 @@
 
 A task is a plain dict (so it pickles cheaply and means the same on any
 machine): the look (a file path or a dict), its overrides, the folder to
-write and, for local workers, the compute threads. The result is a plain
+write and, for local workers, the compute threads and the worker's share of
+this machine's memory. The result is a plain
 dict too. Every failure comes back as ``status = "failed"`` with a message,
 so one bad variation never stops the others.
 
@@ -36,7 +37,10 @@ def render_variation(task: Dict[str, Any]) -> Dict[str, Any]:
     ----------
     task : dict
         ``look`` (path or dict), ``sets`` (list of ``KEY=VALUE``), ``folder``
-        (where its files go), ``threads`` (int or None: leave numba's).
+        (where its files go), ``threads`` (int or None: leave numba's),
+        ``max_memory`` (bytes, or None for the render's default: a local
+        worker's share of this machine's memory, which also bounds what its
+        simulation may hold).
 
     Returns
     -------
@@ -60,7 +64,7 @@ def render_variation(task: Dict[str, Any]) -> Dict[str, Any]:
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
             look = load_look(task["look"], overrides=task["sets"])
-            result = render(look, out_dir=task["folder"], progress=False)
+            result = render(look, out_dir=task["folder"], progress=False, max_memory=task.get("max_memory"))
         out.update(status="done", files=list(result.files), warnings=[str(w.message) for w in caught])
     except LookError as err:
         out["message"] = str(err)
