@@ -63,37 +63,47 @@ def test_light_factor_ambient_and_shadow_limits():
     assert np.allclose(f[:, 0], t)
 
 
-def test_empty_distance_is_scipys_chessboard_distance_transform():
-    # Reference: scipy.ndimage.distance_transform_cdt with the chessboard
-    # metric, the L-infinity distance from each zero cell to the nearest
-    # non-zero one (a general-purpose reference library).
+def _march_with_scipy(grid, points, direction, step=0.5):
+    """Reference: from each point, trapezoid rule at ``step``-cell steps toward the light over
+    trilinear lookups by scipy.ndimage.map_coordinates (order 1, zero outside the grid), to
+    past the grid's far edge (a general-purpose reference library)."""
     from scipy import ndimage
 
-    from splatter.view.light import empty_distance
+    d = np.asarray(direction, float) / np.linalg.norm(direction)
+    f = (points - grid.origin) / grid.cell
+    n = int(np.ceil(2 * np.linalg.norm(grid.density.shape) / step)) + 4
+    s = np.arange(n + 1) * step
+    taus = []
+    for p in f:
+        # the part of the path before the grid counts nothing; start where the box is first reached
+        along = p[None, :] + s[:, None] * d[None, :]
+        r = ndimage.map_coordinates(grid.density, along.T, order=1, mode="grid-constant", cval=0.0)
+        w = np.ones(n + 1)
+        w[0] = w[-1] = 0.5
+        taus.append(step * grid.cell * float((w * r).sum()))
+    return np.exp(-np.array(taus))
 
-    rng = np.random.default_rng(5)
-    density = np.zeros((23, 17, 29))
-    cells = rng.integers(0, [23, 17, 29], size=(6, 3))
-    density[tuple(cells.T)] = rng.uniform(0.1, 1.0, 6)
-    expected = ndimage.distance_transform_cdt(density == 0.0, metric="chessboard")
-    assert np.array_equal(empty_distance(density), expected)
 
-
-def test_leaping_over_empty_space_changes_no_bit():
-    # The march leaps over samples whose eight corners are surely empty
-    # (they add exactly 0); marching every sample (no cell known to be
-    # empty) must give the same bits, for clustered smoke with wide gaps,
-    # rays along the axes and slanted ones, from inside and outside the smoke.
+def test_the_light_volume_agrees_with_a_march_from_each_point():
+    # The light volume interpolates the optical depth between rays one cell
+    # apart; marching from each point itself is the reference. Clustered smoke
+    # with wide gaps, rays along the axes and slanted, points inside and
+    # outside the smoke. Measured here: mean |dT| about 0.005 on slanted rays,
+    # 99 % within 0.05, where the smoke changes within a cell.
     rng = np.random.default_rng(7)
     centres = np.array([[0.0, 0.0, 0.0], [3.0, 2.5, -1.5], [-2.0, 4.0, 2.0]])
     pos = np.concatenate([c + 0.3 * rng.normal(size=(300, 3)) for c in centres])
-    size = rng.uniform(0.02, 0.08, len(pos))
+    size = rng.uniform(0.05, 0.15, len(pos))
     grid = build_density_grid(pos, size, np.full(len(pos), 0.4))
-    assert (grid.clear >= 3).mean() > 0.5  # most of the box is empty: the leaps are exercised
     dirs = np.array([[1.0, 0.0, 0.0], [0.0, -1.0, 0.0], [0.3, 1.0, 0.6], [-0.7, 0.2, -0.4], [1.0, 1.0, 1.0]])
-    probes = np.concatenate([pos, rng.uniform(-4.0, 6.0, size=(300, 3))])
-    leaping = transmittance(grid, probes, dirs)
-    grid.clear = np.zeros_like(grid.clear)
-    every = transmittance(grid, probes, dirs)
-    assert np.array_equal(leaping, every)
-    assert (every < 1.0).any() and (every < 1.0).mean() < 0.9  # shadowed and lit probes both
+    probes = np.concatenate([pos[::3], rng.uniform(-4.0, 6.0, size=(100, 3))])
+    got = transmittance(grid, probes, dirs)
+    for k, d in enumerate(dirs):
+        want = _march_with_scipy(grid, probes, d)
+        err = np.abs(got[:, k] - want)
+        assert err.mean() < 0.01 and np.quantile(err, 0.99) < 0.06, (d, err.mean(), np.quantile(err, 0.99))
+        if np.count_nonzero(d) == 1:
+            # Along an axis the nodes sit on the grid's cell lines, where the trilinear
+            # field is bilinear across the light: the two agree to the quadrature.
+            assert err.max() < 1e-3, (d, err.max())
+        assert (want < 0.9).mean() > 0.2  # shadowed probes, so the comparison means something
