@@ -107,3 +107,16 @@ def test_the_light_volume_agrees_with_a_march_from_each_point():
             # field is bilinear across the light: the two agree to the quadrature.
             assert err.max() < 1e-3, (d, err.max())
         assert (want < 0.9).mean() > 0.2  # shadowed probes, so the comparison means something
+
+
+def test_the_grids_box_is_every_puffs_three_sigma_reach():
+    # The box the grid is fitted to, computed in one pass, is exactly numpy's
+    # min(pos - 3 size) and max(pos + 3 size) per axis.
+    from splatter.view.light import _reach_bounds
+
+    rng = np.random.default_rng(3)
+    pos = rng.normal(size=(1001, 3)) * [1.0, 5.0, 0.1]
+    size = rng.uniform(0.0, 0.7, 1001)
+    lo, hi = _reach_bounds(pos, size)
+    assert np.array_equal(lo, (pos - 3.0 * size[:, None]).min(axis=0))
+    assert np.array_equal(hi, (pos + 3.0 * size[:, None]).max(axis=0))

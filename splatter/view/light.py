@@ -257,6 +257,20 @@ def tau_volume(grid: "DensityGrid", direction, *, across: float = ACROSS, along:
     return read, shape
 
 
+@numba.njit(**KERNEL)
+def _reach_bounds(pos, size):
+    """The box of every puff's 3-sigma reach: ``min(pos - 3 size)``, ``max(pos + 3 size)`` per axis
+    (one pass, no temporaries; exactly numpy's values)."""
+    lo = np.full(3, np.inf)
+    hi = np.full(3, -np.inf)
+    for i in range(pos.shape[0]):
+        r = 3.0 * size[i]
+        for a in range(3):
+            lo[a] = min(lo[a], pos[i, a] - r)
+            hi[a] = max(hi[a], pos[i, a] + r)
+    return lo, hi
+
+
 def _gaussian_weights(sigma_cells: float) -> np.ndarray:
     r = max(1, int(math.ceil(3.0 * sigma_cells)))
     x = np.arange(-r, r + 1, dtype=np.float64)
@@ -287,8 +301,7 @@ def build_density_grid(pos, size, tau0, *, grid: int = GRID) -> DensityGrid:
     tau0 = np.asarray(tau0, dtype=np.float64)
     if pos.shape[0] == 0:
         return DensityGrid(np.zeros((1, 1, 1)), np.zeros(3), 1.0)
-    lo = (pos - 3.0 * size[:, None]).min(axis=0)
-    hi = (pos + 3.0 * size[:, None]).max(axis=0)
+    lo, hi = _reach_bounds(pos, size)
     cell = float((hi - lo).max()) / (grid - 1)
     cell = max(cell, 1e-9)
     dims = np.maximum(2, np.ceil((hi - lo) / cell).astype(np.int64) + 2)
