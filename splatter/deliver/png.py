@@ -61,6 +61,7 @@ def _chunk(kind: bytes, data: bytes) -> bytes:
     return struct.pack(">I", len(data)) + kind + data + struct.pack(">I", crc)
 
 
+@numba.njit(**KERNEL)
 def _paeth_filter(rows, prev, bpp):
     """Paeth-filter a band of rows (W3C PNG spec, "Filter type 4: Paeth").
 
@@ -77,23 +78,37 @@ def _paeth_filter(rows, prev, bpp):
     -------
     (n, stride + 1) uint8 ndarray
         Filter-type byte 4 followed by the filtered bytes of each row.
+
+    Examples
+    --------
+    >>> rows = np.array([[10, 20, 30, 40]], dtype=np.uint8)
+    >>> _paeth_filter(rows, np.array([5, 5, 5, 5], dtype=np.uint8), 2).tolist()
+    [[4, 5, 15, 20, 20]]
     """
-    x = rows.astype(np.int16)
-    above = np.empty_like(x)
-    above[0] = prev
-    above[1:] = x[:-1]
-    left = np.zeros_like(x)
-    left[:, bpp:] = x[:, :-bpp]
-    upleft = np.zeros_like(x)
-    upleft[:, bpp:] = above[:, :-bpp]
-    p = left + above - upleft
-    pa = np.abs(p - left)
-    pb = np.abs(p - above)
-    pc = np.abs(p - upleft)
-    pred = np.where((pa <= pb) & (pa <= pc), left, np.where(pb <= pc, above, upleft))
-    out = np.empty((x.shape[0], x.shape[1] + 1), dtype=np.uint8)
-    out[:, 0] = 4
-    out[:, 1:] = ((x - pred) & 0xFF).astype(np.uint8)
+    n, stride = rows.shape
+    out = np.empty((n, stride + 1), dtype=np.uint8)
+    for r in range(n):
+        out[r, 0] = 4
+        for i in range(stride):
+            x = np.int32(rows[r, i])
+            above = np.int32(rows[r - 1, i]) if r > 0 else np.int32(prev[i])
+            if i >= bpp:
+                left = np.int32(rows[r, i - bpp])
+                upleft = np.int32(rows[r - 1, i - bpp]) if r > 0 else np.int32(prev[i - bpp])
+            else:
+                left = np.int32(0)
+                upleft = np.int32(0)
+            p = left + above - upleft
+            pa = abs(p - left)
+            pb = abs(p - above)
+            pc = abs(p - upleft)
+            if pa <= pb and pa <= pc:
+                pred = left
+            elif pb <= pc:
+                pred = above
+            else:
+                pred = upleft
+            out[r, i + 1] = np.uint8((x - pred) & 0xFF)
     return out
 
 
