@@ -297,10 +297,14 @@ def _fill_tables(params, ranges, peaks, tables):
         ma = vsplat(np.float32(-0.5 * params[j, _A]))
         peak = vsplat(peaks[j])
         k = vadd(vramp(), vsplat(np.float32(-kh)))
-        for i in range(0, _table_length(kh), LANES):
+        # The last chunk (the spare one) lies wholly past the m entries: store
+        # its zeros without taking exponentials.
+        spare = _table_length(kh) - LANES
+        for i in range(0, spare, LANES):
             t = vmul(vexp(vmul(vmul(k, k), ma)), peak)
             vstore(tables, off + i, vkeep_below(t, np.float32(m - i)))
             k = vadd(k, eight)
+        vstore(tables, off + spare, vsplat(_F0))
 
 
 BIN_CHUNKS = 16
