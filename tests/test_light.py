@@ -47,7 +47,7 @@ def test_transmittance_is_the_same_on_any_thread_count():
     rng = np.random.default_rng(2)
     pos = rng.normal(size=(500, 3))
     grid = build_density_grid(pos, np.full(500, 0.2), np.full(500, 0.3))
-    dirs = np.eye(3)
+    dirs = np.concatenate([np.eye(3), [[0.3, 0.8, 0.5]]])  # along the axes and slanted
     a, *more = on_each_thread_count(lambda: transmittance(grid, pos, dirs))
     for b in more:
         assert np.array_equal(a, b)
@@ -84,16 +84,19 @@ def _march_with_scipy(grid, points, direction, step=0.5):
     return np.exp(-np.array(taus))
 
 
-def test_the_light_volume_agrees_with_a_march_from_each_point():
+@pytest.mark.parametrize("sizes, mean_bound, p99_bound", [((0.05, 0.15), 0.01, 0.06), ((0.02, 0.08), 0.02, 0.1)])
+def test_the_light_volume_agrees_with_a_march_from_each_point(sizes, mean_bound, p99_bound):
     # The light volume interpolates the optical depth between rays one cell
     # apart; marching from each point itself is the reference. Clustered smoke
     # with wide gaps, rays along the axes and slanted, points inside and
-    # outside the smoke. Measured here: mean |dT| about 0.005 on slanted rays,
-    # 99 % within 0.05, where the smoke changes within a cell.
+    # outside the smoke. Measured here on slanted rays: with puffs about half
+    # a cell wide or more, mean |dT| about 0.005 and 99 % within 0.05; with
+    # puffs a fifth of a cell to a cell wide (the smoke changes within a
+    # cell), mean about 0.014 and 99 % within 0.08.
     rng = np.random.default_rng(7)
     centres = np.array([[0.0, 0.0, 0.0], [3.0, 2.5, -1.5], [-2.0, 4.0, 2.0]])
     pos = np.concatenate([c + 0.3 * rng.normal(size=(300, 3)) for c in centres])
-    size = rng.uniform(0.05, 0.15, len(pos))
+    size = rng.uniform(*sizes, len(pos))
     grid = build_density_grid(pos, size, np.full(len(pos), 0.4))
     dirs = np.array([[1.0, 0.0, 0.0], [0.0, -1.0, 0.0], [0.3, 1.0, 0.6], [-0.7, 0.2, -0.4], [1.0, 1.0, 1.0]])
     probes = np.concatenate([pos[::3], rng.uniform(-4.0, 6.0, size=(100, 3))])
@@ -101,7 +104,7 @@ def test_the_light_volume_agrees_with_a_march_from_each_point():
     for k, d in enumerate(dirs):
         want = _march_with_scipy(grid, probes, d)
         err = np.abs(got[:, k] - want)
-        assert err.mean() < 0.01 and np.quantile(err, 0.99) < 0.06, (d, err.mean(), np.quantile(err, 0.99))
+        assert err.mean() < mean_bound and np.quantile(err, 0.99) < p99_bound, (d, err.mean(), np.quantile(err, 0.99))
         if np.count_nonzero(d) == 1:
             # Along an axis the nodes sit on the grid's cell lines, where the trilinear
             # field is bilinear across the light: the two agree to the quadrature.
