@@ -96,9 +96,10 @@ HOLD_SHARE = 0.5
 The twin driver steps one period of births (no warm-up) but holds each
 frame's early puffs until its late ones arrive; the warm-up driver gives
 the same bits with more puff-steps and no held frames.  A render lets the
-twin driver hold at least :data:`splatter.sim.driver.TWIN_MEMORY` and at
-most this share of what its limit leaves, so the choice trades spare memory
-for time and never pushes a render past its limit (the chimney demo: about
+twin driver hold this share of what its limit leaves, or
+:data:`splatter.sim.driver.TWIN_MEMORY` if that is more, but never more than
+all of it, so the choice trades spare memory for time and never pushes a
+render past its limit (the chimney demo: about
 1 GB held, 0.76 of the warm-up driver's simulate time).
 """
 
@@ -332,7 +333,10 @@ def estimate_cost(look: LookSpec, plan: SimPlan, pixel_size: float, n_frames: in
     foot = min(math.pi * 9.0 * mean_sigma_px**2, float(px))
     frame_steps = n_frames * plan.substeps
     # From what the other parts leave: the exact loop's held frames, when the twin driver runs.
-    hold = max(float(TWIN_MEMORY), HOLD_SHARE * (limit - sum(parts.values())))
+    # At least TWIN_MEMORY, as simulate allows anyway, but never more than the room left: a resumed
+    # render simulates fewer frames than counted here, and may take the twin driver where this did not.
+    room = max(0.0, limit - sum(parts.values()))
+    hold = min(room, max(float(TWIN_MEMORY), HOLD_SHARE * room))
     need = twin_hold_bytes(plan, n_frames)
     twins = 0.0 < need <= hold
     if twins:

@@ -387,7 +387,9 @@ def _frame_layers(look: LookSpec, plan: SimPlan, camera: Camera, wanted: List[in
         tail_frames = [n + f for f in wanted if f < fade] if fade else []
         main = frame_images(look, camera, _timed(simulate(look, plan, frames=wanted, hold=hold), timings, "simulate"),
                             maps=maps, timings=timings)
-    tail = iter(frame_images(look, camera, _timed(simulate(look, plan, frames=tail_frames, hold=hold), timings,
+    # The tail runs beside the main simulation; only crossfade loops have one, and they never take the
+    # twin driver (exact loops do), so it holds nothing: hold=0 says so and keeps the estimate true.
+    tail = iter(frame_images(look, camera, _timed(simulate(look, plan, frames=tail_frames, hold=0), timings,
                                                  "simulate"), maps=maps, timings=timings)) if tail_frames else None
     for frame, image, channels, sigma in main:
         if frame < 0:  # a flow's frames before frame 0, for the crossfade

@@ -133,6 +133,12 @@ def test_an_exact_loops_held_frames_are_counted_only_when_the_limit_leaves_room_
     assert tight.hold == pytest.approx(max(TWIN_MEMORY, 0.75 * need))
     assert tight.parts["simulation"] == pytest.approx(tight.puffs * BYTES_PER_PUFF)
     assert tight.fits
+    # Little room: the hold is the room, not the driver's own 256 MB, so a resumed render
+    # (fewer frames, perhaps few enough for the twins) stays within the limit too.
+    small = estimate_cost(look, plan, 0.01, 64, limit=int(others + 100 * 2**20))
+    assert small.hold == pytest.approx(100 * 2**20) and small.hold < TWIN_MEMORY
+    assert small.parts["simulation"] == pytest.approx(small.puffs * BYTES_PER_PUFF) and small.fits
+    assert estimate_cost(look, plan, 0.01, 64, limit=int(others) - 1).hold == 0.0
 
 
 def test_render_lets_the_simulation_hold_what_its_limit_leaves(tmp_path, monkeypatch):

@@ -211,7 +211,27 @@ def vary(look, *, seeds=None, sweep=None, zip: bool = False, sets: Iterable[str]
     return run_batch(batch, jobs=jobs, cluster=cluster, dry_run=dry_run, progress=progress)
 
 
-def _refuse_too_big(todo, jobs: int) -> None:
+def worker_share(jobs: int, count: int) -> int:
+    """Bytes each local worker may plan to use: the render limit shared by the workers that start.
+
+    Parameters
+    ----------
+    jobs : int
+        Worker processes asked for.
+    count : int
+        Variations to render (no more workers start than that).
+
+    Returns
+    -------
+    int
+        :func:`splatter.cost.memory_limit` divided by ``min(jobs, count)`` (at least 1).
+    """
+    from splatter.cost import memory_limit
+
+    return memory_limit() // max(1, min(jobs, count))
+
+
+def _refuse_too_big(todo, share: int) -> None:
     """Refuse, before anything is written, a variation that would not fit in its worker's share of memory.
 
     The estimate is the one the command line makes before framing (no
@@ -219,10 +239,8 @@ def _refuse_too_big(todo, jobs: int) -> None:
     framing. Variations sent to a cluster are checked by their workers,
     whose memory this machine cannot see.
     """
-    from splatter.cost import memory_limit
     from splatter.render import refuse_if_over_memory
 
-    share = memory_limit() // max(1, jobs)
     for v in todo:
         try:
             refuse_if_over_memory(v.look, v.look.clip.frames, max_memory=share,
@@ -261,8 +279,10 @@ def run_batch(batch: Batch, *, jobs: Optional[int] = None, cluster: Optional[str
             entries.append(entry_for(v))
             todo.append(v)
     manifest = _manifest(batch, entries)
-    if cluster is None:
-        _refuse_too_big(todo, jobs or default_jobs(len(todo)))
+    # Local workers share this machine's memory, measured once (a cluster's workers judge their own).
+    share = worker_share(jobs or default_jobs(len(todo)), len(todo)) if cluster is None else None
+    if share is not None:
+        _refuse_too_big(todo, share)
     if dry_run:
         return manifest
     client = _connect(cluster) if cluster else None  # an unreachable scheduler is bad input: nothing written yet
@@ -273,10 +293,6 @@ def run_batch(batch: Batch, *, jobs: Optional[int] = None, cluster: Optional[str
         by_name = {e["folder"]: e for e in entries}
         jobs = jobs or default_jobs(len(todo))
         threads = _threads_per_job(jobs) if client is None and jobs > 1 else None
-        # Local workers share this machine's memory (a cluster's workers judge their own).
-        from splatter.cost import memory_limit
-
-        share = memory_limit() // jobs if client is None else None
         tasks = [_task(batch, v, threads, share) for v in todo]
         bar = None
         if progress and tasks:
