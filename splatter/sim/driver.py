@@ -269,7 +269,8 @@ def _frame_state(look, plan: SimPlan, puffs: _Puffs, frame: int, step: int, flow
     a = puffs.a
     live = np.flatnonzero(puffs.live[:puffs.n])
     order = live[np.lexsort((a["id"][live], a["slot"][live], a["source"][live]))]
-    return _state_of(look, plan, {name: a[name][order] for name in _STORE}, frame, step, flow)
+    # np.take along rows is several times numpy's fancy indexing for (M, 3, 3) rows, with the same values.
+    return _state_of(look, plan, {name: np.take(a[name], order, axis=0) for name in _STORE}, frame, step, flow)
 
 
 def _state_of(look, plan: SimPlan, pick: dict, frame: int, step: int, flow: Optional[Convection] = None
@@ -590,7 +591,8 @@ def _snapshot(puffs: _Puffs, shaping: bool):
     """Base numbers and moving state of the live rows."""
     live = np.flatnonzero(puffs.live[:puffs.n])
     b = puffs.buf
-    return (b["base"][live], b["pos"][live], b["vel"][live], b["deform"][live] if shaping else None)
+    return (b["base"][live], np.take(b["pos"], live, axis=0), np.take(b["vel"], live, axis=0),
+            np.take(b["deform"], live, axis=0) if shaping else None)
 
 
 def _simulate_twins(look, plan: SimPlan, wanted: list, sample: int = 1) -> Iterator[FrameState]:
@@ -637,7 +639,7 @@ def _simulate_twins(look, plan: SimPlan, wanted: list, sample: int = 1) -> Itera
         j = np.concatenate(per_j) if parts else np.zeros(0, dtype=np.int64)
         base = np.concatenate([c[0] for _, c in parts]) if parts else np.zeros(0, dtype=np.int64)
         t = static()
-        pick = {name: t[name][base] for name in _STATIC}
+        pick = {name: np.take(t[name], base, axis=0) for name in _STATIC}
         pick["pos"] = np.concatenate([c[1] for _, c in parts]) if parts else empty_field("pos")
         pick["vel"] = np.concatenate([c[2] for _, c in parts]) if parts else empty_field("vel")
         if shaping:
@@ -656,7 +658,7 @@ def _simulate_twins(look, plan: SimPlan, wanted: list, sample: int = 1) -> Itera
             pick["bstep"][twin] = bstep
             pick["id"][twin] = ids
         order = np.lexsort((pick["id"], pick["slot"], pick["source"]))
-        return _state_of(look, plan, {name: v[order] for name, v in pick.items()}, f, at[f])
+        return _state_of(look, plan, {name: np.take(v, order, axis=0) for name, v in pick.items()}, f, at[f])
 
     for s in range(last + 1):
         if s > 0:
