@@ -1,5 +1,7 @@
 """Swirl: curl noise from random Fourier modes."""
 
+import math
+
 import numba
 import numpy as np
 import pytest
@@ -153,3 +155,62 @@ def test_small_eddies_change_on_their_own_turnover_time():
     # The largest eddies keep `evolve`: frequencies 2 pi [0.5, 1.5] / evolve.
     w0 = np.abs(f.w[octave == 0])
     assert w0.min() >= 2 * np.pi * 0.5 / 2.0 and w0.max() <= 2 * np.pi * 1.5 / 2.0
+
+
+def _mode_order_reference(ft, pos, t, sigma):
+    """Swirl velocity and gradient summed puff by puff in mode order, in numpy.
+
+    The module docstring's sums written out with the kernels' operations, one
+    IEEE operation at a time (numpy's elementwise ufuncs neither fuse nor
+    reorder), with their sine/cosine and the octave doubling
+    ``C' = C^2 - S^2``, ``S' = 2 S C``; the weight ``exp(-|q|^2 sig^2 / 2)``
+    of octave 0 from the platform's libm (Python's math.exp), then its fourth
+    power per octave, below ``GRADIENT_FLOOR`` taken as 0.
+    """
+    cs = ft.swirl_phases(t)
+    n = pos.shape[0]
+    u = np.zeros((3, n))
+    g = np.zeros((9, n))
+    m = 0
+    x, y, z = pos[:, 0].copy(), pos[:, 1].copy(), pos[:, 2].copy()
+    for d in range(ft.swirl_q.shape[0]):
+        q0, q1, q2 = ft.swirl_q[d]
+        c, s = fast_sincos(q0 * x + q1 * y + q2 * z)
+        qq = -0.5 * (q0 * q0 + q1 * q1 + q2 * q2)
+        w = np.array([math.exp(qq * v * v) for v in sigma])
+        w[w < swirl.GRADIENT_FLOOR] = 0.0
+        for o in range(ft.swirl_oct[d]):
+            cp, sp = cs[0, m], cs[1, m]
+            ct = c * cp - s * sp
+            st = (s * cp + c * sp) * w
+            for a in range(3):
+                u[a] += ct * ft.swirl_b[m, a]
+                for b in range(3):
+                    g[3 * a + b] += st * (-ft.swirl_b[m, a] * ft.swirl_kt[m, b])
+            c, s = c * c - s * s, 2.0 * s * c
+            w = w * w
+            w = w * w
+            w[w < swirl.GRADIENT_FLOOR] = 0.0
+            m += 1
+    return u.T, g.T.reshape(n, 3, 3)
+
+
+def test_kernels_sum_in_mode_order_bit_for_bit():
+    # The kernels sum eight puffs at a time in registers (splatter.sim._f64x8);
+    # each puff's sums must still be the plain ones, term by term in mode order:
+    # the same bits as the reference above, for any count of puffs (1003: a
+    # last group of 8 and a last block of 64 part-filled) and for sigmas that
+    # put some, all or none of a group's octaves under the weight floor.
+    from splatter.sim.forces import pack_forces
+    from splatter.sim.integrate import air_gradient, air_velocity
+
+    ft = pack_forces([SwirlSpec(strength=0.8, scale=0.5, octaves=5, evolve=2.0)], seed=3)
+    rng = np.random.default_rng(7)
+    pos = rng.uniform(-1.0, 1.0, (1003, 3))
+    sigma = np.concatenate([np.zeros(200), 10.0 ** rng.uniform(-4, 0.5, 700), np.full(103, 3.0)])
+    want_u, want_g = _mode_order_reference(ft, pos, 0.37, sigma)
+    assert np.abs(want_g).max() > 1.0 and np.count_nonzero(want_g.reshape(-1, 9).any(axis=1) == 0) >= 103
+    assert np.array_equal(air_velocity(pos, time=0.37, forces=ft), want_u)
+    assert np.array_equal(air_gradient(pos, time=0.37, forces=ft, sigma=sigma), want_g)
+    few = slice(0, 5)  # fewer puffs than one group of eight
+    assert np.array_equal(air_gradient(pos[few], time=0.37, forces=ft, sigma=sigma[few]), want_g[few])

@@ -27,8 +27,9 @@ the same bits on any thread count.
 
 The kernels here inline helpers from :mod:`splatter.sim.forces`,
 :mod:`splatter.sim.obstacles` and :mod:`splatter.sim.swirl`; numba's on-disk cache
-only notices edits to this file, so after changing a helper delete
-``splatter/__pycache__`` (or touch this file).
+only notices edits to this file, so after changing a helper delete the cache
+(``$NUMBA_CACHE_DIR``, else ``splatter/__pycache__``). Touching this file is not
+enough: numba (0.68) stamps a source file by a hash of its bytes, not its time.
 """
 
 from __future__ import annotations

@@ -61,6 +61,7 @@ import numba
 import numpy as np
 
 from splatter.core.jit import KERNEL, PARALLEL
+from splatter.sim import _f64x8 as V
 from splatter.sim.rng import force_generator
 
 MODES_PER_OCTAVE = 16  # base directions
@@ -298,9 +299,16 @@ def _swirl_block(x, y, z, n, q, octaves, b, cs, ux, uy, uz, c, s):
 
     ``q (D, 3)`` base wavevectors with ``octaves (D,)`` harmonics each, modes
     numbered direction-major; ``cs (2, M)`` cos and sin of the time phases;
-    ``c, s`` are scratch of at least ``n``.  Loops over points are innermost
-    so they vectorise; each point's sum runs over modes in order.
+    ``c, s`` are scratch. Each point's sum runs over modes in order; the
+    octaves of a direction are summed eight points at a time in registers
+    (see :func:`_swirl_grad_block`), so rows of ``c, s, ux, uy, uz`` must hold
+    ``n`` rounded up to a multiple of 8 (lanes past ``n`` are meaningless).
     """
+    nv = (n + 7) // 8 * 8
+    for i in range(n, nv):
+        ux[i] = 0.0
+        uy[i] = 0.0
+        uz[i] = 0.0
     m = 0
     for d in range(q.shape[0]):
         q0 = q[d, 0]
@@ -308,26 +316,37 @@ def _swirl_block(x, y, z, n, q, octaves, b, cs, ux, uy, uz, c, s):
         q2 = q[d, 2]
         for i in range(n):
             c[i], s[i] = _sincos(q0 * x[i] + q1 * y[i] + q2 * z[i])
-        for o in range(octaves[d]):
-            _velocity_octave(n, c, s, cs[0, m], cs[1, m], b[m, 0], b[m, 1], b[m, 2], ux, uy, uz,
-                             o + 1 < octaves[d])
-            m += 1
+        for i in range(n, nv):
+            c[i] = 1.0
+            s[i] = 0.0
+        _direction_velocity(nv, m, octaves[d], b, cs, c, s, ux, uy, uz)
+        m += octaves[d]
 
 
 @numba.njit(inline="always", **KERNEL)
-def _velocity_octave(n, c, s, cp, sp, b0, b1, b2, ux, uy, uz, double):
-    """Add one mode's velocity ``cos(theta) b`` at points ``0 .. n-1``; then, if
-    ``double``, turn ``c, s`` (the octave's angle) into the next octave's by doubling."""
-    for i in range(n):
-        ct = c[i] * cp - s[i] * sp  # cos(2**o a + phase)
-        ux[i] += ct * b0
-        uy[i] += ct * b1
-        uz[i] += ct * b2
-    if double:
-        for i in range(n):
-            c2 = c[i] * c[i] - s[i] * s[i]
-            s[i] = 2.0 * s[i] * c[i]
-            c[i] = c2
+def _direction_velocity(nv, m0, noct, b, cs, c, s, ux, uy, uz):
+    """Add the velocity of modes ``m0 .. m0+noct-1`` (one direction's octaves) at
+    points ``0 .. nv-1`` (a multiple of 8), eight at a time: per point the
+    scalar sum ``u += cos(theta) b`` in mode order, the angle doubled between octaves."""
+    for i in range(0, nv, 8):
+        cv = V.vload(c, i)
+        sv = V.vload(s, i)
+        vx = V.vload(ux, i)
+        vy = V.vload(uy, i)
+        vz = V.vload(uz, i)
+        for o in range(noct):
+            m = m0 + o
+            ct = V.vsub(V.vmul(cv, V.vsplat(cs[0, m])), V.vmul(sv, V.vsplat(cs[1, m])))  # cos(2**o a + phase)
+            vx = V.vadd(vx, V.vmul(ct, V.vsplat(b[m, 0])))
+            vy = V.vadd(vy, V.vmul(ct, V.vsplat(b[m, 1])))
+            vz = V.vadd(vz, V.vmul(ct, V.vsplat(b[m, 2])))
+            if o + 1 < noct:
+                c2 = V.vsub(V.vmul(cv, cv), V.vmul(sv, sv))
+                sv = V.vmul(V.vmul(V.vsplat(2.0), sv), cv)
+                cv = c2
+        V.vstore(ux, i, vx)
+        V.vstore(uy, i, vy)
+        V.vstore(uz, i, vz)
 
 
 @numba.njit(inline="always", **KERNEL)
@@ -368,12 +387,30 @@ def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s, si
     transform of the puff's Gaussian, so eddies smaller than the puff mix
     its inside instead of stretching it (``sig = 0``: the point gradient).
     Octave ``o`` of a direction has ``|k| = 2**o |q|``, so its weight is the
-    previous octave's to the fourth power. ``w`` and ``st`` are scratch of ``n``. A
-    weight below :data:`GRADIENT_FLOOR` is taken as exactly 0 for that puff,
-    so when every puff of the block weighs 0 the octave's gradient terms can
-    be skipped without changing a bit: results never depend on which puffs
-    share a block (twins and warm-up, frame ranges, thread counts agree).
+    previous octave's to the fourth power. ``w`` is scratch and ``st`` unused
+    (kept for the caller's row layout). A weight below :data:`GRADIENT_FLOOR`
+    is taken as exactly 0 for that puff, so when every puff of a group of
+    eight weighs 0 the octave's gradient terms can be skipped without
+    changing a bit (a term ``+-0`` leaves a sum that started at +0 as it
+    is): results never depend on which puffs share a block (twins and
+    warm-up, frame ranges, thread counts agree).
+
+    The octaves of a direction are summed eight puffs at a time in
+    registers (:mod:`splatter.sim._f64x8`): each sum is loaded once a
+    direction, takes its terms in mode order with the scalar code's
+    operations, and is stored once, so the bits are those of a loop over
+    puffs that updates the rows in memory mode by mode. Rows of ``c, s, w,
+    ux, uy, uz, g`` must hold ``n`` rounded up to a multiple of 8 (the
+    block's 64 do); lanes past ``n`` are filled with zeros and results there
+    are meaningless.
     """
+    nv = (n + 7) // 8 * 8
+    for i in range(n, nv):  # the last group's spare lanes: no weight, finite values
+        ux[i] = 0.0
+        uy[i] = 0.0
+        uz[i] = 0.0
+        for r in range(9):
+            g[r, i] = 0.0
     m = 0
     for d in range(q.shape[0]):
         q0 = q[d, 0]
@@ -385,55 +422,84 @@ def _swirl_grad_block(x, y, z, n, q, octaves, b, kt, cs, ux, uy, uz, g, c, s, si
         # there are many of them (or a library call such as exp is in it).
         for i in range(n):
             c[i], s[i] = _sincos(q0 * x[i] + q1 * y[i] + q2 * z[i])
-        wmax = 0.0
         for i in range(n):
-            w[i] = math.exp(qq * sig[i] * sig[i])
-            if w[i] < GRADIENT_FLOOR:
-                w[i] = 0.0
-            wmax = max(wmax, w[i])
-        for o in range(octaves[d]):
-            if wmax == 0.0:
-                # Eddies this fine mix every puff of the block: velocity only.
-                _velocity_octave(n, c, s, cs[0, m], cs[1, m], b[m, 0], b[m, 1], b[m, 2], ux, uy, uz,
-                                 o + 1 < octaves[d])
-                m += 1
-                continue
-            cp = cs[0, m]
-            sp = cs[1, m]
-            b0 = b[m, 0]
-            b1 = b[m, 1]
-            b2 = b[m, 2]
-            for i in range(n):
-                ct = c[i] * cp - s[i] * sp  # cos(2**o a + phase)
-                ux[i] += ct * b0
-                uy[i] += ct * b1
-                uz[i] += ct * b2
-                st[i] = (s[i] * cp + c[i] * sp) * w[i]  # sin(2**o a + phase), seen by the whole puff
-            # -b kt^T, the mode's gradient per unit sin(theta), a row of it per loop.
-            for a in range(3):
-                _gradient_row(n, st, -b[m, a] * kt[m, 0], -b[m, a] * kt[m, 1], -b[m, a] * kt[m, 2],
-                              g[3 * a], g[3 * a + 1], g[3 * a + 2])
-            if o + 1 < octaves[d]:
-                for i in range(n):
-                    c2 = c[i] * c[i] - s[i] * s[i]
-                    s[i] = 2.0 * s[i] * c[i]
-                    c[i] = c2
-                wmax = 0.0
-                for i in range(n):
-                    w2 = w[i] * w[i]
-                    w2 = w2 * w2
-                    w[i] = w2 if w2 >= GRADIENT_FLOOR else 0.0
-                    wmax = max(wmax, w[i])
-            m += 1
+            wi = math.exp(qq * sig[i] * sig[i])
+            w[i] = 0.0 if wi < GRADIENT_FLOOR else wi
+        for i in range(n, nv):
+            c[i] = 1.0
+            s[i] = 0.0
+            w[i] = 0.0
+        _direction_octaves(nv, m, octaves[d], b, kt, cs, c, s, w, ux, uy, uz, g)
+        m += octaves[d]
 
 
 @numba.njit(inline="always", **KERNEL)
-def _gradient_row(n, st, e0, e1, e2, g0, g1, g2):
-    """``g0 += st e0``, ``g1 += st e1``, ``g2 += st e2`` at points ``0 .. n-1``."""
-    for i in range(n):
-        g0[i] += st[i] * e0
-        g1[i] += st[i] * e1
-        g2[i] += st[i] * e2
+def _direction_octaves(nv, m0, noct, b, kt, cs, c, s, w, ux, uy, uz, g):
+    """Add the velocity and gradient terms of modes ``m0 .. m0+noct-1`` (one
+    direction's octaves) at points ``0 .. nv-1`` (a multiple of 8), eight at a time."""
+    for i in range(0, nv, 8):
+        cv = V.vload(c, i)
+        sv = V.vload(s, i)
+        wv = V.vload(w, i)
+        live = V.vany_nonzero(wv)
+        vx = V.vload(ux, i)
+        vy = V.vload(uy, i)
+        vz = V.vload(uz, i)
+        g0 = V.vload(g[0], i)
+        g1 = V.vload(g[1], i)
+        g2 = V.vload(g[2], i)
+        g3 = V.vload(g[3], i)
+        g4 = V.vload(g[4], i)
+        g5 = V.vload(g[5], i)
+        g6 = V.vload(g[6], i)
+        g7 = V.vload(g[7], i)
+        g8 = V.vload(g[8], i)
+        for o in range(noct):
+            m = m0 + o
+            cp = V.vsplat(cs[0, m])
+            sp = V.vsplat(cs[1, m])
+            ct = V.vsub(V.vmul(cv, cp), V.vmul(sv, sp))  # cos(2**o a + phase)
+            vx = V.vadd(vx, V.vmul(ct, V.vsplat(b[m, 0])))
+            vy = V.vadd(vy, V.vmul(ct, V.vsplat(b[m, 1])))
+            vz = V.vadd(vz, V.vmul(ct, V.vsplat(b[m, 2])))
+            if live:
+                # sin(2**o a + phase), seen by the whole puff, times -b kt^T.
+                st = V.vmul(V.vadd(V.vmul(sv, cp), V.vmul(cv, sp)), wv)
+                nb0 = -b[m, 0]
+                nb1 = -b[m, 1]
+                nb2 = -b[m, 2]
+                k0 = kt[m, 0]
+                k1 = kt[m, 1]
+                k2 = kt[m, 2]
+                g0 = V.vadd(g0, V.vmul(st, V.vsplat(nb0 * k0)))
+                g1 = V.vadd(g1, V.vmul(st, V.vsplat(nb0 * k1)))
+                g2 = V.vadd(g2, V.vmul(st, V.vsplat(nb0 * k2)))
+                g3 = V.vadd(g3, V.vmul(st, V.vsplat(nb1 * k0)))
+                g4 = V.vadd(g4, V.vmul(st, V.vsplat(nb1 * k1)))
+                g5 = V.vadd(g5, V.vmul(st, V.vsplat(nb1 * k2)))
+                g6 = V.vadd(g6, V.vmul(st, V.vsplat(nb2 * k0)))
+                g7 = V.vadd(g7, V.vmul(st, V.vsplat(nb2 * k1)))
+                g8 = V.vadd(g8, V.vmul(st, V.vsplat(nb2 * k2)))
+            if o + 1 < noct:
+                c2 = V.vsub(V.vmul(cv, cv), V.vmul(sv, sv))
+                sv = V.vmul(V.vmul(V.vsplat(2.0), sv), cv)
+                cv = c2
+                if live:
+                    w2 = V.vmul(wv, wv)
+                    wv = V.vkeep_at_least(V.vmul(w2, w2), GRADIENT_FLOOR)
+                    live = V.vany_nonzero(wv)
+        V.vstore(ux, i, vx)
+        V.vstore(uy, i, vy)
+        V.vstore(uz, i, vz)
+        V.vstore(g[0], i, g0)
+        V.vstore(g[1], i, g1)
+        V.vstore(g[2], i, g2)
+        V.vstore(g[3], i, g3)
+        V.vstore(g[4], i, g4)
+        V.vstore(g[5], i, g5)
+        V.vstore(g[6], i, g6)
+        V.vstore(g[7], i, g7)
+        V.vstore(g[8], i, g8)
 
 
 def modified_wavenumbers(field: SwirlField) -> np.ndarray:
