@@ -22,8 +22,9 @@ stage, how much the sheet and previews add, and each process's peak memory
 beside the finished sheet's 8-bit size.
 
 With ``--rate-scale X`` (beside ``--demo``) every source's rate is multiplied
-by ``X`` (the chimney at ``--rate-scale 3.2`` holds about 200,000 live
-puffs) and only the frames-only case runs; the script prints the mean
+by ``X`` (the chimney at its own rate already holds about 189,000 live
+puffs; a source's rate may be at most 100,000 puffs/s, so X up to 1.1) and
+only the frames-only case runs; the script prints the mean
 number of live puffs the rendered frames hold, counted as they are
 simulated.
 
@@ -251,7 +252,7 @@ def main() -> int:
                     help="time the flow demo (beach bonfire) against the same look with lift instead of the flow")
     ap.add_argument("--size", type=int, default=512, help="with --flow: image width and height, px")
     ap.add_argument("--rate-scale", type=float, default=1.0,
-                    help="with --demo: multiply every source's rate (3.2: about 200,000 live puffs); frames only")
+                    help="with --demo: multiply every source's rate (at most 100,000 puffs/s a source); frames only")
     args = ap.parse_args()
     if args.flow:
         work = Path(args.keep or tempfile.mkdtemp(prefix="splatter-bench-"))
