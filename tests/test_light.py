@@ -75,7 +75,7 @@ def _march_with_scipy(grid, points, direction, step=0.5):
     s = np.arange(n + 1) * step
     taus = []
     for p in f:
-        # the part of the path before the grid counts nothing; start where the box is first reached
+        # samples outside the grid read 0 (grid-constant), so a path may start or run outside it
         along = p[None, :] + s[:, None] * d[None, :]
         r = ndimage.map_coordinates(grid.density, along.T, order=1, mode="grid-constant", cval=0.0)
         w = np.ones(n + 1)

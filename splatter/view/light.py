@@ -5,8 +5,8 @@ Method (costs in ``docs/rendering.md``):
 1. Every puff is a 3D Gaussian of optical depth: its line integral through
    the centre is ``tau0 = -ln(1 - opacity)``, so its total "optical mass" is
    ``tau0 * 2 pi sigma^2`` (the integral of a 2D Gaussian of peak ``tau0``).
-2. The masses are deposited trilinearly into a coarse density grid (at most
-   ``GRID`` cells on the longest side) around the puffs, divided by the cell
+2. The masses are deposited trilinearly into a coarse density grid (about
+   ``GRID`` cells on the longest side, two more with its border) around the puffs, divided by the cell
    volume, and blurred with a separable Gaussian of the median puff sigma, so
    the grid holds a smooth extinction field in 1/world-unit.
 3. For each light direction the optical depth toward the light is
