@@ -471,11 +471,6 @@ requested frame at once: about :data:`_TWIN_BYTES_PER_PUFF` per puff per frame.
 _TWIN_BYTES_PER_PUFF = 128  # position, velocity, deformation and bookkeeping of one puff in one held frame
 
 
-def _twin_bytes(plan: SimPlan, frames: int) -> float:
-    """What the twin driver would hold for ``frames`` requested frames, estimated from the steady-state count."""
-    return plan.steady_state_puffs * frames * _TWIN_BYTES_PER_PUFF
-
-
 def twin_hold_bytes(plan: SimPlan, frames: int, sample: int = 1) -> float:
     """Bytes the twin driver would hold for ``frames`` requested frames; 0 where it does not apply.
 
@@ -502,7 +497,9 @@ def twin_hold_bytes(plan: SimPlan, frames: int, sample: int = 1) -> float:
     >>> twin_hold_bytes(plan_simulation(look), 4)  # 100 puffs alive, 4 frames, 128 bytes each
     51200.0
     """
-    return _twin_bytes(plan, frames) / sample if _twins_apply(plan) else 0.0
+    if not _twins_apply(plan):
+        return 0.0
+    return plan.steady_state_puffs * frames * _TWIN_BYTES_PER_PUFF / sample
 
 
 def _twins_apply(plan: SimPlan) -> bool:
