@@ -269,6 +269,16 @@ def tau_volume(grid: "DensityGrid", direction, pos, *, across: float = ACROSS, a
     >>> [round(float(t), 3) for t in tau]
     [2.0, 1.0, 0.0]
     """
+    return _tau_at_cells(grid, direction, _cell_coords(grid, pos), across, along)
+
+
+def _cell_coords(grid: "DensityGrid", pos) -> np.ndarray:
+    """World positions ``(M, 3)`` in the grid's cell coordinates, contiguous float64."""
+    return np.ascontiguousarray((np.asarray(pos, dtype=np.float64).reshape(-1, 3) - grid.origin) / grid.cell)
+
+
+def _tau_at_cells(grid: "DensityGrid", direction, f, across: float = ACROSS, along: float = ALONG) -> np.ndarray:
+    """:func:`tau_volume` of points already in cell coordinates ``f`` (see :func:`_cell_coords`)."""
     u, v, d = _light_basis(direction)
     dens = np.ascontiguousarray(grid.density, dtype=np.float64)
     n = np.array(dens.shape, dtype=np.float64)
@@ -278,7 +288,6 @@ def tau_volume(grid: "DensityGrid", direction, pos, *, across: float = ACROSS, a
     shape = (int(math.floor((pu.max() - pu.min()) / across)) + 2, int(math.floor((pv.max() - pv.min()) / across)) + 2,
              int(math.floor((pt.max() - pt.min()) / along)) + 2)
     start = pu.min() * u + pv.min() * v + pt.min() * d
-    f = np.ascontiguousarray((np.asarray(pos, dtype=np.float64).reshape(-1, 3) - grid.origin) / grid.cell)
     across, along = float(across), float(along)
     cols = _columns_read(f, start, u, v, d, across, along, shape[0], shape[1])
     vol = np.zeros(shape, dtype=np.float64)  # pages of columns never summed are never touched
@@ -372,8 +381,9 @@ def transmittance(grid: DensityGrid, pos, directions) -> np.ndarray:
     pos = np.ascontiguousarray(pos, dtype=np.float64)
     tau = np.zeros((pos.shape[0], dirs.shape[0]), dtype=np.float64)
     if pos.shape[0]:
+        f = _cell_coords(grid, pos)  # once for every direction
         for k in range(dirs.shape[0]):
-            tau[:, k] = tau_volume(grid, dirs[k], pos)
+            tau[:, k] = _tau_at_cells(grid, dirs[k], f)
     return np.exp(-tau)
 
 
