@@ -33,6 +33,7 @@ from numba.core import cgutils, types
 from numba.extending import intrinsic, models, overload, register_model
 
 from splatter.core.jit import KERNEL
+from splatter.core.lanes import lane_ops
 
 __all__ = ["f32x8", "vload", "vstore", "vsplat", "vramp", "vadd", "vsub", "vmul", "vfma",
            "vmin", "vmax", "vfloor", "vpow2i", "vkeep_below", "vpowers", "vexp", "prefetch"]
@@ -59,64 +60,12 @@ class _F32x8Model(models.PrimitiveModel):
         super().__init__(dmm, fe_type, _VEC)
 
 
-def _is_f32_array(arr):
-    return (isinstance(arr, types.Array) and arr.dtype == types.float32 and arr.ndim == 1)
+_ops = lane_ops(f32x8, _VEC, types.float32, _F32, align=4, contiguous=False)
+vload, vstore, vsplat, vadd, vsub, vmul = _ops.vload, _ops.vstore, _ops.vsplat, _ops.vadd, _ops.vsub, _ops.vmul
+_splat_ir, _binary_intrinsic, _overload_vec = _ops.splat_ir, _ops.binary_intrinsic, _ops.overload_lanes
 
 
-def _splat_ir(builder, x):
-    """LLVM IR: the float ``x`` in all 8 lanes."""
-    v = builder.insert_element(ir.Constant(_VEC, ir.Undefined), x, ir.Constant(ir.IntType(32), 0))
-    return builder.shuffle_vector(v, v, ir.Constant(_IVEC, [0] * 8))
-
-
-def _lane_ptr(context, builder, arrty, arr, idx, idxty):
-    """Pointer to ``arr[idx]`` as ``<8 x float>*`` (no bounds check)."""
-    ary = context.make_array(arrty)(context, builder, arr)
-    idx = context.cast(builder, idx, idxty, types.intp)
-    ptr = builder.gep(ary.data, [idx])
-    return builder.bitcast(ptr, _VEC.as_pointer())
-
-
-# --- loads, stores, constants ----------------------------------------------------------
-
-@intrinsic
-def _vload(typingctx, arr, idx):
-    if not (_is_f32_array(arr) and isinstance(idx, types.Integer)):
-        return None
-    sig = f32x8(arr, idx)
-
-    def codegen(context, builder, signature, args):
-        ptr = _lane_ptr(context, builder, signature.args[0], args[0], args[1], signature.args[1])
-        return builder.load(ptr, align=4)
-
-    return sig, codegen
-
-
-@intrinsic
-def _vstore(typingctx, arr, idx, v):
-    if not (_is_f32_array(arr) and isinstance(idx, types.Integer) and v == f32x8):
-        return None
-    sig = types.none(arr, idx, v)
-
-    def codegen(context, builder, signature, args):
-        ptr = _lane_ptr(context, builder, signature.args[0], args[0], args[1], signature.args[1])
-        builder.store(args[2], ptr, align=4)
-        return context.get_dummy_value()
-
-    return sig, codegen
-
-
-@intrinsic
-def _vsplat(typingctx, x):
-    if x != types.float32:
-        return None
-    sig = f32x8(x)
-
-    def codegen(context, builder, signature, args):
-        return _splat_ir(builder, args[0])
-
-    return sig, codegen
-
+# --- constants ---------------------------------------------------------------------------
 
 @intrinsic
 def _vramp(typingctx):
@@ -128,45 +77,9 @@ def _vramp(typingctx):
     return sig, codegen
 
 
-def vload(arr, i):
-    """``arr[i:i+8]`` of a 1-D float32 array, as a vector (no bounds check when compiled)."""
-    return np.array(arr[i:i + 8], dtype=_F32)
-
-
-def vstore(arr, i, v):
-    """``arr[i:i+8] = v`` (no bounds check when compiled)."""
-    arr[i:i + 8] = v
-
-
-def vsplat(x):
-    """A vector with ``x`` (float32) in every lane."""
-    return np.full(8, x, dtype=_F32)
-
-
 def vramp():
     """The vector ``(0, 1, ..., 7)``."""
     return np.arange(8, dtype=_F32)
-
-
-@overload(vload)
-def _ov_vload(arr, i):
-    if _is_f32_array(arr) and isinstance(i, types.Integer):
-        return lambda arr, i: _vload(arr, i)
-    return None
-
-
-@overload(vstore)
-def _ov_vstore(arr, i, v):
-    if _is_f32_array(arr) and isinstance(i, types.Integer) and v == f32x8:
-        return lambda arr, i, v: _vstore(arr, i, v)
-    return None
-
-
-@overload(vsplat)
-def _ov_vsplat(x):
-    if x == types.float32:
-        return lambda x: _vsplat(x)
-    return None
 
 
 @overload(vramp)
@@ -214,28 +127,11 @@ def _ov_prefetch(arr, i):
 
 # --- arithmetic ---------------------------------------------------------------------
 
-def _binary_intrinsic(emit):
-    @intrinsic
-    def op(typingctx, a, b):
-        if not (a == f32x8 and b == f32x8):
-            return None
-
-        def codegen(context, builder, signature, args):
-            return emit(builder, args[0], args[1])
-
-        return f32x8(a, b), codegen
-
-    return op
-
-
 def _call_llvm(builder, name, args):
     fnty = ir.FunctionType(_VEC, [_VEC] * len(args))
     return builder.call(cgutils.get_or_insert_function(builder.module, fnty, name), args)
 
 
-_vadd = _binary_intrinsic(lambda b, x, y: b.fadd(x, y))
-_vsub = _binary_intrinsic(lambda b, x, y: b.fsub(x, y))
-_vmul = _binary_intrinsic(lambda b, x, y: b.fmul(x, y))
 _vmin = _binary_intrinsic(lambda b, x, y: _call_llvm(b, "llvm.minnum.v8f32", [x, y]))
 _vmax = _binary_intrinsic(lambda b, x, y: _call_llvm(b, "llvm.maxnum.v8f32", [x, y]))
 
@@ -331,21 +227,6 @@ def _ov_vpowers(r):
     return None
 
 
-def vadd(a, b):
-    """``a + b`` lane by lane."""
-    return (a + b).astype(_F32)
-
-
-def vsub(a, b):
-    """``a - b`` lane by lane."""
-    return (a - b).astype(_F32)
-
-
-def vmul(a, b):
-    """``a * b`` lane by lane."""
-    return (a * b).astype(_F32)
-
-
 def vfma(a, b, c):
     """``a * b + c`` lane by lane with one rounding (when compiled)."""
     return (a.astype(np.float64) * b + c).astype(_F32)
@@ -376,29 +257,7 @@ def vkeep_below(v, count):
     return np.where(np.arange(8) < count, v, _F32(0.0)).astype(_F32)
 
 
-def _overload_vec(pyfunc, impl_intrinsic, nargs):
-    if nargs == 1:
-        @overload(pyfunc)
-        def _ov(a):
-            if a == f32x8:
-                return lambda a: impl_intrinsic(a)
-            return None
-    elif nargs == 2:
-        @overload(pyfunc)
-        def _ov(a, b):
-            if a == f32x8 and b == f32x8:
-                return lambda a, b: impl_intrinsic(a, b)
-            return None
-    else:
-        @overload(pyfunc)
-        def _ov(a, b, c):
-            if a == f32x8 and b == f32x8 and c == f32x8:
-                return lambda a, b, c: impl_intrinsic(a, b, c)
-            return None
-
-
-for _py, _ir, _n in ((vadd, _vadd, 2), (vsub, _vsub, 2), (vmul, _vmul, 2), (vmin, _vmin, 2),
-                     (vmax, _vmax, 2), (vfma, _vfma, 3), (vfloor, _vfloor, 1),
+for _py, _ir, _n in ((vmin, _vmin, 2), (vmax, _vmax, 2), (vfma, _vfma, 3), (vfloor, _vfloor, 1),
                      (vpow2i, _vpow2i, 1)):
     _overload_vec(_py, _ir, _n)
 

@@ -6,7 +6,8 @@ keeps those sums in memory, loading and storing all twelve rows once per
 mode; with a value type the sums of eight puffs stay in registers over all
 the octaves of a direction. :data:`f64x8` lowers to LLVM's ``<8 x double>``
 (one AVX-512 register, two AVX ones), like the compositor's float32 type in
-:mod:`splatter.raster._simd`, whose pattern this module follows.
+:mod:`splatter.raster._simd`; loads, stores, splats and lane arithmetic are
+the shared ones of :func:`splatter.core.lanes.lane_ops`.
 
 Every operation is one IEEE operation per lane with round-to-nearest and no
 fused multiply-add, so a sum built from them has the bits of the same sum
@@ -35,6 +36,8 @@ from llvmlite import ir
 from numba.core import types
 from numba.extending import intrinsic, models, overload, register_model
 
+from splatter.core.lanes import lane_ops
+
 __all__ = ["f64x8", "vload", "vstore", "vsplat", "vadd", "vsub", "vmul", "vkeep_at_least", "vany_nonzero"]
 
 
@@ -49,7 +52,6 @@ f64x8 = F64x8Type()
 """The numba type of an 8-lane float64 vector."""
 
 _VEC = ir.VectorType(ir.DoubleType(), 8)
-_IVEC = ir.VectorType(ir.IntType(32), 8)
 _F64 = np.float64
 
 
@@ -59,145 +61,10 @@ class _F64x8Model(models.PrimitiveModel):
         super().__init__(dmm, fe_type, _VEC)
 
 
-def _is_f64_row(arr):
-    # Contiguous only: lanes are read from consecutive addresses.
-    return isinstance(arr, types.Array) and arr.dtype == types.float64 and arr.ndim == 1 and arr.layout == "C"
-
-
-def _splat_ir(builder, x):
-    """LLVM IR: the double ``x`` in all 8 lanes."""
-    v = builder.insert_element(ir.Constant(_VEC, ir.Undefined), x, ir.Constant(ir.IntType(32), 0))
-    return builder.shuffle_vector(v, v, ir.Constant(_IVEC, [0] * 8))
-
-
-def _lane_ptr(context, builder, arrty, arr, idx, idxty):
-    """Pointer to ``arr[idx]`` as ``<8 x double>*`` (no bounds check)."""
-    ary = context.make_array(arrty)(context, builder, arr)
-    idx = context.cast(builder, idx, idxty, types.intp)
-    ptr = builder.gep(ary.data, [idx])
-    return builder.bitcast(ptr, _VEC.as_pointer())
-
-
-# --- loads, stores, constants ----------------------------------------------------------
-
-@intrinsic
-def _vload(typingctx, arr, idx):
-    if not (_is_f64_row(arr) and isinstance(idx, types.Integer)):
-        return None
-
-    def codegen(context, builder, signature, args):
-        ptr = _lane_ptr(context, builder, signature.args[0], args[0], args[1], signature.args[1])
-        return builder.load(ptr, align=8)
-
-    return f64x8(arr, idx), codegen
-
-
-@intrinsic
-def _vstore(typingctx, arr, idx, v):
-    if not (_is_f64_row(arr) and isinstance(idx, types.Integer) and v == f64x8):
-        return None
-
-    def codegen(context, builder, signature, args):
-        ptr = _lane_ptr(context, builder, signature.args[0], args[0], args[1], signature.args[1])
-        builder.store(args[2], ptr, align=8)
-        return context.get_dummy_value()
-
-    return types.none(arr, idx, v), codegen
-
-
-@intrinsic
-def _vsplat(typingctx, x):
-    if x != types.float64:
-        return None
-
-    def codegen(context, builder, signature, args):
-        return _splat_ir(builder, args[0])
-
-    return f64x8(x), codegen
-
-
-def vload(arr, i):
-    """``arr[i:i+8]`` of a contiguous 1-D float64 array, as a vector (no bounds check when compiled)."""
-    return np.array(arr[i:i + 8], dtype=_F64)
-
-
-def vstore(arr, i, v):
-    """``arr[i:i+8] = v`` (no bounds check when compiled)."""
-    arr[i:i + 8] = v
-
-
-def vsplat(x):
-    """A vector with ``x`` (float64) in every lane."""
-    return np.full(8, x, dtype=_F64)
-
-
-@overload(vload)
-def _ov_vload(arr, i):
-    if _is_f64_row(arr) and isinstance(i, types.Integer):
-        return lambda arr, i: _vload(arr, i)
-    return None
-
-
-@overload(vstore)
-def _ov_vstore(arr, i, v):
-    if _is_f64_row(arr) and isinstance(i, types.Integer) and v == f64x8:
-        return lambda arr, i, v: _vstore(arr, i, v)
-    return None
-
-
-@overload(vsplat)
-def _ov_vsplat(x):
-    if x == types.float64:
-        return lambda x: _vsplat(x)
-    return None
-
-
-# --- arithmetic ---------------------------------------------------------------------
-
-def _binary_intrinsic(emit):
-    @intrinsic
-    def op(typingctx, a, b):
-        if not (a == f64x8 and b == f64x8):
-            return None
-
-        def codegen(context, builder, signature, args):
-            return emit(builder, args[0], args[1])
-
-        return f64x8(a, b), codegen
-
-    return op
-
-
-# Plain fadd/fsub/fmul carry no fast-math flags: LLVM may neither fuse nor reorder them.
-_vadd = _binary_intrinsic(lambda b, x, y: b.fadd(x, y))
-_vsub = _binary_intrinsic(lambda b, x, y: b.fsub(x, y))
-_vmul = _binary_intrinsic(lambda b, x, y: b.fmul(x, y))
-
-
-def vadd(a, b):
-    """``a + b`` lane by lane."""
-    return np.add(a, b, dtype=_F64)
-
-
-def vsub(a, b):
-    """``a - b`` lane by lane."""
-    return np.subtract(a, b, dtype=_F64)
-
-
-def vmul(a, b):
-    """``a * b`` lane by lane."""
-    return np.multiply(a, b, dtype=_F64)
-
-
-for _py, _ir in ((vadd, _vadd), (vsub, _vsub), (vmul, _vmul)):
-    def _register(py, impl):
-        @overload(py)
-        def _ov(a, b):
-            if a == f64x8 and b == f64x8:
-                return lambda a, b: impl(a, b)
-            return None
-
-    _register(_py, _ir)
+# Contiguous rows only: lanes are read from consecutive addresses.
+_ops = lane_ops(f64x8, _VEC, types.float64, _F64, align=8, contiguous=True)
+vload, vstore, vsplat, vadd, vsub, vmul = _ops.vload, _ops.vstore, _ops.vsplat, _ops.vadd, _ops.vsub, _ops.vmul
+_splat_ir = _ops.splat_ir
 
 
 @intrinsic
