@@ -324,6 +324,19 @@ def _swirl_block(x, y, z, n, q, octaves, b, cs, ux, uy, uz, c, s):
 
 
 @numba.njit(inline="always", **KERNEL)
+def _add_mode_velocity(vx, vy, vz, ct, b, m):
+    """The velocity sums of eight points plus mode ``m``'s term ``cos(theta) b``."""
+    return (V.vadd(vx, V.vmul(ct, V.vsplat(b[m, 0]))), V.vadd(vy, V.vmul(ct, V.vsplat(b[m, 1]))),
+            V.vadd(vz, V.vmul(ct, V.vsplat(b[m, 2]))))
+
+
+@numba.njit(inline="always", **KERNEL)
+def _double_angle(cv, sv):
+    """``cos`` and ``sin`` of twice the angle of ``(cv, sv)``: the next octave's (eight points)."""
+    return V.vsub(V.vmul(cv, cv), V.vmul(sv, sv)), V.vmul(V.vmul(V.vsplat(2.0), sv), cv)
+
+
+@numba.njit(inline="always", **KERNEL)
 def _direction_velocity(nv, m0, noct, b, cs, c, s, ux, uy, uz):
     """Add the velocity of modes ``m0 .. m0+noct-1`` (one direction's octaves) at
     points ``0 .. nv-1`` (a multiple of 8), eight at a time: per point the
@@ -337,13 +350,9 @@ def _direction_velocity(nv, m0, noct, b, cs, c, s, ux, uy, uz):
         for o in range(noct):
             m = m0 + o
             ct = V.vsub(V.vmul(cv, V.vsplat(cs[0, m])), V.vmul(sv, V.vsplat(cs[1, m])))  # cos(2**o a + phase)
-            vx = V.vadd(vx, V.vmul(ct, V.vsplat(b[m, 0])))
-            vy = V.vadd(vy, V.vmul(ct, V.vsplat(b[m, 1])))
-            vz = V.vadd(vz, V.vmul(ct, V.vsplat(b[m, 2])))
+            vx, vy, vz = _add_mode_velocity(vx, vy, vz, ct, b, m)
             if o + 1 < noct:
-                c2 = V.vsub(V.vmul(cv, cv), V.vmul(sv, sv))
-                sv = V.vmul(V.vmul(V.vsplat(2.0), sv), cv)
-                cv = c2
+                cv, sv = _double_angle(cv, sv)
         V.vstore(ux, i, vx)
         V.vstore(uy, i, vy)
         V.vstore(uz, i, vz)
@@ -459,9 +468,7 @@ def _direction_octaves(nv, m0, noct, b, kt, cs, c, s, w, ux, uy, uz, g):
             cp = V.vsplat(cs[0, m])
             sp = V.vsplat(cs[1, m])
             ct = V.vsub(V.vmul(cv, cp), V.vmul(sv, sp))  # cos(2**o a + phase)
-            vx = V.vadd(vx, V.vmul(ct, V.vsplat(b[m, 0])))
-            vy = V.vadd(vy, V.vmul(ct, V.vsplat(b[m, 1])))
-            vz = V.vadd(vz, V.vmul(ct, V.vsplat(b[m, 2])))
+            vx, vy, vz = _add_mode_velocity(vx, vy, vz, ct, b, m)
             if live:
                 # sin(2**o a + phase), seen by the whole puff, times -b kt^T.
                 st = V.vmul(V.vadd(V.vmul(sv, cp), V.vmul(cv, sp)), wv)
@@ -481,9 +488,7 @@ def _direction_octaves(nv, m0, noct, b, kt, cs, c, s, w, ux, uy, uz, g):
                 g7 = V.vadd(g7, V.vmul(st, V.vsplat(nb2 * k1)))
                 g8 = V.vadd(g8, V.vmul(st, V.vsplat(nb2 * k2)))
             if o + 1 < noct:
-                c2 = V.vsub(V.vmul(cv, cv), V.vmul(sv, sv))
-                sv = V.vmul(V.vmul(V.vsplat(2.0), sv), cv)
-                cv = c2
+                cv, sv = _double_angle(cv, sv)
                 if live:
                     w2 = V.vmul(wv, wv)
                     wv = V.vkeep_at_least(V.vmul(w2, w2), GRADIENT_FLOOR)
