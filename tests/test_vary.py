@@ -325,6 +325,11 @@ def test_local_workers_render_within_their_share_of_the_memory(tmp_path, look, m
     monkeypatch.setattr(run, "_run_local", lambda tasks, jobs, done: seen.extend(tasks))
     splatter.vary(str(look), seeds="1:4", jobs=2, out=str(tmp_path / "out"), progress=False)
     assert [t["max_memory"] for t in seen] == [4 * 2**30] * 3
+    # More workers asked for than variations: only three start, so each gets a third.
+    more = []
+    monkeypatch.setattr(run, "_run_local", lambda tasks, jobs, done: more.extend(tasks))
+    splatter.vary(str(look), seeds="1:4", jobs=8, out=str(tmp_path / "out8"), progress=False)
+    assert [t["max_memory"] for t in more] == [8 * 2**30 // 3] * 3
     from splatter.batch.worker import render_variation
     import splatter.render as render_module
 
