@@ -293,6 +293,50 @@ def test_the_relax_bound_skips_only_puffs_under_the_limit():
     assert np.array_equal(g, f[skipped])
 
 
+def test_relaxes_eight_at_a_time_give_the_bits_of_one_at_a_time():
+    # The step relaxes its puffs' shapes eight at a time in vector lanes; each lane
+    # must get exactly the scalar code's result (IEEE operations per lane, converged
+    # lanes held by a select). Reference: the one-puff step, _advance_one, in a loop.
+    # Cases: under and past the limit, exactly diagonal shapes (a[p, q] = 0 from the
+    # start), the identity, rigid puffs, per-puff limits, and counts that leave
+    # spare lanes in the last group of eight.
+    import numba
+
+    from splatter.sim.shaping import _advance, _advance_one
+
+    @numba.njit
+    def one_at_a_time(f, grad, h, follow, elongation):
+        for i in range(f.shape[0]):
+            _advance_one(f, i, grad[i, 0, 0], grad[i, 0, 1], grad[i, 0, 2], grad[i, 1, 0], grad[i, 1, 1],
+                         grad[i, 1, 2], grad[i, 2, 0], grad[i, 2, 1], grad[i, 2, 2], h, follow[i], elongation[i])
+
+    rng = np.random.default_rng(23)
+    for n in (1, 7, 8, 9, 64, 65, 203, 3001):
+        f = _random_unit_det(rng, n, 2.2)
+        f[::5] = np.diag(np.exp([1.3, -0.2, -1.1]))  # diagonal: the first rotations are skipped
+        f[1::11] = np.eye(3)
+        grad = rng.normal(0.0, 3.0, (n, 3, 3))
+        grad[::7] = np.diag([2.0, -1.5, -0.5])  # keeps diagonal shapes diagonal
+        follow = rng.choice([0.0, 0.5, 1.0], n)
+        elongation = rng.choice([1.5, 4.0, 8.0, 40.0], n)
+        # A shear of ratio 1.64 whose F^T F has c00 = c11 and c01 = 0 exactly: the first
+        # rotation must be skipped, not taken with theta = 0 / 0.
+        f[2::13] = [[1.0, 0.0, 0.5], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]]
+        grad[2::13] = 0.0
+        follow[2::13] = 1.0
+        elongation[2::13] = 1.5
+        ref = f.copy()
+        one_at_a_time(ref, grad, 0.05, follow, elongation)
+        got = f.copy()
+        _advance(got, grad, 0.05, follow, elongation)
+        assert got.tobytes() == ref.tobytes(), n
+        assert np.all(np.isfinite(got))
+        if n > 8:
+            assert not np.array_equal(ref, f)
+    relaxed = np.isclose(stretch_ratio(got), elongation, rtol=1e-9, atol=0.0)
+    assert relaxed.sum() > 100 and (~relaxed).sum() > 100  # both paths were taken
+
+
 def test_footprint_ratio_matches_the_determinants_of_the_projected_covariances():
     # sqrt(det(P S0 P^T) / det(P F S0 F^T P^T)) for the view plane P = (right, up),
     # from the covariances puff_covariances builds (definition, exact to round-off).

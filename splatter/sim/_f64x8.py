@@ -1,4 +1,4 @@
-"""Eight-lane float64 vectors for the swirl's gradient kernel.
+"""Eight-lane float64 vectors for the swirl's gradient and the shape relax.
 
 The swirl's gradient sums, for every puff, one term per mode into twelve
 running sums (three of velocity, nine of gradient). LLVM's loop vectorizer
@@ -7,7 +7,9 @@ mode; with a value type the sums of eight puffs stay in registers over all
 the octaves of a direction. :data:`f64x8` lowers to LLVM's ``<8 x double>``
 (one AVX-512 register, two AVX ones), like the compositor's float32 type in
 :mod:`splatter.raster._simd`; loads, stores, splats and lane arithmetic are
-the shared ones of :func:`splatter.core.lanes.lane_ops`.
+the shared ones of :func:`splatter.core.lanes.lane_ops`. Division, square
+root, absolute value, comparisons and a lane select serve the eigen
+decomposition of eight puffs' shapes at once (:mod:`splatter.sim.shaping`).
 
 Every operation is one IEEE operation per lane with round-to-nearest and no
 fused multiply-add, so a sum built from them has the bits of the same sum
@@ -27,18 +29,22 @@ array([ 1.,  3.,  5.,  7.,  9., 11., 13., 15.])
 array([5.e-01, 0.e+00, 2.e-12, 0.e+00, 1.e+00, 1.e-12, 3.e+00, 4.e+00])
 >>> vany_nonzero(np.zeros(8)), vany_nonzero(np.eye(8)[3])
 (False, True)
+>>> x = np.array([-4.0, -1, 0, 1, 4, 9, 16, 25])
+>>> vwhere(vge(x, vsplat(0.0)), vsqrt(x), vabs(x))
+array([4., 1., 0., 1., 2., 3., 4., 5.])
 """
 
 from __future__ import annotations
 
 import numpy as np
 from llvmlite import ir
-from numba.core import types
+from numba.core import cgutils, types
 from numba.extending import intrinsic, models, overload, register_model
 
 from splatter.core.lanes import lane_ops
 
-__all__ = ["f64x8", "vload", "vstore", "vsplat", "vadd", "vsub", "vmul", "vkeep_at_least", "vany_nonzero"]
+__all__ = ["f64x8", "vload", "vstore", "vsplat", "vadd", "vsub", "vmul", "vdiv", "vsqrt", "vabs", "vle", "vge", "veq",
+           "vwhere", "vkeep_at_least", "vany_nonzero"]
 
 
 class F64x8Type(types.Type):
@@ -115,3 +121,95 @@ def _ov_vany_nonzero(v):
     if v == f64x8:
         return lambda v: _vany_nonzero(v)
     return None
+
+
+# ---------------------------------------------------------------------------------------------------------------
+# Division, square root, absolute value; comparisons as 1.0 / 0.0 lanes and a select on them.
+
+def vdiv(a, b):
+    """``a / b`` lane by lane (IEEE division: ``x / 0`` is an infinity or NaN, no error)."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return (a / b).astype(_F64)
+
+
+def vsqrt(a):
+    """Square root lane by lane, correctly rounded (NaN for a negative lane)."""
+    with np.errstate(invalid="ignore"):
+        return np.sqrt(a).astype(_F64)
+
+
+def vabs(a):
+    """``|a|`` lane by lane."""
+    return np.abs(a).astype(_F64)
+
+
+def vle(a, b):
+    """1.0 in lanes where ``a <= b``, else 0.0 (a NaN on either side gives 0.0)."""
+    return (a <= b).astype(_F64)
+
+
+def vge(a, b):
+    """1.0 in lanes where ``a >= b``, else 0.0 (a NaN on either side gives 0.0)."""
+    return (a >= b).astype(_F64)
+
+
+def veq(a, b):
+    """1.0 in lanes where ``a == b``, else 0.0 (a NaN on either side gives 0.0)."""
+    return (a == b).astype(_F64)
+
+
+def vwhere(m, a, b):
+    """``a`` in lanes where ``m`` is not 0.0, ``b`` elsewhere (``m`` from :func:`vle` and its kin)."""
+    return np.where(m != 0.0, a, b).astype(_F64)
+
+
+def _call_vector_intrinsic(builder, name, *args):
+    """Call LLVM's ``name.v8f64`` (for example ``llvm.sqrt``) on vector arguments."""
+    fnty = ir.FunctionType(_VEC, [_VEC] * len(args))
+    return builder.call(cgutils.get_or_insert_function(builder.module, fnty, name + ".v8f64"), list(args))
+
+
+def _compare(op):
+    def emit(builder, a, b):
+        hit = builder.fcmp_ordered(op, a, b)
+        return builder.select(hit, ir.Constant(_VEC, [1.0] * 8), ir.Constant(_VEC, [0.0] * 8))
+    return emit
+
+
+for _py, _emit in ((vdiv, lambda b, x, y: b.fdiv(x, y)), (vle, _compare("<=")), (vge, _compare(">=")),
+                   (veq, _compare("=="))):
+    _ops.overload_lanes(_py, _ops.binary_intrinsic(_emit), 2)
+
+
+def _unary_intrinsic(llvm_name):
+    @intrinsic
+    def op(typingctx, a):
+        if a != f64x8:
+            return None
+
+        def codegen(context, builder, signature, args):
+            return _call_vector_intrinsic(builder, llvm_name, args[0])
+
+        return f64x8(a), codegen
+
+    return op
+
+
+_ops.overload_lanes(vsqrt, _unary_intrinsic("llvm.sqrt"), 1)
+_ops.overload_lanes(vabs, _unary_intrinsic("llvm.fabs"), 1)
+
+
+@intrinsic
+def _vwhere(typingctx, m, a, b):
+    if not (m == f64x8 and a == f64x8 and b == f64x8):
+        return None
+
+    def codegen(context, builder, signature, args):
+        # Unordered "not equal", as in vany_nonzero; masks here are only ever 1.0 or 0.0.
+        pick = builder.fcmp_unordered("!=", args[0], ir.Constant(_VEC, [0.0] * 8))
+        return builder.select(pick, args[1], args[2])
+
+    return f64x8(m, a, b), codegen
+
+
+_ops.overload_lanes(vwhere, _vwhere, 3)

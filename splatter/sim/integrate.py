@@ -50,7 +50,7 @@ from splatter.sim.forces import (
     _wind_sum,
 )
 from splatter.sim.obstacles import ObstacleTables, _collide
-from splatter.sim.shaping import _advance_one, _check_deform
+from splatter.sim.shaping import LANE_ROWS, _check_deform, _relax_listed, _shape_step
 from splatter.sim.swirl import BLOCK, _swirl_block, _swirl_grad_block, load_points
 
 
@@ -114,7 +114,7 @@ def _add_flow(buf, ux, i0, n, flow, gradient):
 
 @numba.njit(**KERNEL)
 def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, lift, sq, so, sb, ph0, ph1,
-                vortex, planes, spheres, killed, buf, skt, deform, follow, elong, sigma, flow):
+                vortex, planes, spheres, killed, buf, skt, deform, follow, elong, sigma, flow, todo, lanes):
     """Advance puffs ``i0 .. i0+n-1``; ``buf`` is (26, BLOCK) scratch.
 
     Rows: 0-2 position, 3-5 air velocity there, 6-8 midpoint position,
@@ -126,8 +126,11 @@ def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, li
     Euler and symplectic Euler, at the midpoint for the midpoint rule.
     ``flow`` (N, 3) or (N, 12), or no rows: the convection flow's velocity
     (and gradient) at each puff's start, added to the air at both points.
+    ``todo`` (BLOCK,) int64 and ``lanes`` (LANE_ROWS, 8) float64 are scratch for
+    the shapes that may need relaxing, which relax together after the loop.
     """
     shaping = deform.shape[0] > 0
+    m = 0
     wk0 = wind0[0]
     wu0 = wind0[1:]
     wk1 = wind1[0]
@@ -197,9 +200,11 @@ def _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, li
         vel[i, 1] = vy1
         vel[i, 2] = vz1
         killed[i] = k
-        if shaping:
-            _advance_one(deform, i, buf[14, j], buf[15, j], buf[16, j], buf[17, j], buf[18, j], buf[19, j],
-                         buf[20, j], buf[21, j], buf[22, j], h, follow[i], elong[i])
+        if shaping and _shape_step(deform, i, buf[14, j], buf[15, j], buf[16, j], buf[17, j], buf[18, j],
+                                   buf[19, j], buf[20, j], buf[21, j], buf[22, j], h, follow[i], elong[i]):
+            todo[m] = i
+            m += 1
+    _relax_listed(deform, todo, m, elong, lanes)
 
 
 @numba.njit(**PARALLEL)
@@ -211,8 +216,10 @@ def _step(pos, vel, age, h, method, gravity, drag, wind0, wind1, lift, sq, so, s
         i0 = blk * BLOCK
         n = min(pos.shape[0], i0 + BLOCK) - i0
         buf = np.empty((26, BLOCK))
+        todo = np.empty(BLOCK, dtype=np.int64)
+        lanes = np.empty((LANE_ROWS, 8))
         _step_block(pos, vel, age, i0, n, h, method, gravity, drag, wind0, wind1, lift, sq, so, sb, ph0, ph1,
-                    vortex, planes, spheres, killed, buf, skt, deform, follow, elong, sigma, flow)
+                    vortex, planes, spheres, killed, buf, skt, deform, follow, elong, sigma, flow, todo, lanes)
 
 
 @numba.njit(**PARALLEL)

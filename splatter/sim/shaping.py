@@ -44,6 +44,7 @@ import numba
 import numpy as np
 
 from splatter.core.jit import KERNEL, PARALLEL
+from splatter.sim import _f64x8 as V
 
 _JACOBI_SWEEPS = 12  # cyclic Jacobi on 3x3 converges to round-off in about 5 sweeps
 
@@ -105,12 +106,136 @@ def _sym_eig3(a00, a01, a02, a10, a11, a12, a20, a21, a22):
     return a00, a11, a22, v00, v01, v02, v10, v11, v12, v20, v21, v22
 
 
-@numba.njit(**KERNEL)
-def _relax(f, i, elongation):
-    """Bound the stretch ratio of ``f[i]`` ((3, 3), det 1) at ``elongation``.
+# ---------------------------------------------------------------------------------------------------------------
+# The same Jacobi sweeps on eight matrices at once.
+#
+# Each rotation is a chain of divisions and square roots that depend on one
+# another, so one matrix at a time leaves the core waiting on their latency;
+# in the chimney demo half the puffs relax every step, and the sweeps were a
+# quarter of the step. Eight matrices in the lanes of a vector register run
+# the same operations side by side. A lane whose matrix has converged (or
+# whose ``a[p, q]`` is already 0) keeps its values through a select, exactly
+# as the scalar code leaves the loop, so every lane gets the scalar bits.
 
-    Returns True when ``f[i]`` changed.
+
+@numba.njit(inline="always", **KERNEL)
+def _rotate8(go, app, apq, apr, aqp, aqq, aqr, arp, arq, arr, vp0, vp1, vp2, vq0, vq1, vq2):
+    """:func:`_rotate` on eight matrices (``f64x8`` lanes); lanes where ``go`` is 0.0 or
+    ``apq == 0`` come back unchanged."""
+    zero = V.vsplat(0.0)
+    one = V.vsplat(1.0)
+    go = V.vmul(go, V.vsub(one, V.veq(apq, zero)))
+    theta = V.vdiv(V.vsub(aqq, app), V.vmul(V.vsplat(2.0), apq))
+    sign = V.vwhere(V.vge(theta, zero), one, V.vsplat(-1.0))
+    t = V.vdiv(sign, V.vadd(V.vabs(theta), V.vsqrt(V.vadd(V.vmul(theta, theta), one))))
+    c = V.vdiv(one, V.vsqrt(V.vadd(V.vmul(t, t), one)))
+    s = V.vmul(t, c)
+    # Columns p and q.
+    app1 = V.vsub(V.vmul(c, app), V.vmul(s, apq))
+    apq1 = V.vadd(V.vmul(s, app), V.vmul(c, apq))
+    aqp1 = V.vsub(V.vmul(c, aqp), V.vmul(s, aqq))
+    aqq1 = V.vadd(V.vmul(s, aqp), V.vmul(c, aqq))
+    arp1 = V.vsub(V.vmul(c, arp), V.vmul(s, arq))
+    arq1 = V.vadd(V.vmul(s, arp), V.vmul(c, arq))
+    # Then rows p and q.
+    return (V.vwhere(go, V.vsub(V.vmul(c, app1), V.vmul(s, aqp1)), app),
+            V.vwhere(go, V.vsub(V.vmul(c, apq1), V.vmul(s, aqq1)), apq),
+            V.vwhere(go, V.vsub(V.vmul(c, apr), V.vmul(s, aqr)), apr),
+            V.vwhere(go, V.vadd(V.vmul(s, app1), V.vmul(c, aqp1)), aqp),
+            V.vwhere(go, V.vadd(V.vmul(s, apq1), V.vmul(c, aqq1)), aqq),
+            V.vwhere(go, V.vadd(V.vmul(s, apr), V.vmul(c, aqr)), aqr),
+            V.vwhere(go, arp1, arp), V.vwhere(go, arq1, arq),
+            V.vwhere(go, V.vsub(V.vmul(c, vp0), V.vmul(s, vq0)), vp0),
+            V.vwhere(go, V.vsub(V.vmul(c, vp1), V.vmul(s, vq1)), vp1),
+            V.vwhere(go, V.vsub(V.vmul(c, vp2), V.vmul(s, vq2)), vp2),
+            V.vwhere(go, V.vadd(V.vmul(s, vp0), V.vmul(c, vq0)), vq0),
+            V.vwhere(go, V.vadd(V.vmul(s, vp1), V.vmul(c, vq1)), vq1),
+            V.vwhere(go, V.vadd(V.vmul(s, vp2), V.vmul(c, vq2)), vq2))
+
+
+@numba.njit(inline="always", **KERNEL)
+def _sym_eig3x8(live, a00, a01, a02, a10, a11, a12, a20, a21, a22):
+    """:func:`_sym_eig3` on eight matrices (``f64x8`` lanes); lanes where ``live`` is 0.0 are
+    not rotated (their results are the identity's)."""
+    zero = V.vsplat(0.0)
+    one = V.vsplat(1.0)
+    v00, v01, v02 = one, zero, zero
+    v10, v11, v12 = zero, one, zero
+    v20, v21, v22 = zero, zero, one
+    tiny = V.vsplat(1e-36)
+    for _ in range(_JACOBI_SWEEPS):
+        off = V.vadd(V.vadd(V.vmul(a01, a01), V.vmul(a02, a02)), V.vmul(a12, a12))
+        diag = V.vadd(V.vadd(V.vmul(a00, a00), V.vmul(a11, a11)), V.vmul(a22, a22))
+        live = V.vmul(live, V.vsub(one, V.vle(off, V.vmul(tiny, diag))))  # converged lanes stop for good
+        if not V.vany_nonzero(live):
+            break
+        a00, a01, a02, a10, a11, a12, a20, a21, v00, v10, v20, v01, v11, v21 = _rotate8(
+            live, a00, a01, a02, a10, a11, a12, a20, a21, a22, v00, v10, v20, v01, v11, v21)
+        a00, a02, a01, a20, a22, a21, a10, a12, v00, v10, v20, v02, v12, v22 = _rotate8(
+            live, a00, a02, a01, a20, a22, a21, a10, a12, a11, v00, v10, v20, v02, v12, v22)
+        a11, a12, a10, a21, a22, a20, a01, a02, v01, v11, v21, v02, v12, v22 = _rotate8(
+            live, a11, a12, a10, a21, a22, a20, a01, a02, a00, v01, v11, v21, v02, v12, v22)
+    return a00, a11, a22, v00, v01, v02, v10, v11, v12, v20, v21, v22
+
+
+LANE_ROWS = 22
+"""Rows of the ``(LANE_ROWS, 8)`` float64 scratch :func:`_relax_listed` takes."""
+
+
+@numba.njit(**KERNEL)
+def _relax_listed(f, idx, m, elongation, lanes):
+    """Relax ``f[idx[k]]`` for ``k < m`` at ``elongation[idx[k]]`` (then rescale the
+    determinant where one changed), eight at a time: the bits of :func:`_relax`
+    and :func:`_unit_det` puff by puff.
+
+    ``idx`` (>= m,) int64; ``lanes`` (:data:`LANE_ROWS`, 8) float64 scratch:
+    rows 0-8 ``F^T F``, 9 the live lanes, 10-21 the eigen decomposition.
     """
+    for k0 in range(0, m, 8):
+        count = min(8, m - k0)
+        for j in range(8):
+            if j < count:
+                c00, c01, c02, c10, c11, c12, c20, c21, c22 = _gram(f, idx[k0 + j])
+                lanes[9, j] = 1.0
+            else:  # a spare lane: the identity, converged at once
+                c00, c01, c02, c10, c11, c12, c20, c21, c22 = 1.0, 0.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0
+                lanes[9, j] = 0.0
+            lanes[0, j] = c00
+            lanes[1, j] = c01
+            lanes[2, j] = c02
+            lanes[3, j] = c10
+            lanes[4, j] = c11
+            lanes[5, j] = c12
+            lanes[6, j] = c20
+            lanes[7, j] = c21
+            lanes[8, j] = c22
+        e0, e1, e2, v00, v01, v02, v10, v11, v12, v20, v21, v22 = _sym_eig3x8(
+            V.vload(lanes[9], 0), V.vload(lanes[0], 0), V.vload(lanes[1], 0), V.vload(lanes[2], 0),
+            V.vload(lanes[3], 0), V.vload(lanes[4], 0), V.vload(lanes[5], 0), V.vload(lanes[6], 0),
+            V.vload(lanes[7], 0), V.vload(lanes[8], 0))
+        V.vstore(lanes[10], 0, e0)
+        V.vstore(lanes[11], 0, e1)
+        V.vstore(lanes[12], 0, e2)
+        V.vstore(lanes[13], 0, v00)
+        V.vstore(lanes[14], 0, v01)
+        V.vstore(lanes[15], 0, v02)
+        V.vstore(lanes[16], 0, v10)
+        V.vstore(lanes[17], 0, v11)
+        V.vstore(lanes[18], 0, v12)
+        V.vstore(lanes[19], 0, v20)
+        V.vstore(lanes[20], 0, v21)
+        V.vstore(lanes[21], 0, v22)
+        for j in range(count):
+            i = idx[k0 + j]
+            if _relax_with(f, i, elongation[i], lanes[10, j], lanes[11, j], lanes[12, j], lanes[13, j], lanes[14, j],
+                           lanes[15, j], lanes[16, j], lanes[17, j], lanes[18, j], lanes[19, j], lanes[20, j],
+                           lanes[21, j]):
+                _unit_det(f, i)
+
+
+@numba.njit(inline="always", **KERNEL)
+def _gram(f, i):
+    """The entries of ``C = F^T F`` of ``f[i]``, row by row (``c00, c01, ..., c22``)."""
     c00 = f[i, 0, 0] * f[i, 0, 0] + f[i, 1, 0] * f[i, 1, 0] + f[i, 2, 0] * f[i, 2, 0]
     c01 = f[i, 0, 0] * f[i, 0, 1] + f[i, 1, 0] * f[i, 1, 1] + f[i, 2, 0] * f[i, 2, 1]
     c02 = f[i, 0, 0] * f[i, 0, 2] + f[i, 1, 0] * f[i, 1, 2] + f[i, 2, 0] * f[i, 2, 2]
@@ -120,9 +245,25 @@ def _relax(f, i, elongation):
     c20 = f[i, 0, 2] * f[i, 0, 0] + f[i, 1, 2] * f[i, 1, 0] + f[i, 2, 2] * f[i, 2, 0]
     c21 = f[i, 0, 2] * f[i, 0, 1] + f[i, 1, 2] * f[i, 1, 1] + f[i, 2, 2] * f[i, 2, 1]
     c22 = f[i, 0, 2] * f[i, 0, 2] + f[i, 1, 2] * f[i, 1, 2] + f[i, 2, 2] * f[i, 2, 2]
+    return c00, c01, c02, c10, c11, c12, c20, c21, c22
+
+
+@numba.njit(**KERNEL)
+def _relax(f, i, elongation):
+    """Bound the stretch ratio of ``f[i]`` ((3, 3), det 1) at ``elongation``.
+
+    Returns True when ``f[i]`` changed.
+    """
+    c00, c01, c02, c10, c11, c12, c20, c21, c22 = _gram(f, i)
     # F^T F = V diag(s^2) V^T
     e0, e1, e2, v00, v01, v02, v10, v11, v12, v20, v21, v22 = _sym_eig3(c00, c01, c02, c10, c11, c12, c20, c21,
                                                                         c22)
+    return _relax_with(f, i, elongation, e0, e1, e2, v00, v01, v02, v10, v11, v12, v20, v21, v22)
+
+
+@numba.njit(inline="always", **KERNEL)
+def _relax_with(f, i, elongation, e0, e1, e2, v00, v01, v02, v10, v11, v12, v20, v21, v22):
+    """:func:`_relax` given the eigenvalues ``e`` and eigenvector matrix ``v`` of ``F^T F``."""
     l0 = 0.5 * math.log(max(e0, 1e-300))
     l1 = 0.5 * math.log(max(e1, 1e-300))
     l2 = 0.5 * math.log(max(e2, 1e-300))
@@ -244,11 +385,12 @@ def _ratio_bound(i1, i2, i3):
 
 
 @numba.njit(**KERNEL)
-def _advance_one(f, i, g00, g01, g02, g10, g11, g12, g20, g21, g22, h, follow, elongation):
+def _shape_step(f, i, g00, g01, g02, g10, g11, g12, g20, g21, g22, h, follow, elongation):
     """One Cayley step of ``f[i]`` ((3, 3) float64) with ``A = follow * G``, then the
-    determinant rescale and, if the stretch may exceed ``elongation``, the relax."""
+    determinant rescale; True when the stretch may now exceed ``elongation`` (the
+    caller then relaxes the puff: :func:`_relax`, or :func:`_relax_listed` for many)."""
     if follow == 0.0:
-        return  # rigid puffs: F stays exactly the identity
+        return False  # rigid puffs: F stays exactly the identity
     k = 0.5 * h * follow
     # P = I - k G (to invert), Q = I + k G.
     p00 = 1.0 - k * g00
@@ -288,7 +430,14 @@ def _advance_one(f, i, g00, g01, g02, g10, g11, g12, g20, g21, g22, h, follow, e
         for q in range(3):
             nrm2 += f[i, r, q] * f[i, r, q]
     # ratio <= ||F||_F^3 when det F = 1: skip the eigen work below that.
-    if nrm2 * nrm2 * nrm2 > elongation * elongation and _may_exceed(f, i, nrm2, elongation):
+    return nrm2 * nrm2 * nrm2 > elongation * elongation and _may_exceed(f, i, nrm2, elongation)
+
+
+@numba.njit(**KERNEL)
+def _advance_one(f, i, g00, g01, g02, g10, g11, g12, g20, g21, g22, h, follow, elongation):
+    """:func:`_shape_step`, then the relax and the determinant rescale if needed, for one puff
+    (the reference the batched step is checked against)."""
+    if _shape_step(f, i, g00, g01, g02, g10, g11, g12, g20, g21, g22, h, follow, elongation):
         if _relax(f, i, elongation):
             _unit_det(f, i)
 
@@ -303,11 +452,22 @@ def _unit_det(f, i):
                 f[i, r, q] *= s
 
 
+_BLOCK = 64  # puffs stepped before their relaxes run eight at a time (any size gives the same bits)
+
+
 @numba.njit(**PARALLEL)
 def _advance(f, grad, h, follow, elongation):
-    for i in numba.prange(f.shape[0]):
-        _advance_one(f, i, grad[i, 0, 0], grad[i, 0, 1], grad[i, 0, 2], grad[i, 1, 0], grad[i, 1, 1],
-                     grad[i, 1, 2], grad[i, 2, 0], grad[i, 2, 1], grad[i, 2, 2], h, follow[i], elongation[i])
+    nblocks = (f.shape[0] + _BLOCK - 1) // _BLOCK
+    for blk in numba.prange(nblocks):
+        todo = np.empty(_BLOCK, dtype=np.int64)
+        lanes = np.empty((LANE_ROWS, 8))
+        m = 0
+        for i in range(blk * _BLOCK, min(f.shape[0], (blk + 1) * _BLOCK)):
+            if _shape_step(f, i, grad[i, 0, 0], grad[i, 0, 1], grad[i, 0, 2], grad[i, 1, 0], grad[i, 1, 1],
+                           grad[i, 1, 2], grad[i, 2, 0], grad[i, 2, 1], grad[i, 2, 2], h, follow[i], elongation[i]):
+                todo[m] = i
+                m += 1
+        _relax_listed(f, todo, m, elongation, lanes)
 
 
 @numba.njit(**PARALLEL)
