@@ -89,6 +89,50 @@ def test_quantize_round_half_up_and_clip():
         quantize(x, 10)
 
 
+def _display_chain(rgba, alpha, exposure):
+    """to_display's sRGB path written as plain numpy steps: exposure, clipped alpha,
+    straight colour (W3C PNG: premultiplied / alpha, 0 at alpha 0), clipped, sRGB encoded
+    (srgb_encode, checked against IEC 61966-2-1 above), times alpha when premultiplied."""
+    from splatter.core.colorspace import srgb_encode
+
+    a = rgba.copy()
+    a[..., :3] *= np.float32(2.0 ** exposure)
+    np.clip(a[..., 3], 0.0, 1.0, out=a[..., 3])
+    out = np.zeros_like(a)
+    out[..., 3] = a[..., 3]
+    covered = a[..., 3] > 0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        np.divide(a[..., :3], a[..., 3:4], out=out[..., :3], where=covered[..., None])
+    np.clip(out[..., :3], 0.0, 1.0, out=out[..., :3])
+    out[..., :3] = srgb_encode(out[..., :3])
+    if alpha == "premultiplied":
+        out[..., :3] *= out[..., 3:4]
+    return out
+
+
+def test_display_and_quantize_give_the_numpy_steps_bit_for_bit():
+    # The writer's sRGB path and quantize run as compiled loops; every value must be the
+    # one the numpy steps give (numpy: the general-purpose reference), NaN, infinities,
+    # negative and over-range values, alpha 0 and the sRGB knee included.
+    rng = np.random.default_rng(19)
+    img = rng.uniform(-0.2, 1.3, (61, 67, 4)).astype(np.float32)
+    img[..., 3] = rng.choice([0.0, 1e-8, 0.3, 1.0, 1.2, -0.1], img.shape[:2]) * rng.uniform(0.5, 1, img.shape[:2])
+    img[0, :4, :3] = np.float32(0.0031308)  # exactly at the knee: the linear segment
+    img[0, :4, 3] = 1.0
+    for value in (np.nan, np.inf, -np.inf):
+        img.flat[rng.integers(0, img.size, 25)] = value
+    for alpha in ("straight", "premultiplied"):
+        for exposure in (0.0, 1.5):
+            got = to_display(img, alpha=alpha, exposure=exposure)
+            want = _display_chain(img, alpha, exposure)
+            assert got.dtype == np.float32
+            np.testing.assert_array_equal(got, want)  # NaN where NaN
+            for bits, top in ((8, 255.0), (16, 65535.0)):
+                ref = np.floor(np.clip(np.nan_to_num(want.astype(np.float64), nan=0.0), 0, 1) * top + 0.5)
+                np.testing.assert_array_equal(quantize(got, bits), ref)
+    assert to_display(img)[0, 0, 0] == pytest.approx(12.92 * 0.0031308, rel=1e-6)
+
+
 def test_dilation_matches_exact_nearest_texel():
     # Reference: scipy's exact Euclidean distance transform gives the distance
     # to the nearest covered texel (ours is a separate implementation after

@@ -10,7 +10,8 @@ import numpy as np
 
 __all__ = ["srgb_encode", "srgb_decode", "hex_to_linear"]
 
-_LINEAR_KNEE = 0.0031308
+LINEAR_KNEE = 0.0031308
+"""Linear value at or below which sRGB encoding is the straight line ``12.92 L`` (IEC 61966-2-1)."""
 _ENCODED_KNEE = 0.04045
 
 
@@ -35,7 +36,7 @@ def srgb_encode(linear):
     x = np.clip(x.astype(dtype, copy=False), dtype(0.0), dtype(1.0))
     p = np.power(x, dtype(1.0 / 2.4))
     high = p + dtype(0.055) * (p - dtype(1.0))  # = 1.055 p - 0.055, exactly 1 at 1
-    return np.where(x <= dtype(_LINEAR_KNEE), dtype(12.92) * x, high).astype(dtype, copy=False)
+    return np.where(x <= dtype(LINEAR_KNEE), dtype(12.92) * x, high).astype(dtype, copy=False)
 
 
 def srgb_decode(encoded):

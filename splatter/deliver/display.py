@@ -16,11 +16,13 @@ Examples
 
 from __future__ import annotations
 
+import numba
 import numpy as np
 
 from splatter.core.args import check_choice, check_image, fail
 from splatter.core.choices import COLOR_ENCODINGS, PNG_ALPHAS, PNG_BITS
-from splatter.core.colorspace import srgb_encode
+from splatter.core.colorspace import LINEAR_KNEE
+from splatter.core.jit import KERNEL
 
 __all__ = ["unpremultiply", "to_display", "quantize"]
 
@@ -96,12 +98,75 @@ def to_display(rgba_premult_linear, *, alpha="straight", color="srgb", exposure=
         out = scaled
         np.clip(out[..., :3], 0.0, out[..., 3:4], out=out[..., :3])
         return out
+    if color == "srgb":
+        return _srgb_display(scaled, alpha == "premultiplied")
     out = unpremultiply(scaled)
     np.clip(out[..., :3], 0.0, 1.0, out=out[..., :3])
-    if color == "srgb":
-        out[..., :3] = srgb_encode(out[..., :3])
     if alpha == "premultiplied":
         out[..., :3] *= out[..., 3:4]
+    return out
+
+
+# ---------------------------------------------------------------------------------------------------------------
+# The sRGB path in two passes over the image (the frame writer runs it beside the render; as a chain of
+# numpy operations it made ten). Every value is the one the numpy chain gives: the same float32
+# divisions and products, NaN kept where np.clip keeps it, and the power itself left to numpy.
+
+_F32_0 = np.float32(0.0)
+_F32_1 = np.float32(1.0)
+_F32_KNEE = np.float32(LINEAR_KNEE)
+_F32_SLOPE = np.float32(12.92)
+_F32_OFFSET = np.float32(0.055)
+_F32_INV_GAMMA = np.float32(1.0 / 2.4)
+
+
+@numba.njit(inline="always", **KERNEL)
+def _clip01(v):
+    """``np.clip(v, 0, 1)`` for a float32 (a NaN stays NaN)."""
+    if v < _F32_0:
+        return _F32_0
+    if v > _F32_1:
+        return _F32_1
+    return v
+
+
+@numba.njit(**KERNEL)
+def _straight_clipped(rgba, colour, alpha):
+    """Straight colour clipped to [0, 1] (0 where alpha is not above 0) and alpha, of an image
+    whose alpha is already clipped: :func:`unpremultiply` then ``np.clip``."""
+    h, w, _ = rgba.shape
+    for y in range(h):
+        for x in range(w):
+            a = rgba[y, x, 3]
+            alpha[y, x] = a
+            for k in range(3):
+                colour[y, x, k] = _clip01(rgba[y, x, k] / a) if a > _F32_0 else _F32_0
+
+
+@numba.njit(**KERNEL)
+def _srgb_finish(colour, power, alpha, premultiply, out):
+    """``srgb_encode``'s two branches from ``power = colour ** (1 / 2.4)``, then alpha (and its product)."""
+    h, w, _ = colour.shape
+    for y in range(h):
+        for x in range(w):
+            a = alpha[y, x]
+            for k in range(3):
+                c = colour[y, x, k]
+                p = power[y, x, k]
+                v = _F32_SLOPE * c if c <= _F32_KNEE else p + _F32_OFFSET * (p - _F32_1)
+                out[y, x, k] = v * a if premultiply else v
+            out[y, x, 3] = a
+
+
+def _srgb_display(scaled, premultiply):
+    """Straight or premultiplied sRGB display values of ``scaled`` ((H, W, 4) float32, alpha in [0, 1])."""
+    h, w, _ = scaled.shape
+    colour = np.empty((h, w, 3), dtype=np.float32)
+    alpha = np.empty((h, w), dtype=np.float32)
+    _straight_clipped(scaled, colour, alpha)
+    power = np.power(colour, _F32_INV_GAMMA)  # numpy's float32 power, as srgb_encode takes it
+    out = np.empty((h, w, 4), dtype=np.float32)
+    _srgb_finish(colour, power, alpha, premultiply, out)
     return out
 
 
@@ -121,11 +186,21 @@ def quantize(x, bits):
         ``floor(x * (2**bits - 1) + 0.5)``: round half up.
     """
     check_choice(bits, "bits", PNG_BITS)
-    top = float(2**bits - 1)
-    v = np.array(x, dtype=np.float64)  # one working copy, then in place
-    np.nan_to_num(v, copy=False, nan=0.0)
-    np.clip(v, 0.0, 1.0, out=v)
-    v *= top
-    v += 0.5
-    np.floor(v, out=v)
-    return v.astype(np.uint8 if bits == 8 else np.uint16)
+    x = np.asarray(x)
+    out = np.empty(x.shape, dtype=np.uint8 if bits == 8 else np.uint16)
+    if x.dtype in (np.float32, np.float64):
+        _quantize(x.reshape(-1), float(2**bits - 1), out.reshape(-1))
+    else:
+        _quantize(x.astype(np.float64).reshape(-1), float(2**bits - 1), out.reshape(-1))
+    return out
+
+
+@numba.njit(**KERNEL)
+def _quantize(x, top, out):
+    """``out = floor(clip(nan_to_num(x), 0, 1) * top + 0.5)`` in float64, value by value."""
+    for i in range(x.shape[0]):
+        v = np.float64(x[i])
+        if v != v:
+            v = 0.0
+        v = min(max(v, 0.0), 1.0)
+        out[i] = np.floor(v * top + 0.5)
