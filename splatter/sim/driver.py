@@ -49,7 +49,7 @@ the puffs.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Iterable, Iterator, Optional
+from typing import Iterable, Iterator, NamedTuple, Optional
 
 import numpy as np
 
@@ -584,12 +584,59 @@ def _spawn_twins(look, plan: SimPlan, births: _Births, s: int, cursors: list, dr
     return lattice, bursts
 
 
-def _snapshot(puffs: _Puffs, shaping: bool):
-    """Base numbers and moving state of the live rows."""
+class _Rows(NamedTuple):
+    """Rows of the moving state that go into a frame: ``pos[rows]``, ``vel[rows]``, ``deform[rows]``.
+
+    Attributes
+    ----------
+    base : (m,) int64 ndarray
+        Base numbers of those rows (their index in the static table).
+    rows : (m,) int64 ndarray or None
+        Which rows of the arrays below (None: all of them, in order).
+    pos, vel : (n, 3) float64 ndarray
+    deform : (n, 3, 3) float64 ndarray or None
+        None when shapes are not advanced.
+    """
+
+    base: np.ndarray
+    rows: Optional[np.ndarray]
+    pos: np.ndarray
+    vel: np.ndarray
+    deform: Optional[np.ndarray]
+
+
+def _snapshot(puffs: _Puffs, shaping: bool, copy: bool = True) -> _Rows:
+    """The live rows of ``puffs``: copied (``copy``), or as views of its buffers for a frame made right now.
+
+    The views save a copy of every moving field; they are only good until
+    the puffs are next stepped, added to or killed.
+    """
     live = np.flatnonzero(puffs.live[:puffs.n])
     b = puffs.buf
-    return (b["base"][live], np.take(b["pos"], live, axis=0), np.take(b["vel"], live, axis=0),
-            np.take(b["deform"], live, axis=0) if shaping else None)
+    base = np.take(b["base"], live)
+    if not copy:
+        return _Rows(base, live, b["pos"][:puffs.n], b["vel"][:puffs.n], b["deform"][:puffs.n] if shaping else None)
+    return _Rows(base, None, np.take(b["pos"], live, axis=0), np.take(b["vel"], live, axis=0),
+                 np.take(b["deform"], live, axis=0) if shaping else None)
+
+
+def _gather_moving(parts: list, order: np.ndarray, shaping: bool) -> dict:
+    """``pos``, ``vel`` and ``deform`` of the rows of ``parts`` (:class:`_Rows`, one after the other), taken
+    in ``order``: one gather per field through composed row numbers."""
+    if not parts:
+        return {name: empty_field(name) for name in ("pos", "vel", "deform")}
+    rows, offset = [], 0
+    for p in parts:
+        rows.append(offset + (np.arange(p.base.shape[0], dtype=np.int64) if p.rows is None else p.rows))
+        offset += p.pos.shape[0]
+    rows = np.take(rows[0] if len(parts) == 1 else np.concatenate(rows), order)
+    out = {}
+    for name in ("pos", "vel", "deform") if shaping else ("pos", "vel"):
+        fields = [getattr(p, name) for p in parts]
+        out[name] = np.take(fields[0] if len(fields) == 1 else np.concatenate(fields), rows, axis=0)
+    if not shaping:
+        out["deform"] = np.tile(np.eye(3), (order.shape[0], 1, 1))
+    return out
 
 
 def _simulate_twins(look, plan: SimPlan, wanted: list, sample: int = 1) -> Iterator[FrameState]:
@@ -632,30 +679,29 @@ def _simulate_twins(look, plan: SimPlan, wanted: list, sample: int = 1) -> Itera
 
     def state(f):
         parts = chunks.pop(f)
-        per_j = [np.full(c[0].shape[0], j, dtype=np.int64) for j, c in parts]
-        j = np.concatenate(per_j) if parts else np.zeros(0, dtype=np.int64)
-        base = np.concatenate([c[0] for _, c in parts]) if parts else np.zeros(0, dtype=np.int64)
         t = static()
-        pick = {name: np.take(t[name], base, axis=0) for name in _STATIC}
-        pick["pos"] = np.concatenate([c[1] for _, c in parts]) if parts else empty_field("pos")
-        pick["vel"] = np.concatenate([c[2] for _, c in parts]) if parts else empty_field("vel")
-        if shaping:
-            pick["deform"] = np.concatenate([c[3] for _, c in parts]) if parts else empty_field("deform")
-        else:
-            pick["deform"] = np.tile(np.eye(3), (base.shape[0], 1, 1))
+        base = np.concatenate([p.base for _, p in parts]) if parts else np.zeros(0, dtype=np.int64)
+        j = np.concatenate([np.full(p.base.shape[0], k, dtype=np.int64) for k, p in parts]) if parts else base.copy()
+        # The sort keys first (a twin's id and birth step are its own), then every field gathered once.
+        source, slot, ident, bstep = (np.take(t[name], base) for name in ("source", "slot", "id", "bstep"))
         twin = j > 0
         if twin.any():
-            src = pick["source"][twin]
-            bstep = pick["bstep"][twin] + j[twin] * ns
-            ids = np.empty(bstep.shape[0], dtype=np.int64)
+            src = source[twin]
+            bstep_twin = bstep[twin] + j[twin] * ns
+            ids = np.empty(bstep_twin.shape[0], dtype=np.int64)
             for i, per in enumerate(births.per):
                 sel = src == i
                 if sel.any():
-                    ids[sel] = births.lattice_ids(i, pick["slot"][twin][sel] + j[twin][sel] * per, bstep[sel])
-            pick["bstep"][twin] = bstep
-            pick["id"][twin] = ids
-        order = np.lexsort((pick["id"], pick["slot"], pick["source"]))
-        return _state_of(look, plan, {name: np.take(v, order, axis=0) for name, v in pick.items()}, f, at[f])
+                    ids[sel] = births.lattice_ids(i, slot[twin][sel] + j[twin][sel] * per, bstep_twin[sel])
+            bstep[twin] = bstep_twin
+            ident[twin] = ids
+        order = np.lexsort((ident, slot, source))
+        rows = np.take(base, order)
+        pick = {"id": np.take(ident, order), "slot": np.take(slot, order), "source": np.take(source, order),
+                "bstep": np.take(bstep, order)}
+        pick.update({name: np.take(t[name], rows, axis=0) for name in ("bfrac", "life", "size0", "aspect", "quat")})
+        pick.update(_gather_moving([p for _, p in parts], order, shaping))
+        return _state_of(look, plan, pick, f, at[f])
 
     for s in range(last + 1):
         if s > 0:
@@ -673,13 +719,14 @@ def _simulate_twins(look, plan: SimPlan, wanted: list, sample: int = 1) -> Itera
             if len(puffs):
                 puffs.kill(puffs.ages(s, plan.dt) >= puffs.a["life"])
         if s % ns in phase and len(twins):
-            snap = _snapshot(twins, shaping)
+            # A copy for the frames still to come; a frame made at this boundary reads the buffers themselves.
+            snap = _snapshot(twins, shaping) if any(s < at[f] for f in phase[s % ns]) else None
             for f in phase[s % ns]:
                 if s <= at[f]:
-                    chunks[f].append(((at[f] - s) // ns, snap))
+                    chunks[f].append(((at[f] - s) // ns, snap if s < at[f] else _snapshot(twins, shaping, False)))
         while frame is not None and at[frame] == s:
             if len(once):
-                chunks[frame].append((0, _snapshot(once, shaping)))
+                chunks[frame].append((0, _snapshot(once, shaping, False)))
             yield state(frame)
             frame = next(targets, None)
         if (not twins.alive and not once.alive and all(c >= sc.per for c, sc in zip(cursors, plan.schedules))
