@@ -306,7 +306,11 @@ def _frame_state(look, plan: SimPlan, puffs: _Puffs, frame: int, step: int, flow
 
 def _state_of(look, plan: SimPlan, pick: dict, frame: int, step: int, flow: Optional[Convection] = None
               ) -> FrameState:
-    """The frame state of the stored attributes ``pick`` (already in output order) at boundary ``step``."""
+    """The frame state of the stored attributes ``pick`` (already in output order) at boundary ``step``.
+
+    The output order is sorted by source first, so each source's rows are a
+    slice, read and written in place.
+    """
     age = _ages(step, pick["bstep"], pick["bfrac"], plan.dt)
     m = age.shape[0]
     x = age / pick["life"]
@@ -315,18 +319,19 @@ def _state_of(look, plan: SimPlan, pick: dict, frame: int, step: int, flow: Opti
     glow = np.zeros((m, 3))
     stretch = np.empty(m)
     density = np.empty(m)
-    runs = _runs(look, pick["source"], ordered=True)  # sorted by source first: each source's rows are a slice
+    runs = _runs(look, pick["source"], ordered=True)
     size = _sizes(look, runs, pick["size0"], x)
     for i, rows in runs:
         src = look.sources[i]
         xs = x[rows]
-        opacity[rows] = evaluate_ramp(src.opacity, xs) * np.exp(-float(src.fade) * age[rows])
+        np.multiply(evaluate_ramp(src.opacity, xs), np.exp(-float(src.fade) * age[rows]), out=opacity[rows])
         color[rows] = evaluate_color_ramp(src.color, xs)
         if src.glow is not None:
             glow[rows] = evaluate_color_ramp(src.glow, xs)
         stretch[rows] = float(src.stretch)
         density[rows] = float(src.density)
-    vel = pick["vel"] + air_velocity(pick["pos"], time=plan.force_time(step), forces=plan.forces)
+    vel = air_velocity(pick["pos"], time=plan.force_time(step), forces=plan.forces)
+    vel += pick["vel"]  # own velocity plus air, added in place (addition commutes: the same bits)
     snapshot = None
     if flow is not None and flow.active:
         vel = vel + flow.sample(pick["pos"])
@@ -586,7 +591,8 @@ class _Births:
         return self.first(i, s) + here + (k - self.lattice(i, s - 1))
 
 
-_TWIN_FIELDS = _STORE + ("base",)
+# What stepping a twin needs (its other birth values are read from the static table when a frame is made).
+_TWIN_FIELDS = ("source", "bstep", "bfrac", "life", "size0", "pos", "vel", "deform", "base")
 _STATIC = ("id", "slot", "source", "bstep", "bfrac", "life", "size0", "aspect", "quat")
 
 
