@@ -720,20 +720,17 @@ def _simulate_twins(look, plan: SimPlan, wanted: list, sample: int = 1) -> Itera
         parts = chunks.pop(f)
         t = static()
         base = np.concatenate([p.base for _, p in parts]) if parts else np.zeros(0, dtype=np.int64)
-        j = np.concatenate([np.full(p.base.shape[0], k, dtype=np.int64) for k, p in parts]) if parts else base.copy()
         # The sort keys first (a twin's id and birth step are its own), then every field gathered once.
         source, slot, ident, bstep = (np.take(t[name], base) for name in ("source", "slot", "id", "bstep"))
-        twin = j > 0
-        if twin.any():
-            src = source[twin]
-            bstep_twin = bstep[twin] + j[twin] * ns
-            ids = np.empty(bstep_twin.shape[0], dtype=np.int64)
-            for i, per in enumerate(births.per):
-                sel = src == i
-                if sel.any():
-                    ids[sel] = births.lattice_ids(i, slot[twin][sel] + j[twin][sel] * per, bstep_twin[sel])
-            bstep[twin] = bstep_twin
-            ident[twin] = ids
+        end = 0
+        for j, p in parts:  # the twins born j periods after the stepped puffs of part p
+            start, end = end, end + p.base.shape[0]
+            if j == 0:
+                continue
+            bstep[start:end] += j * ns
+            for i, rows in _runs(look, source[start:end]):
+                ident[start:end][rows] = births.lattice_ids(i, slot[start:end][rows] + j * births.per[i],
+                                                            bstep[start:end][rows])
         order = np.lexsort((ident, slot, source))
         rows = np.take(base, order)
         pick = {"id": np.take(ident, order), "slot": np.take(slot, order), "source": np.take(source, order),
