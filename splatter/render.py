@@ -116,8 +116,17 @@ def make_camera(look: LookSpec, plan: Optional[SimPlan] = None, frames: Optional
     if frames is None:
         frames = fit_frames(look, plan)
     sample = max(1, int(plan.steady_state_puffs // FIT_PUFFS))
-    states = simulate(look, plan, frames=frames, sample=sample, warmup_frames=True)
+    states = simulate(look, plan, frames=frames, sample=sample, warmup_frames=True, air=reads_velocity(look))
     return fit_look_camera(look, cam, states, sample)
+
+
+def reads_velocity(look: LookSpec, maps: Optional[Iterable[str]] = None) -> bool:
+    """Whether a render's pictures read the puffs' velocities: a source that stretches along its
+    motion (``stretch > 0``) or a motion map (``maps``, default the look's own). When not, the
+    simulation leaves the air's velocity out of its states (``simulate(..., air=False)``): the
+    pictures and the framing are the same bits."""
+    maps = look.output.maps if maps is None else maps
+    return "motion" in maps or any(float(src.stretch) > 0.0 for src in look.sources)
 
 
 def fit_look_camera(look: LookSpec, camera: Camera, states, sample: int = 1) -> Camera:
@@ -371,6 +380,7 @@ def _frame_layers(look: LookSpec, plan: SimPlan, camera: Camera, wanted: List[in
     :func:`refuse_if_over_memory`).
     """
     maps = tuple(look.output.maps if maps is None else maps)
+    air = reads_velocity(look, maps)
     n = look.clip.frames
     fade = crossfade_frames(look.clip)
     lead = {}
@@ -380,16 +390,16 @@ def _frame_layers(look: LookSpec, plan: SimPlan, camera: Camera, wanted: List[in
         lead_frames = sorted({f - n for f in wanted if n - fade <= f < n})
         tail_frames = []
         every = sorted(set(wanted) | set(lead_frames))
-        states = simulate(look, plan, frames=every, warmup_frames=True, hold=hold)
+        states = simulate(look, plan, frames=every, warmup_frames=True, hold=hold, air=air)
         main = frame_images(look, camera, _timed(states, timings, "simulate"), maps=maps, timings=timings)
     else:
         lead_frames = []
         tail_frames = [n + f for f in wanted if f < fade] if fade else []
-        main = frame_images(look, camera, _timed(simulate(look, plan, frames=wanted, hold=hold), timings, "simulate"),
-                            maps=maps, timings=timings)
+        main = frame_images(look, camera, _timed(simulate(look, plan, frames=wanted, hold=hold, air=air), timings,
+                                                 "simulate"), maps=maps, timings=timings)
     # The tail runs beside the main simulation; only crossfade loops have one, and they never take the
     # twin driver (exact loops do), so it holds nothing: hold=0 says so and keeps the estimate true.
-    tail = iter(frame_images(look, camera, _timed(simulate(look, plan, frames=tail_frames, hold=0), timings,
+    tail = iter(frame_images(look, camera, _timed(simulate(look, plan, frames=tail_frames, hold=0, air=air), timings,
                                                  "simulate"), maps=maps, timings=timings)) if tail_frames else None
     for frame, image, channels, sigma in main:
         if frame < 0:  # a flow's frames before frame 0, for the crossfade

@@ -189,3 +189,45 @@ def test_auto_octaves_with_a_fit_camera_do_not_depend_on_the_frames_rendered(tmp
     full = digests(quiet_render(look, tmp_path / "full").out_dir)
     part = digests(quiet_render(look, tmp_path / "part", frames=range(4, 6)).out_dir)
     assert part == {k: full[k] for k in part} and len(part) == 4
+
+
+def _stirred(stretch):
+    return {"name": "stirred", "clip": {"frames": 4, "loop": "exact"}, "image": {"width": 48, "height": 40},
+            "camera": {"fit": True},
+            "source": [{"rate": 300, "life": [0.8, 1.2], "speed": [0.5, 0.8], "size": [0.05, 0.1],
+                        "stretch": stretch, "follow": 1.0}],
+            "force": [{"kind": "swirl", "strength": 1.5, "scale": 0.8, "octaves": 3, "evolve": 1.0},
+                      {"kind": "wind", "velocity": [0.6, 0.0, 0.0]}]}
+
+
+def _frames(look, maps, monkeypatch, force=None):
+    import splatter.render as R
+
+    if force is not None:
+        monkeypatch.setattr(R, "reads_velocity", lambda *a, **k: force)
+    out = [(f.rgba.copy(), {k: v.copy() for k, v in f.maps.items()}) for f in R.render_frames(look, maps=maps)]
+    monkeypatch.undo()
+    return out
+
+
+def test_states_leave_the_air_out_only_when_no_picture_reads_velocity(monkeypatch):
+    # A state's velocity (the puff's own plus the air's) reaches a picture only through
+    # the motion smear (stretch > 0) and the motion map. Without either the render skips
+    # the air's velocity, and every pixel must be the one it gives with it; with either,
+    # the air is kept, and leaving it out would show.
+    from splatter.render import as_look, reads_velocity
+
+    plain, smeared = as_look(_stirred(0.0)), as_look(_stirred(1.5))
+    assert not reads_velocity(plain) and reads_velocity(plain, ["motion"]) and reads_velocity(smeared)
+    for look, maps in ((plain, []), (plain, ["motion"]), (smeared, [])):
+        got = _frames(look, maps, monkeypatch)
+        kept = _frames(look, maps, monkeypatch, force=True)
+        for (rgba, layers), (rgba_k, layers_k) in zip(got, kept):
+            assert rgba.tobytes() == rgba_k.tobytes()
+            assert all(layers[k].tobytes() == layers_k[k].tobytes() for k in layers_k)
+    for look, maps, key in ((plain, ["motion"], "motion"), (smeared, [], None)):
+        kept = _frames(look, maps, monkeypatch, force=True)
+        left = _frames(look, maps, monkeypatch, force=False)
+        assert any((rgba.tobytes() != rgba_l.tobytes()) if key is None else
+                   (layers[key].tobytes() != layers_l[key].tobytes())
+                   for (rgba, layers), (rgba_l, layers_l) in zip(kept, left))

@@ -80,7 +80,8 @@ class FrameState:
     source : (M,) int32 ndarray
     pos : (M, 3) float64 ndarray
     vel : (M, 3) float64 ndarray
-        Velocity the puff moves with (own velocity plus swirl/vortex air).
+        Velocity the puff moves with (own velocity plus swirl/vortex air), or
+        its own alone from ``simulate(..., air=False)``.
     age, life : (M,) float64 ndarray
         Seconds.
     size : (M,) float64 ndarray
@@ -295,18 +296,21 @@ def _sizes(look, runs: list, size0, x) -> np.ndarray:
     return size
 
 
-def _frame_state(look, plan: SimPlan, puffs: _Puffs, frame: int, step: int, flow: Optional[Convection] = None
-                 ) -> FrameState:
+def _frame_state(look, plan: SimPlan, puffs: _Puffs, frame: int, step: int, flow: Optional[Convection] = None,
+                 air: bool = True) -> FrameState:
     a = puffs.a
     live = np.flatnonzero(puffs.live[:puffs.n])
     order = live[np.lexsort((a["id"][live], a["slot"][live], a["source"][live]))]
     # np.take along rows is several times numpy's fancy indexing for (M, 3, 3) rows, with the same values.
-    return _state_of(look, plan, {name: np.take(a[name], order, axis=0) for name in _STORE}, frame, step, flow)
+    return _state_of(look, plan, {name: np.take(a[name], order, axis=0) for name in _STORE}, frame, step, flow,
+                     air)
 
 
-def _state_of(look, plan: SimPlan, pick: dict, frame: int, step: int, flow: Optional[Convection] = None
-              ) -> FrameState:
+def _state_of(look, plan: SimPlan, pick: dict, frame: int, step: int, flow: Optional[Convection] = None,
+              air: bool = True) -> FrameState:
     """The frame state of the stored attributes ``pick`` (already in output order) at boundary ``step``.
+
+    ``vel`` is the puffs' own velocity plus the air's, or their own alone when ``air`` is False.
 
     The output order is sorted by source first, so each source's rows are a
     slice, read and written in place.
@@ -330,11 +334,15 @@ def _state_of(look, plan: SimPlan, pick: dict, frame: int, step: int, flow: Opti
             glow[rows] = evaluate_color_ramp(src.glow, xs)
         stretch[rows] = float(src.stretch)
         density[rows] = float(src.density)
-    vel = air_velocity(pick["pos"], time=plan.force_time(step), forces=plan.forces)
-    vel += pick["vel"]  # own velocity plus air, added in place (addition commutes: the same bits)
+    if air:
+        vel = air_velocity(pick["pos"], time=plan.force_time(step), forces=plan.forces)
+        vel += pick["vel"]  # own velocity plus air, added in place (addition commutes: the same bits)
+    else:
+        vel = pick["vel"]  # a fresh gather, not a buffer the next step moves
     snapshot = None
     if flow is not None and flow.active:
-        vel = vel + flow.sample(pick["pos"])
+        if air:
+            vel = vel + flow.sample(pick["pos"])
         snapshot = flow.snapshot()
         if snapshot is not None:
             snapshot["density"] = flow.grid.deposit(pick["pos"], opacity)
@@ -345,7 +353,7 @@ def _state_of(look, plan: SimPlan, pick: dict, frame: int, step: int, flow: Opti
 
 
 def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int], sample: int = 1,
-             warmup_frames: bool = False, hold: Optional[float] = None) -> Iterator[FrameState]:
+             warmup_frames: bool = False, hold: Optional[float] = None, air: bool = True) -> Iterator[FrameState]:
     """Run the simulation and yield the requested frames.
 
     Exact loops whose sources emit on their whole lattice (no ``start`` or
@@ -379,6 +387,13 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int], sam
         :func:`splatter.cost.estimate_cost`).  An exact loop whose held
         frames (:func:`twin_hold_bytes`) would pass it runs from the warm-up
         instead: the same bits, more puff-steps, less memory.
+    air : bool
+        Add the air's velocity (swirl, vortex, convection flow) at each puff
+        to its own in :attr:`FrameState.vel` (default). False leaves each
+        puff's own velocity there and skips a pass over the swirl's modes a
+        frame: a render passes it when nothing it draws reads velocities (no
+        source stretches along its motion and no motion map). Nothing else
+        in the states changes.
 
     Yields
     ------
@@ -411,9 +426,9 @@ def simulate(look, plan: Optional[SimPlan] = None, *, frames: Iterable[int], sam
     if isinstance(hold, bool) or not isinstance(hold, (int, float)) or not hold >= 0:
         raise ValueError(f"hold: expected a number of bytes >= 0, got {hold!r}")
     if _twins_apply(plan) and twin_hold_bytes(plan, len(wanted), sample) <= hold:
-        yield from _simulate_twins(look, plan, wanted, sample)
+        yield from _simulate_twins(look, plan, wanted, sample, air)
     else:
-        yield from _simulate_warmup(look, plan, wanted, sample)
+        yield from _simulate_warmup(look, plan, wanted, sample, air)
 
 
 def _keep_every(parts: list, sample: int) -> list:
@@ -470,7 +485,8 @@ def _advance(look, plan: SimPlan, puffs: _Puffs, s: int, follow, elongation, sha
     puffs.kill(killed)
 
 
-def _simulate_warmup(look, plan: SimPlan, wanted: list, sample: int = 1) -> Iterator[FrameState]:
+def _simulate_warmup(look, plan: SimPlan, wanted: list, sample: int = 1, air: bool = True
+                     ) -> Iterator[FrameState]:
     """Step every puff from the start of the warm-up (step 0) through the last wanted frame."""
     targets = iter(wanted)
     frame = next(targets)
@@ -490,7 +506,7 @@ def _simulate_warmup(look, plan: SimPlan, wanted: list, sample: int = 1) -> Iter
         if len(puffs):
             puffs.kill(puffs.ages(s, plan.dt) >= puffs.a["life"])
         while frame is not None and plan.frame_step(frame) == s:
-            yield _frame_state(look, plan, puffs, frame, s, flow)
+            yield _frame_state(look, plan, puffs, frame, s, flow, air)
             frame = next(targets, None)
 
 
@@ -678,7 +694,8 @@ def _gather_moving(parts: list, order: np.ndarray, shaping: bool) -> dict:
     return out
 
 
-def _simulate_twins(look, plan: SimPlan, wanted: list, sample: int = 1) -> Iterator[FrameState]:
+def _simulate_twins(look, plan: SimPlan, wanted: list, sample: int = 1, air: bool = True
+                    ) -> Iterator[FrameState]:
     """Exact loop from one period of births, each over its whole life.
 
     The lattice slots ``k < per`` of every source (born at boundaries
@@ -737,7 +754,7 @@ def _simulate_twins(look, plan: SimPlan, wanted: list, sample: int = 1) -> Itera
                 "bstep": np.take(bstep, order)}
         pick.update({name: np.take(t[name], rows, axis=0) for name in ("bfrac", "life", "size0", "aspect", "quat")})
         pick.update(_gather_moving([p for _, p in parts], order, shaping))
-        return _state_of(look, plan, pick, f, at[f])
+        return _state_of(look, plan, pick, f, at[f], air=air)
 
     for s in range(last + 1):
         if s > 0:
