@@ -32,8 +32,10 @@ that may exceed the limit: with ``det F = 1``,
 ``s_max / s_min = s_max**2 s_mid <= ||F||_F**3``.
 
 Kernels here are inlined into :mod:`splatter.sim.integrate`'s step; numba's
-cache does not notice edits to this file, so touch ``integrate.py`` (or
-delete ``splatter/__pycache__``) after changing one.
+cache keys that step on ``integrate.py``'s own bytes and does not notice
+edits to this file, so delete the cache (``$NUMBA_CACHE_DIR``, else
+``splatter/sim/__pycache__``) after changing one: touching a file is not
+enough.
 """
 
 from __future__ import annotations
