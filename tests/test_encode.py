@@ -89,10 +89,10 @@ def test_quantize_round_half_up_and_clip():
         quantize(x, 10)
 
 
-def _display_chain(rgba, alpha, exposure):
-    """to_display's sRGB path written as plain numpy steps: exposure, clipped alpha,
-    straight colour (W3C PNG: premultiplied / alpha, 0 at alpha 0), clipped, sRGB encoded
-    (srgb_encode, checked against IEC 61966-2-1 above), times alpha when premultiplied."""
+def _display_chain(rgba, alpha, exposure, color="srgb"):
+    """to_display's straight and sRGB paths written as plain numpy steps: exposure, clipped
+    alpha, straight colour (W3C PNG: premultiplied / alpha, 0 at alpha 0), clipped, sRGB
+    encoded (srgb_encode, checked against IEC 61966-2-1 above), times alpha when premultiplied."""
     from splatter.core.colorspace import srgb_encode
 
     a = rgba.copy()
@@ -104,7 +104,8 @@ def _display_chain(rgba, alpha, exposure):
     with np.errstate(invalid="ignore", divide="ignore"):
         np.divide(a[..., :3], a[..., 3:4], out=out[..., :3], where=covered[..., None])
     np.clip(out[..., :3], 0.0, 1.0, out=out[..., :3])
-    out[..., :3] = srgb_encode(out[..., :3])
+    if color == "srgb":
+        out[..., :3] = srgb_encode(out[..., :3])
     if alpha == "premultiplied":
         out[..., :3] *= out[..., 3:4]
     return out
@@ -121,10 +122,10 @@ def test_display_and_quantize_give_the_numpy_steps_bit_for_bit():
     img[0, :4, 3] = 1.0
     for value in (np.nan, np.inf, -np.inf):
         img.flat[rng.integers(0, img.size, 25)] = value
-    for alpha in ("straight", "premultiplied"):
+    for color, alpha in (("srgb", "straight"), ("srgb", "premultiplied"), ("linear", "straight")):
         for exposure in (0.0, 1.5):
-            got = to_display(img, alpha=alpha, exposure=exposure)
-            want = _display_chain(img, alpha, exposure)
+            got = to_display(img, alpha=alpha, exposure=exposure, color=color)
+            want = _display_chain(img, alpha, exposure, color)
             assert got.dtype == np.float32
             np.testing.assert_array_equal(got, want)  # NaN where NaN
             for bits, top in ((8, 255.0), (16, 65535.0)):

@@ -98,18 +98,23 @@ def to_display(rgba_premult_linear, *, alpha="straight", color="srgb", exposure=
         out = scaled
         np.clip(out[..., :3], 0.0, out[..., 3:4], out=out[..., :3])
         return out
-    if color == "srgb":
-        return _srgb_display(scaled, alpha == "premultiplied")
-    out = unpremultiply(scaled)
-    np.clip(out[..., :3], 0.0, 1.0, out=out[..., :3])
-    if alpha == "premultiplied":
-        out[..., :3] *= out[..., 3:4]
+    h, w, _ = scaled.shape
+    colour = np.empty((h, w, 3), dtype=np.float32)
+    straight_alpha = np.empty((h, w), dtype=np.float32)
+    _straight_clipped(scaled, colour, straight_alpha)
+    out = np.empty((h, w, 4), dtype=np.float32)
+    if color == "linear":  # straight: premultiplied linear returned above
+        out[..., :3] = colour
+        out[..., 3] = straight_alpha
+        return out
+    power = np.power(colour, _F32_INV_GAMMA)  # numpy's float32 power, as srgb_encode takes it
+    _srgb_finish(colour, power, straight_alpha, alpha == "premultiplied", out)
     return out
 
 
 # ---------------------------------------------------------------------------------------------------------------
-# The sRGB path in two passes over the image (the frame writer runs it beside the render; as a chain of
-# numpy operations it made ten). Every value is the one the numpy chain gives: the same float32
+# Straight and sRGB values in two passes over the image (the frame writer runs them beside the render; as
+# a chain of numpy operations they made ten). Every value is the one the numpy chain gives: the same float32
 # divisions and products, NaN kept where np.clip keeps it, and the power itself left to numpy.
 
 _F32_0 = np.float32(0.0)
@@ -156,18 +161,6 @@ def _srgb_finish(colour, power, alpha, premultiply, out):
                 v = _F32_SLOPE * c if c <= _F32_KNEE else p + _F32_OFFSET * (p - _F32_1)
                 out[y, x, k] = v * a if premultiply else v
             out[y, x, 3] = a
-
-
-def _srgb_display(scaled, premultiply):
-    """Straight or premultiplied sRGB display values of ``scaled`` ((H, W, 4) float32, alpha in [0, 1])."""
-    h, w, _ = scaled.shape
-    colour = np.empty((h, w, 3), dtype=np.float32)
-    alpha = np.empty((h, w), dtype=np.float32)
-    _straight_clipped(scaled, colour, alpha)
-    power = np.power(colour, _F32_INV_GAMMA)  # numpy's float32 power, as srgb_encode takes it
-    out = np.empty((h, w, 4), dtype=np.float32)
-    _srgb_finish(colour, power, alpha, premultiply, out)
-    return out
 
 
 def quantize(x, bits):
