@@ -196,37 +196,16 @@ def _relax_listed(f, idx, m, elongation, lanes):
     for k0 in range(0, m, 8):
         count = min(8, m - k0)
         for j in range(8):
-            if j < count:
-                c00, c01, c02, c10, c11, c12, c20, c21, c22 = _gram(f, idx[k0 + j])
-                lanes[9, j] = 1.0
-            else:  # a spare lane: the identity, converged at once
-                c00, c01, c02, c10, c11, c12, c20, c21, c22 = 1.0, 0.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0
-                lanes[9, j] = 0.0
-            lanes[0, j] = c00
-            lanes[1, j] = c01
-            lanes[2, j] = c02
-            lanes[3, j] = c10
-            lanes[4, j] = c11
-            lanes[5, j] = c12
-            lanes[6, j] = c20
-            lanes[7, j] = c21
-            lanes[8, j] = c22
-        e0, e1, e2, v00, v01, v02, v10, v11, v12, v20, v21, v22 = _sym_eig3x8(
-            V.vload(lanes[9], 0), V.vload(lanes[0], 0), V.vload(lanes[1], 0), V.vload(lanes[2], 0),
-            V.vload(lanes[3], 0), V.vload(lanes[4], 0), V.vload(lanes[5], 0), V.vload(lanes[6], 0),
-            V.vload(lanes[7], 0), V.vload(lanes[8], 0))
-        V.vstore(lanes[10], 0, e0)
-        V.vstore(lanes[11], 0, e1)
-        V.vstore(lanes[12], 0, e2)
-        V.vstore(lanes[13], 0, v00)
-        V.vstore(lanes[14], 0, v01)
-        V.vstore(lanes[15], 0, v02)
-        V.vstore(lanes[16], 0, v10)
-        V.vstore(lanes[17], 0, v11)
-        V.vstore(lanes[18], 0, v12)
-        V.vstore(lanes[19], 0, v20)
-        V.vstore(lanes[20], 0, v21)
-        V.vstore(lanes[21], 0, v22)
+            # A spare lane holds the identity, converged at once.
+            c = _gram(f, idx[k0 + j]) if j < count else (1.0, 0.0, 0.0, 0.0, 1.0, 0.0, 0.0, 0.0, 1.0)
+            for r in range(9):
+                lanes[r, j] = c[r]
+            lanes[9, j] = 1.0 if j < count else 0.0
+        eig = _sym_eig3x8(V.vload(lanes[9], 0), V.vload(lanes[0], 0), V.vload(lanes[1], 0), V.vload(lanes[2], 0),
+                          V.vload(lanes[3], 0), V.vload(lanes[4], 0), V.vload(lanes[5], 0), V.vload(lanes[6], 0),
+                          V.vload(lanes[7], 0), V.vload(lanes[8], 0))
+        for r in range(12):
+            V.vstore(lanes[10 + r], 0, eig[r])
         for j in range(count):
             i = idx[k0 + j]
             if _relax_with(f, i, elongation[i], lanes[10, j], lanes[11, j], lanes[12, j], lanes[13, j], lanes[14, j],
